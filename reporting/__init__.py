@@ -1,0 +1,62 @@
+"""segreport: stress-echocardiography segment scores to a computed analysis record and report.
+
+Public API::
+
+    from reporting import load_study, analyze, analyze_file, record_json
+    analysis = analyze_file("study.yaml")
+
+Decision support for qualified clinicians; computed values need physician review.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING, Any
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "Analysis",
+    "InputError",
+    "InputErrors",
+    "ReportingError",
+    "Settings",
+    "Study",
+    "__version__",
+    "analyze",
+    "analyze_file",
+    "load_settings",
+    "load_study",
+    "record_json",
+]
+
+_LAZY = {
+    "Analysis": "reporting.results",
+    "InputError": "reporting.errors",
+    "InputErrors": "reporting.errors",
+    "ReportingError": "reporting.errors",
+    "Settings": "reporting.settings",
+    "Study": "reporting.model",
+    "analyze": "reporting.analysis",
+    "analyze_file": "reporting.analysis",
+    "load_settings": "reporting.settings",
+    "load_study": "reporting.load",
+    "record_json": "reporting.export.record",
+}
+
+if TYPE_CHECKING:
+    from reporting.analysis import analyze, analyze_file
+    from reporting.errors import InputError, InputErrors, ReportingError
+    from reporting.export.record import record_json
+    from reporting.load import load_study
+    from reporting.model import Study
+    from reporting.results import Analysis
+    from reporting.settings import Settings, load_settings
+
+
+def __getattr__(name: str) -> Any:
+    # Imports are lazy so that `segreport --help` stays fast.
+    if name in _LAZY:
+        import importlib
+
+        return getattr(importlib.import_module(_LAZY[name]), name)
+    raise AttributeError(f"module 'reporting' has no attribute {name!r}")

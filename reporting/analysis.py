@@ -1,0 +1,510 @@
+"""Study → Analysis: the one entry point for computation.
+
+:func:`analyze` applies the scoring rules (``scoring``), the stress indices (``stress``) and the
+territory map (``segments``) to a validated :class:`~reporting.model.Study` and returns a frozen
+:class:`~reporting.results.Analysis`. It reads no files; :func:`analyze_file` is the convenience that
+loads a study, its lab territory map and a lab settings file first.
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Mapping
+from pathlib import Path
+
+from reporting import scoring, stress
+from reporting.errors import InputError
+from reporting.load import load_study
+from reporting.model import EXERCISE_PROTOCOLS, STRESS_STAGES, Protocol, Stage, Study
+from reporting.results import (
+    RECORD_SCHEMA_VERSION,
+    Analysis,
+    Conclusion,
+    DiagnosticStatus,
+    FindingCode,
+    HighRiskFinding,
+    Note,
+    NoteKind,
+    PatientSummary,
+    PerfusionResult,
+    SegmentResult,
+    StageHaemodynamics,
+    StressResult,
+    StudyHeader,
+    TerritoryMapInfo,
+    TerritoryResult,
+)
+from reporting.scoring import ISCHEMIC_PERFUSION, ISCHEMIC_RESPONSES, VIABLE_RESPONSES, PerfusionResponse, WallMotionResponse
+from reporting.segments import BUILT_IN_MAPS, SegmentModel, Territory, TerritoryMap, adjacency, built_in_map, load_territory_map, segments_of
+from reporting.settings import Settings, default_settings, load_settings
+
+log = logging.getLogger(__name__)
+
+CAUTIONS = (
+    "Decision support for qualified clinicians: this report does not replace the judgement of the reading physician.",
+    "Computed values (indices, responses, targets, risk findings) must be reviewed by the physician before use.",
+    "Follow local protocols, current product labelling for stress and enhancing agents, and licensed practice.",
+)
+
+Scores = Mapping[int, int | None]
+
+
+def analyze_file(
+    path: Path | str,
+    *,
+    settings_path: Path | None = None,
+    territory_map: str | Path | None = None,
+) -> Analysis:
+    """Load the study at ``path`` (and any lab map or settings) and analyse it."""
+    path = Path(path)
+    study = load_study(path)
+    settings = load_settings(settings_path)
+    return analyze(study, settings=settings, territory_map=resolve_territory_map(study, path.parent, territory_map))
+
+
+def resolve_territory_map(study: Study, base_dir: Path, override: str | Path | None = None) -> TerritoryMap:
+    """The map named by ``override`` or by the study: a built-in name or a YAML file path."""
+    choice = override if override is not None else study.territory_map
+    if choice is None:
+        return built_in_map("standard")
+    if str(choice) in BUILT_IN_MAPS:
+        return built_in_map(str(choice))
+    where = base_dir / choice if override is None else Path(choice)
+    return load_territory_map(where)
+
+
+def analyze(study: Study, *, settings: Settings | None = None, territory_map: TerritoryMap | None = None) -> Analysis:
+    """Compute the full analysis of ``study``."""
+    settings = settings or default_settings()
+    if territory_map is None:
+        if study.territory_map not in (None, *BUILT_IN_MAPS):
+            raise InputError("territory_map", "a lab-defined map must be loaded first (use analyze_file)")
+        territory_map = built_in_map(study.territory_map or "standard")
+    model = study.segment_model
+    if not territory_map.supports(model):
+        raise InputError("territory_map", f"map {territory_map.name!r} has no {int(model)}-segment assignment")
+
+    wall = _scores_by_stage(study, "wall_motion")
+    perf = _scores_by_stage(study, "perfusion")
+    segments = _segment_results(study, territory_map, wall, perf)
+    wmsi_numbers = _wmsi_segments(model, settings)
+
+    wmsi: dict[Stage, float] = {}
+    wmsi_counts: dict[Stage, int] = {}
+    for stage, scores in wall.items():
+        value, count = scoring.score_index(scores[n] for n in wmsi_numbers)
+        if value is not None:
+            wmsi[stage], wmsi_counts[stage] = value, count
+
+    territories = {t: _territory_result(t, segments, wall, wmsi_numbers) for t in Territory}
+    perfusion = _perfusion_result(segments, perf)
+    stress_result, stress_notes = _stress_result(study, settings)
+    conclusion = _conclusion(study, settings, segments, territories, wall, wmsi, stress_result)
+    notes = stress_notes + _notes(study, settings, segments, wall, perf, conclusion)
+    log.debug("analysed %s: %d segments, status %s", study.study.id, len(segments), conclusion.status)
+
+    return Analysis(
+        schema_version=RECORD_SCHEMA_VERSION,
+        generator=f"segreport {_version()}",
+        study=StudyHeader(
+            id=study.study.id,
+            date=study.study.date,
+            lab=study.study.lab,
+            reader=study.study.reader,
+            sonographer=study.study.sonographer,
+            referring_physician=study.study.referring_physician,
+            report_status=study.study.report_status,
+            indication=study.indication,
+            comments=study.comments,
+        ),
+        patient=PatientSummary(
+            id=study.patient.id,
+            name=study.patient.name,
+            birth_date=study.patient.birth_date,
+            age_years=study.age_years(),
+            sex=study.patient.sex,
+        ),
+        protocol=study.protocol,
+        segment_model=model,
+        wall_motion_scale=study.wall_motion_scale,
+        territory_map=TerritoryMapInfo(name=territory_map.name, title=territory_map.title, source=territory_map.source),
+        stages=list(study.stages),
+        haemodynamics=_haemodynamics(study, stress_result),
+        contrast_used=study.contrast is not None,
+        contrast_agent=study.contrast.agent if study.contrast else None,
+        wmsi=wmsi,
+        wmsi_scored_segments=wmsi_counts,
+        segments=segments,
+        territories=territories,
+        perfusion=perfusion,
+        stress=stress_result,
+        conclusion=conclusion,
+        notes=notes,
+        cautions=list(CAUTIONS),
+    )
+
+
+def _version() -> str:
+    from reporting import __version__
+
+    return __version__
+
+
+def _scores_by_stage(study: Study, kind: str) -> dict[Stage, dict[int, int | None]]:
+    out: dict[Stage, dict[int, int | None]] = {}
+    for stage, data in study.stages.items():
+        scores = getattr(data, kind)
+        if scores is not None:
+            out[stage] = {n: scores[n] for n in range(1, int(study.segment_model) + 1)}
+    return out
+
+
+def _wmsi_segments(model: SegmentModel, settings: Settings) -> list[int]:
+    numbers = [s.number for s in segments_of(model)]
+    if settings.wmsi_excludes_apex and model is SegmentModel.SEVENTEEN:
+        numbers.remove(17)
+    return numbers
+
+
+def _segment_results(
+    study: Study, territory_map: TerritoryMap, wall: dict[Stage, dict[int, int | None]], perf: dict[Stage, dict[int, int | None]]
+) -> list[SegmentResult]:
+    def at(scores: dict[Stage, dict[int, int | None]], stage: Stage, n: int) -> int | None:
+        return scores[stage][n] if stage in scores else None
+
+    results = []
+    for seg in segments_of(study.segment_model):
+        n = seg.number
+        territory = territory_map.territory_of(study.segment_model, n)
+        others = sorted({seg.default_territory, *seg.alternative_territories} - {territory})
+        results.append(
+            SegmentResult(
+                number=n,
+                name=seg.name,
+                ring=seg.ring,
+                territory=territory,
+                shared_supply=others,
+                wall_motion={stage: scores[n] for stage, scores in wall.items()},
+                perfusion={stage: scores[n] for stage, scores in perf.items()},
+                response=scoring.wall_motion_response(at(wall, Stage.REST, n), at(wall, Stage.LOW_DOSE, n), at(wall, Stage.PEAK, n)),
+                perfusion_response=scoring.perfusion_response(at(perf, Stage.REST, n), at(perf, Stage.PEAK, n)),
+            )
+        )
+    return results
+
+
+def _territory_result(
+    territory: Territory, segments: list[SegmentResult], wall: dict[Stage, dict[int, int | None]], wmsi_numbers: list[int]
+) -> TerritoryResult:
+    mine = [s for s in segments if s.territory is territory]
+    numbers = [s.number for s in mine]
+    wmsi: dict[Stage, float | None] = {}
+    counts: dict[Stage, int] = {}
+    for stage, scores in wall.items():
+        wmsi[stage], counts[stage] = scoring.score_index(scores[n] for n in numbers if n in wmsi_numbers)
+    ischemic = [s.number for s in mine if s.response in ISCHEMIC_RESPONSES]
+    reversible = [s.number for s in mine if s.perfusion_response in ISCHEMIC_PERFUSION]
+    return TerritoryResult(
+        segments=numbers,
+        ischemic_segments=ischemic,
+        viable_segments=[s.number for s in mine if s.response in VIABLE_RESPONSES],
+        fixed_segments=[s.number for s in mine if s.response is WallMotionResponse.FIXED],
+        wmsi=wmsi,
+        scored_segments=counts,
+        reversible_perfusion_segments=reversible,
+        fixed_perfusion_segments=[s.number for s in mine if s.perfusion_response is PerfusionResponse.FIXED],
+        ischemic=bool(ischemic or reversible),
+    )
+
+
+def _perfusion_result(segments: list[SegmentResult], perf: dict[Stage, dict[int, int | None]]) -> PerfusionResult:
+    extent: dict[Stage, float] = {}
+    index: dict[Stage, float] = {}
+    counts: dict[Stage, int] = {}
+    for stage, scores in perf.items():
+        value, count = scoring.score_index(scores.values())
+        percent = scoring.defect_extent_percent(scores.values())
+        if value is not None and percent is not None:
+            index[stage], counts[stage], extent[stage] = value, count, percent
+
+    def having(response: PerfusionResponse) -> list[int]:
+        return [s.number for s in segments if s.perfusion_response is response]
+
+    return PerfusionResult(
+        scored=bool(perf),
+        defect_extent_percent=extent,
+        score_index=index,
+        scored_segments=counts,
+        reversible_segments=having(PerfusionResponse.REVERSIBLE),
+        partially_reversible_segments=having(PerfusionResponse.PARTIALLY_REVERSIBLE),
+        fixed_segments=having(PerfusionResponse.FIXED),
+    )
+
+
+def _stress_result(study: Study, settings: Settings) -> tuple[StressResult, list[Note]]:
+    notes: list[Note] = []
+    sources = Settings.sources()
+    age = study.age_years()
+    predicted = stress.age_predicted_max_hr(age, settings.heart_rate_formula) if age is not None else None
+    target = predicted * settings.target_heart_rate_fraction if predicted is not None else None
+    stress_rates = [d.heart_rate_bpm for s, d in study.stages.items() if s in STRESS_STAGES and d.heart_rate_bpm is not None]
+    peak_hr = max(stress_rates) if stress_rates else None
+    percent = 100 * peak_hr / predicted if peak_hr is not None and predicted else None
+    rate_dependent = study.protocol is not Protocol.VASODILATOR
+
+    if not rate_dependent:
+        adequate = Stage.PEAK in study.stages
+        why = "Vasodilator stress: the heart-rate target does not apply." if adequate else "No peak stage was recorded."
+    elif age is None:
+        adequate = False
+        why = "Age unknown: the target heart rate cannot be computed, so adequacy is not established."
+        notes.append(Note(kind=NoteKind.AGE_UNKNOWN, text=why, source=None))
+    elif peak_hr is None or target is None:
+        adequate = False
+        why = "No heart rate was recorded at a stress stage, so adequacy is not established."
+    else:
+        adequate = peak_hr >= target
+        verb = "reached" if adequate else "did not reach"
+        why = (
+            f"Peak heart rate {peak_hr} bpm {verb} the target of {target:.0f} bpm "
+            f"({100 * settings.target_heart_rate_fraction:.0f} % of the age-predicted maximum {predicted:.0f} bpm)."
+        )
+
+    rpp = {
+        s: stress.rate_pressure_product(d.heart_rate_bpm, d.systolic_bp_mmhg)
+        for s, d in study.stages.items()
+        if d.heart_rate_bpm is not None and d.systolic_bp_mmhg is not None
+    }
+    duke = risk = None
+    if study.exercise is not None:
+        if study.protocol in settings.duke_protocols:
+            ex = study.exercise
+            duke = stress.duke_treadmill_score(ex.duration_min, ex.max_st_deviation_mm, ex.angina_index)
+            risk = stress.duke_risk(duke, settings.duke_low_risk_min, settings.duke_high_risk_max)
+        else:
+            notes.append(
+                Note(
+                    kind=NoteKind.DUKE_NOT_APPLICABLE,
+                    text=f"The Duke treadmill score is not computed for {study.protocol.value} stress; it was derived on the Bruce treadmill protocol.",
+                    source=sources["duke_protocols"],
+                )
+            )
+    result = StressResult(
+        age_years=age,
+        heart_rate_formula=settings.heart_rate_formula,
+        age_predicted_max_hr_bpm=predicted,
+        target_hr_bpm=target,
+        target_fraction=settings.target_heart_rate_fraction,
+        peak_hr_bpm=peak_hr,
+        peak_hr_percent_of_predicted=percent,
+        heart_rate_target_applies=rate_dependent,
+        adequate=adequate,
+        adequacy_note=why,
+        rate_pressure_product=rpp,
+        duke_treadmill_score=duke,
+        duke_risk=risk,
+        mets=study.exercise.mets if study.exercise else None,
+    )
+    return result, notes
+
+
+def _haemodynamics(study: Study, result: StressResult) -> dict[Stage, StageHaemodynamics]:
+    predicted = result.age_predicted_max_hr_bpm
+    return {
+        stage: StageHaemodynamics(
+            heart_rate_bpm=d.heart_rate_bpm,
+            systolic_bp_mmhg=d.systolic_bp_mmhg,
+            diastolic_bp_mmhg=d.diastolic_bp_mmhg,
+            rate_pressure_product=result.rate_pressure_product.get(stage),
+            hr_percent_of_predicted=100 * d.heart_rate_bpm / predicted if d.heart_rate_bpm is not None and predicted else None,
+            dose_ug_kg_min=d.dose_ug_kg_min,
+            atropine_mg=d.atropine_mg,
+            lvef_percent=d.lvef_percent,
+            lv_esv_ml=d.lv_esv_ml,
+            symptoms=d.symptoms,
+        )
+        for stage, d in study.stages.items()
+    }
+
+
+def _conclusion(
+    study: Study,
+    settings: Settings,
+    segments: list[SegmentResult],
+    territories: dict[Territory, TerritoryResult],
+    wall: dict[Stage, dict[int, int | None]],
+    wmsi: dict[Stage, float],
+    stress_result: StressResult,
+) -> Conclusion:
+    wm_ischemic = [s.number for s in segments if s.response in ISCHEMIC_RESPONSES]
+    ischemic_territories = [t for t, r in territories.items() if r.ischemic]
+    ischemia = any(r.ischemic for r in territories.values())
+    peak_seen = any(s.response is not WallMotionResponse.NOT_ASSESSABLE for s in segments) or any(
+        s.perfusion_response is not PerfusionResponse.NOT_ASSESSABLE for s in segments
+    )
+    if ischemia:
+        status = DiagnosticStatus.ISCHEMIA
+    elif stress_result.adequate and peak_seen:
+        status = DiagnosticStatus.NO_ISCHEMIA
+    else:
+        status = DiagnosticStatus.NON_DIAGNOSTIC
+    multivessel = len(ischemic_territories) >= settings.multivessel_territories_min
+    return Conclusion(
+        ischemia=ischemia,
+        status=status,
+        ischemic_territories=ischemic_territories,
+        ischemic_segment_count=len(wm_ischemic),
+        ischemia_extent=scoring.ischemia_extent(len(wm_ischemic), settings.extensive_ischemia_segments_min),
+        multivessel=multivessel,
+        viable_segments=[s.number for s in segments if s.response in VIABLE_RESPONSES],
+        fixed_segments=[s.number for s in segments if s.response is WallMotionResponse.FIXED],
+        akinetic_to_dyskinetic_segments=[s.number for s in segments if s.response is WallMotionResponse.AKINETIC_TO_DYSKINETIC],
+        high_risk_findings=_high_risk(study, settings, wm_ischemic, ischemic_territories, wall, wmsi, stress_result),
+    )
+
+
+def _high_risk(
+    study: Study,
+    settings: Settings,
+    wm_ischemic: list[int],
+    ischemic_territories: list[Territory],
+    wall: dict[Stage, dict[int, int | None]],
+    wmsi: dict[Stage, float],
+    stress_result: StressResult,
+) -> list[HighRiskFinding]:
+    src = Settings.sources()
+    found: list[HighRiskFinding] = []
+
+    def add(code: FindingCode, detail: str, setting: str) -> None:
+        found.append(HighRiskFinding(code=code, detail=detail, source=src[setting]))
+
+    rest = wall.get(Stage.REST)
+    if rest is not None:
+        for stage in STRESS_STAGES:
+            if stage not in wall:
+                continue
+            data = study.stages[stage]
+            low_dose = (
+                stage is Stage.LOW_DOSE
+                and study.protocol is Protocol.DOBUTAMINE
+                and (data.dose_ug_kg_min is None or data.dose_ug_kg_min <= settings.dobutamine_low_dose_max_ug_kg_min)
+            )
+            low_rate = data.heart_rate_bpm is not None and data.heart_rate_bpm < settings.low_heart_rate_bpm
+            worse = scoring.newly_abnormal(rest, wall[stage])
+            if (low_dose or low_rate) and len(worse) >= settings.low_threshold_abnormal_segments_min:
+                when = []
+                if data.dose_ug_kg_min is not None:
+                    when.append(f"dobutamine {data.dose_ug_kg_min:g} μg/kg/min")
+                if data.heart_rate_bpm is not None:
+                    when.append(f"heart rate {data.heart_rate_bpm} bpm")
+                context = f" ({', '.join(when)})" if when else ""
+                add(
+                    FindingCode.LOW_THRESHOLD_ISCHEMIA,
+                    f"{len(worse)} segments newly abnormal at {stage.value.replace('_', ' ')}{context}: {_nums(worse)}.",
+                    "low_threshold_abnormal_segments_min",
+                )
+                break
+    if len(wm_ischemic) >= settings.extensive_ischemia_segments_min:
+        add(FindingCode.EXTENSIVE_ISCHEMIA, f"Ischaemia in {len(wm_ischemic)} segments: {_nums(wm_ischemic)}.", "extensive_ischemia_segments_min")
+    if len(ischemic_territories) >= settings.multivessel_territories_min:
+        add(
+            FindingCode.MULTIVESSEL_ISCHEMIA,
+            f"Ischaemia in {len(ischemic_territories)} territories: {', '.join(ischemic_territories)}.",
+            "multivessel_territories_min",
+        )
+    rest_data = study.stages.get(Stage.REST)
+    peak_data = study.stages.get(Stage.PEAK)
+    if rest_data and rest_data.lvef_percent is not None and rest_data.lvef_percent < settings.resting_ef_high_risk_below_percent:
+        add(FindingCode.LOW_RESTING_EF, f"Resting LVEF {rest_data.lvef_percent:g} %.", "resting_ef_high_risk_below_percent")
+    if Stage.PEAK in wmsi and wmsi[Stage.PEAK] > settings.peak_wmsi_high_risk_above:
+        add(FindingCode.HIGH_PEAK_WMSI, f"Peak WMSI {wmsi[Stage.PEAK]:.2f}.", "peak_wmsi_high_risk_above")
+    if rest_data and peak_data:
+        if rest_data.lv_esv_ml is not None and peak_data.lv_esv_ml is not None:
+            rise = peak_data.lv_esv_ml - rest_data.lv_esv_ml
+            if rise > settings.esv_rise_high_risk_above_ml:
+                add(FindingCode.ESV_RISE, f"LV end-systolic volume rose from {rest_data.lv_esv_ml:g} to {peak_data.lv_esv_ml:g} mL.", "esv_rise_high_risk_above_ml")
+        if rest_data.lvef_percent is not None and peak_data.lvef_percent is not None:
+            fall = rest_data.lvef_percent - peak_data.lvef_percent
+            if fall > settings.ef_fall_high_risk_above_percent:
+                add(FindingCode.EF_FALL, f"LVEF fell from {rest_data.lvef_percent:g} % to {peak_data.lvef_percent:g} %.", "ef_fall_high_risk_above_percent")
+    if stress_result.duke_risk is stress.DukeRisk.HIGH and stress_result.duke_treadmill_score is not None:
+        add(FindingCode.DUKE_HIGH_RISK, f"Duke treadmill score {stress_result.duke_treadmill_score:g}.", "duke_high_risk_max")
+    return found
+
+
+def _notes(
+    study: Study,
+    settings: Settings,
+    segments: list[SegmentResult],
+    wall: dict[Stage, dict[int, int | None]],
+    perf: dict[Stage, dict[int, int | None]],
+    conclusion: Conclusion,
+) -> list[Note]:
+    src = Settings.sources()
+    notes: list[Note] = []
+    touching = adjacency(study.segment_model)
+    suggest_at: list[str] = []
+    for stage, scores in wall.items():
+        unseen = [n for n, score in scores.items() if score is None]
+        if not unseen:
+            continue
+        notes.append(
+            Note(kind=NoteKind.NOT_VISUALISED, text=f"Not visualised at {_stage_text(stage)}: segments {_nums(unseen)}.", source=None)
+        )
+        groups = scoring.connected_groups(unseen, touching)
+        if groups and len(groups[0]) >= settings.contrast_suggest_contiguous_not_visualised_min:
+            suggest_at.append(f"{_stage_text(stage)} (segments {_nums(groups[0])})")
+    if suggest_at and study.contrast is None:
+        notes.append(
+            Note(
+                kind=NoteKind.SUGGEST_CONTRAST,
+                text="Contiguous segments were not visualised at " + "; ".join(suggest_at)
+                + ": an ultrasound-enhancing agent is suggested for border definition.",
+                source=src["contrast_suggest_contiguous_not_visualised_min"],
+            )
+        )
+    if perf and study.contrast is None:
+        notes.append(
+            Note(
+                kind=NoteKind.PERFUSION_WITHOUT_CONTRAST,
+                text="Perfusion scores were entered but no enhancing agent is recorded; check the contrast details.",
+                source=None,
+            )
+        )
+    if perf and study.contrast and study.contrast.imaging_mi is not None and study.contrast.imaging_mi > settings.low_mi_max:
+        notes.append(
+            Note(
+                kind=NoteKind.HIGH_MI_PERFUSION,
+                text=f"Perfusion was imaged at mechanical index {study.contrast.imaging_mi:g}, above the low-MI range "
+                f"(≤ {settings.low_mi_max:g}); microbubble destruction may mimic perfusion defects.",
+                source=src["low_mi_max"],
+            )
+        )
+    if study.perfusion_curves and study.contrast and study.contrast.administration.value == "bolus":
+        notes.append(
+            Note(
+                kind=NoteKind.BOLUS_QUANTIFICATION,
+                text="Replenishment curves were acquired with bolus injection; quantification assumes the steady "
+                "state of a continuous infusion, so the fitted values are unreliable.",
+                source="Wei K et al., Circulation 1998;97:473 (model requires constant infusion) [C]",
+            )
+        )
+    biphasic = [s.number for s in segments if s.response is WallMotionResponse.BIPHASIC]
+    if len(biphasic) >= settings.viability_biphasic_segments_min:
+        notes.append(
+            Note(
+                kind=NoteKind.VIABILITY,
+                text=f"{len(biphasic)} segments show a biphasic response (segments {_nums(biphasic)}); "
+                "recovery of global function after revascularisation is likely.",
+                source=src["viability_biphasic_segments_min"],
+            )
+        )
+    return notes
+
+
+def _stage_text(stage: Stage) -> str:
+    return stage.value.replace("_", " ")
+
+
+def _nums(numbers: list[int]) -> str:
+    return ", ".join(str(n) for n in numbers)

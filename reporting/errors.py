@@ -1,0 +1,57 @@
+"""Errors raised by segreport.
+
+Every error a user can cause is a :class:`ReportingError`. Input problems are :class:`InputError`:
+each carries a *location* (a file and a dotted path inside it, such as
+``study.yaml: stages.peak.wall_motion``) and a *problem*, and formats them as one line. Loading a
+study collects every problem it finds and raises them together as :class:`InputErrors`, so a reader
+fixes a file in one pass instead of one error at a time.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Sequence
+
+
+class ReportingError(Exception):
+    """Base class of every error segreport raises on purpose."""
+
+
+class InputError(ReportingError, ValueError):
+    """One problem with user input, at one location."""
+
+    def __init__(self, location: str, problem: str) -> None:
+        self.location = location
+        self.problem = problem
+        super().__init__(f"{location}: {problem}" if location else problem)
+
+
+class InputErrors(ReportingError, ValueError):
+    """Several input problems found together; ``problems`` lists them in file order."""
+
+    def __init__(self, problems: Sequence[InputError]) -> None:
+        if not problems:
+            raise ValueError("InputErrors needs at least one problem")
+        self.problems: tuple[InputError, ...] = tuple(problems)
+        super().__init__("\n".join(str(p) for p in self.problems))
+
+    def prefixed(self, prefix: str) -> InputErrors:
+        """The same problems with ``prefix`` (usually a file name) put before each location."""
+        return InputErrors([InputError(_join(prefix, p.location), p.problem) for p in self.problems])
+
+
+def problems_of(error: ReportingError) -> tuple[InputError, ...] | tuple[ReportingError, ...]:
+    """The individual problems inside ``error`` (itself when it is a single problem)."""
+    if isinstance(error, InputErrors):
+        return error.problems
+    return (error,)
+
+
+def raise_all(problems: Iterable[InputError]) -> None:
+    """Raise :class:`InputErrors` when ``problems`` holds anything."""
+    found = list(problems)
+    if found:
+        raise InputErrors(found)
+
+
+def _join(prefix: str, location: str) -> str:
+    return f"{prefix}: {location}" if location else prefix

@@ -1,0 +1,1 @@
+"""Exporters: the analysis record (JSON) and, in later modules, FHIR and tables."""

@@ -1,0 +1,311 @@
+"""Input models: a stress-echo study as the reader enters it.
+
+A :class:`Study` is valid once built: segment numbers exist in the declared segment model, scores
+lie on the declared scales, stages come in protocol order and the study id is safe to use in a file
+name. Each field's ``description`` becomes the published JSON Schema of the study file
+(``schemas/study.schema.json``). Scores are entered either as one character per segment
+(``"111111 111111 1111 1"``, ``x`` for not visualised) or as a mapping of segment number to score.
+"""
+
+from __future__ import annotations
+
+import re
+import datetime as dt
+from enum import StrEnum
+from typing import Annotated, Any, Literal
+
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, model_validator
+from pydantic_core import InitErrorDetails, PydanticCustomError
+
+from reporting.segments import SegmentModel
+
+STUDY_SCHEMA_VERSION = 1
+NOT_VISUALISED = "x"
+
+
+class Stage(StrEnum):
+    """Imaging stage of a stress study, in protocol order."""
+
+    REST = "rest"
+    """Baseline, before stress."""
+    LOW_DOSE = "low_dose"
+    """Low-dose dobutamine (or low workload): the stage that shows contractile reserve."""
+    PEAK = "peak"
+    """Peak stress."""
+    RECOVERY = "recovery"
+    """After stress."""
+
+
+STAGE_ORDER: tuple[Stage, ...] = tuple(Stage)
+STRESS_STAGES: tuple[Stage, ...] = (Stage.LOW_DOSE, Stage.PEAK)
+
+
+class Protocol(StrEnum):
+    """Kind of stress."""
+
+    DOBUTAMINE = "dobutamine"
+    """Graded dobutamine infusion, atropine as needed."""
+    TREADMILL = "treadmill"
+    """Treadmill exercise."""
+    BICYCLE = "bicycle"
+    """Upright or supine bicycle exercise."""
+    VASODILATOR = "vasodilator"
+    """Vasodilator stress; heart-rate targets do not apply."""
+    PACING = "pacing"
+    """Atrial or device pacing to a target heart rate."""
+
+
+EXERCISE_PROTOCOLS = frozenset({Protocol.TREADMILL, Protocol.BICYCLE})
+
+
+class Sex(StrEnum):
+    """Patient sex as recorded."""
+
+    FEMALE = "female"
+    """Female."""
+    MALE = "male"
+    """Male."""
+    OTHER = "other"
+    """Other or not stated."""
+
+
+class Administration(StrEnum):
+    """How the ultrasound-enhancing agent was given."""
+
+    INFUSION = "infusion"
+    """Continuous infusion: a steady state, needed for quantitative replenishment."""
+    BOLUS = "bolus"
+    """Bolus injections: concentration changes over time."""
+
+
+class ReportStatus(StrEnum):
+    """Sign-off state of the report."""
+
+    PRELIMINARY = "preliminary"
+    """Not yet signed by the reading physician."""
+    FINAL = "final"
+    """Signed by the reading physician."""
+
+
+_ID_PATTERN = re.compile(r"^[A-Za-z0-9._-]{1,64}$")
+_FORBIDDEN_IDS = frozenset({".", ".."})
+
+
+def _check_id(value: Any) -> Any:
+    if isinstance(value, int) and not isinstance(value, bool):
+        value = str(value)
+    if isinstance(value, str) and (value in _FORBIDDEN_IDS or not _ID_PATTERN.fullmatch(value)):
+        raise PydanticCustomError(
+            "unsafe_id",
+            "id {value} must be 1–64 letters, digits, '.', '_' or '-' and not '.' or '..' "
+            "(it is used in file names)",
+            {"value": repr(value[:80])},
+        )
+    return value
+
+
+SafeId = Annotated[str, BeforeValidator(_check_id)]
+
+
+def _parse_scores(value: Any) -> Any:
+    """Turn the character form into a mapping; check mapping keys are distinct segment numbers."""
+    if isinstance(value, int) and not isinstance(value, bool):
+        value = str(value)  # YAML reads an unquoted all-digit score string as an integer
+    if isinstance(value, str):
+        text = value.replace(" ", "")
+        scores: dict[int, int | None] = {}
+        for position, char in enumerate(text, start=1):
+            if char.lower() == NOT_VISUALISED:
+                scores[position] = None
+            elif char.isdigit() and char.isascii():
+                scores[position] = int(char)
+            else:
+                raise PydanticCustomError(
+                    "score_character",
+                    "character {position} is {char!r}; use a score digit or x for not visualised",
+                    {"position": position, "char": char},
+                )
+        if not scores:
+            raise PydanticCustomError("no_scores", "no scores given", {})
+        return scores
+    if isinstance(value, dict):
+        seen: dict[int, Any] = {}
+        for key, score in value.items():
+            number = _segment_key(key)
+            if number in seen:
+                raise PydanticCustomError("duplicate_segment", "segment {n} is scored twice", {"n": number})
+            seen[number] = None if isinstance(score, str) and score.strip().lower() == NOT_VISUALISED else score
+        return seen
+    return value
+
+
+def _segment_key(key: Any) -> Any:
+    if isinstance(key, str) and key.strip().isdigit():
+        return int(key.strip())
+    return key
+
+
+SegmentNumber = Annotated[int, Field(ge=1, le=18)]
+WallMotionScore = Annotated[int, Field(ge=1, le=5, description="1 normal, 2 hypokinetic, 3 akinetic, 4 dyskinetic, 5 aneurysmal (5-point scale only)")]
+PerfusionScore = Annotated[int, Field(ge=1, le=3, description="1 normal, 2 reduced or delayed, 3 absent")]
+WallMotionScores = Annotated[
+    dict[SegmentNumber, WallMotionScore | None],
+    BeforeValidator(_parse_scores),
+    Field(description="Segment -> wall-motion score; null (or x) = not visualised. Input may be a string with one character per segment."),
+]
+PerfusionScores = Annotated[
+    dict[SegmentNumber, PerfusionScore | None],
+    BeforeValidator(_parse_scores),
+    Field(description="Segment -> perfusion score; null (or x) = not visualised. Input may be a string with one character per segment."),
+]
+
+
+class _Input(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True, str_strip_whitespace=True)
+
+
+class StudyInfo(_Input):
+    """Identification of the study."""
+
+    id: SafeId = Field(description="Study id: 1–64 letters, digits, '.', '_' or '-'; used in output file names.")
+    date: dt.date = Field(description="Date of the study (ISO 8601).")
+    lab: str | None = Field(default=None, max_length=200, description="Name of the echo lab.")
+    reader: str | None = Field(default=None, max_length=200, description="Reading physician.")
+    sonographer: str | None = Field(default=None, max_length=200, description="Sonographer who acquired the study.")
+    referring_physician: str | None = Field(default=None, max_length=200, description="Referring doctor.")
+    report_status: ReportStatus = Field(default=ReportStatus.PRELIMINARY, description="preliminary until the reader signs; then final.")
+
+
+class Patient(_Input):
+    """The patient; every field optional. Age comes from ``age_years`` or from ``birth_date``."""
+
+    id: SafeId | None = Field(default=None, description="Patient or record number.")
+    name: str | None = Field(default=None, max_length=200, description="Patient name.")
+    birth_date: dt.date | None = Field(default=None, description="Date of birth (ISO 8601).")
+    age_years: int | None = Field(default=None, ge=0, le=120, description="Age in whole years at the study.")
+    sex: Sex | None = Field(default=None, description="Sex as recorded.")
+    height_cm: float | None = Field(default=None, gt=30, lt=260, description="Height in cm.")
+    weight_kg: float | None = Field(default=None, gt=1, lt=400, description="Weight in kg.")
+
+
+class StageData(_Input):
+    """What was measured and scored at one stage."""
+
+    heart_rate_bpm: int | None = Field(default=None, ge=20, le=260, description="Heart rate in beats per minute.")
+    systolic_bp_mmhg: int | None = Field(default=None, ge=40, le=300, description="Systolic blood pressure in mmHg.")
+    diastolic_bp_mmhg: int | None = Field(default=None, ge=20, le=200, description="Diastolic blood pressure in mmHg.")
+    dose_ug_kg_min: float | None = Field(default=None, ge=0, le=60, description="Dobutamine dose at this stage in μg/kg/min.")
+    atropine_mg: float | None = Field(default=None, ge=0, le=3, description="Cumulative atropine given by this stage, in mg.")
+    lvef_percent: float | None = Field(default=None, ge=5, le=95, description="Left-ventricular ejection fraction in %.")
+    lv_esv_ml: float | None = Field(default=None, gt=0, le=1000, description="Left-ventricular end-systolic volume in mL.")
+    wall_motion: WallMotionScores | None = Field(default=None)
+    perfusion: PerfusionScores | None = Field(default=None)
+    symptoms: str | None = Field(default=None, max_length=2000, description="Symptoms, ECG changes or events at this stage (free text).")
+
+
+class Exercise(_Input):
+    """Exercise test results (treadmill or bicycle)."""
+
+    duration_min: float = Field(ge=0, le=60, description="Exercise time in minutes (Bruce protocol for the Duke score).")
+    max_st_deviation_mm: float = Field(ge=0, le=20, description="Largest ST deviation other than in aVR, in mm.")
+    angina_index: Literal[0, 1, 2] = Field(description="0 none, 1 non-limiting angina, 2 exercise-limiting angina.")
+    mets: float | None = Field(default=None, gt=0, le=30, description="Estimated workload in METs (1 MET = 3.5 mL O2/kg/min).")
+    hr_recovery_1min_bpm: int | None = Field(default=None, ge=-50, le=150, description="Fall in heart rate during the first minute of recovery, in bpm.")
+
+
+class Contrast(_Input):
+    """Ultrasound-enhancing agent and imaging settings."""
+
+    agent: str | None = Field(default=None, max_length=200, description="Generic description of the agent, e.g. lipid-shelled perfluorocarbon microspheres.")
+    administration: Administration = Field(description="infusion or bolus.")
+    imaging_mi: float | None = Field(default=None, gt=0, le=2, description="Mechanical index used for perfusion imaging.")
+    flash_mi: float | None = Field(default=None, gt=0, le=2, description="Mechanical index of the high-MI flash.")
+
+
+class Study(_Input):
+    """A stress-echo study: identification, protocol, and scores per stage."""
+
+    model_config = ConfigDict(
+        extra="forbid",
+        frozen=True,
+        str_strip_whitespace=True,
+        json_schema_extra={"$id": "https://segreport.invalid/schemas/study-1.schema.json"},
+    )
+
+    schema_version: Literal[1] = Field(description="Version of the study-file format.")
+    study: StudyInfo = Field(description="Identification of the study.")
+    patient: Patient = Field(default_factory=Patient, description="Patient details (all optional).")
+    indication: str | None = Field(default=None, max_length=2000, description="Reason for the test (free text).")
+    protocol: Protocol = Field(description="Kind of stress.")
+    segment_model: SegmentModel = Field(default=SegmentModel.SEVENTEEN, description="16, 17 or 18 segments.")
+    wall_motion_scale: Literal[4, 5] = Field(default=4, description="4-point scale (Lang 2015) or the older 5-point scale with 5 = aneurysmal.")
+    territory_map: str | None = Field(default=None, max_length=500, description="standard, left_dominant, or a path to a lab map (YAML) relative to the study file.")
+    stages: dict[Stage, StageData] = Field(min_length=1, description="Stages in protocol order: any of rest, low_dose, peak, recovery.")
+    exercise: Exercise | None = Field(default=None, description="Exercise results (treadmill or bicycle studies).")
+    contrast: Contrast | None = Field(default=None, description="Enhancing agent and imaging settings, when one was used.")
+    perfusion_curves: str | None = Field(default=None, max_length=500, description="Time-intensity curve CSV, relative to the study file.")
+    comments: str | None = Field(default=None, max_length=5000, description="Reader's free-text comments, printed in the report.")
+
+    @model_validator(mode="after")
+    def _scores_fit_model(self) -> Study:
+        problems: list[InitErrorDetails] = []
+        order = [STAGE_ORDER.index(s) for s in self.stages]
+        if order != sorted(order):
+            given = ", ".join(self.stages)
+            problems.append(_problem(("stages",), f"stages must come in protocol order (rest, low_dose, peak, recovery); given {given}", given))
+        count = int(self.segment_model)
+        for stage, data in self.stages.items():
+            for kind in ("wall_motion", "perfusion"):
+                scores: dict[int, int | None] | None = getattr(data, kind)
+                if scores is None:
+                    continue
+                where = ("stages", stage.value, kind)
+                extra = sorted(n for n in scores if n > count)
+                for n in extra:
+                    problems.append(_problem((*where, n), f"segment {n} does not exist in the {count}-segment model", scores[n]))
+                missing = [n for n in range(1, count + 1) if n not in scores]
+                if missing:
+                    problems.append(_problem(where, f"{len(scores)} scores given; the {count}-segment model needs {count} (none for segment {_listing(missing)}; use x for not visualised)", len(scores)))
+                if kind == "wall_motion" and self.wall_motion_scale == 4:
+                    for n, score in scores.items():
+                        if score == 5 and n <= count:
+                            problems.append(_problem((*where, n), "score 5 (aneurysmal) needs wall_motion_scale: 5", score))
+        if problems:
+            raise ValidationError.from_exception_data("Study", problems)
+        return self
+
+    def age_years(self) -> int | None:
+        """Age at the study: ``patient.age_years``, else from the birth date and the study date."""
+        if self.patient.age_years is not None:
+            return self.patient.age_years
+        born = self.patient.birth_date
+        if born is None:
+            return None
+        on = self.study.date
+        return on.year - born.year - ((on.month, on.day) < (born.month, born.day))
+
+    @model_validator(mode="after")
+    def _birth_before_study(self) -> Study:
+        born = self.patient.birth_date
+        if born is not None and born > self.study.date:
+            raise ValidationError.from_exception_data(
+                "Study", [_problem(("patient", "birth_date"), "birth date is after the study date", str(born))]
+            )
+        return self
+
+
+def _problem(loc: tuple[str | int, ...], message: str, value: Any) -> InitErrorDetails:
+    return InitErrorDetails(
+        type=PydanticCustomError("study", "{message}", {"message": message}), loc=loc, input=value
+    )
+
+
+def _listing(numbers: list[int]) -> str:
+    """``[2, 3, 4, 9]`` -> ``"2–4, 9"``."""
+    runs: list[list[int]] = []
+    for n in numbers:
+        if runs and n == runs[-1][-1] + 1:
+            runs[-1].append(n)
+        else:
+            runs.append([n])
+    return ", ".join(f"{r[0]}–{r[-1]}" if len(r) > 2 else ", ".join(map(str, r)) for r in runs)

@@ -1,0 +1,249 @@
+"""Result models: the typed :class:`Analysis` that every renderer and exporter reads.
+
+An Analysis is frozen and complete: it carries everything a report needs (study header, patient,
+haemodynamics, per-segment and per-territory results, conclusions, notes), so renderers never go
+back to the study file. Its JSON form *is* the analysis record (``schemas/record.schema.json``);
+the keys fixed by the interface contract are all here.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from enum import StrEnum
+
+from pydantic import BaseModel, ConfigDict, Field
+
+from reporting.model import Protocol, ReportStatus, Sex, Stage
+from reporting.scoring import IschemiaExtent, PerfusionResponse, WallMotionResponse
+from reporting.segments import Ring, SegmentModel, Territory
+from reporting.settings import HeartRateFormula
+from reporting.stress import DukeRisk
+
+RECORD_SCHEMA_VERSION = 1
+RECORD_SCHEMA_ID = f"https://segreport.invalid/schemas/record-{RECORD_SCHEMA_VERSION}.schema.json"
+
+
+class _Result(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class StudyHeader(_Result):
+    """Identification of the study, as entered."""
+
+    id: str = Field(description="Study id.")
+    date: dt.date = Field(description="Date of the study.")
+    lab: str | None = Field(description="Echo lab.")
+    reader: str | None = Field(description="Reading physician.")
+    sonographer: str | None = Field(description="Sonographer.")
+    referring_physician: str | None = Field(description="Referring doctor.")
+    report_status: ReportStatus = Field(description="preliminary or final.")
+    indication: str | None = Field(description="Reason for the test.")
+    comments: str | None = Field(description="Reader's comments.")
+
+
+class PatientSummary(_Result):
+    """Patient details carried into the report."""
+
+    id: str | None = Field(description="Patient or record number.")
+    name: str | None = Field(description="Patient name.")
+    birth_date: dt.date | None = Field(description="Date of birth.")
+    age_years: int | None = Field(description="Age at the study in whole years (given or derived from the birth date).")
+    sex: Sex | None = Field(description="Sex as recorded.")
+
+
+class TerritoryMapInfo(_Result):
+    """Which territory map the analysis used."""
+
+    name: str = Field(description="Map name.")
+    title: str = Field(description="Human-readable title.")
+    source: str = Field(description="Published source or 'lab-defined'.")
+
+
+class StageHaemodynamics(_Result):
+    """Haemodynamics and LV function at one stage."""
+
+    heart_rate_bpm: int | None = Field(description="Heart rate (bpm).")
+    systolic_bp_mmhg: int | None = Field(description="Systolic pressure (mmHg).")
+    diastolic_bp_mmhg: int | None = Field(description="Diastolic pressure (mmHg).")
+    rate_pressure_product: int | None = Field(description="Heart rate × systolic pressure (bpm·mmHg).")
+    hr_percent_of_predicted: float | None = Field(description="Heart rate as % of the age-predicted maximum.")
+    dose_ug_kg_min: float | None = Field(description="Dobutamine dose (μg/kg/min).")
+    atropine_mg: float | None = Field(description="Cumulative atropine (mg).")
+    lvef_percent: float | None = Field(description="LV ejection fraction (%).")
+    lv_esv_ml: float | None = Field(description="LV end-systolic volume (mL).")
+    symptoms: str | None = Field(description="Symptoms and events (free text).")
+
+
+class SegmentResult(_Result):
+    """One segment's scores and responses."""
+
+    number: int = Field(description="Segment number.")
+    name: str = Field(description="Segment name (Cerqueira 2002).")
+    ring: Ring = Field(description="basal, mid, apical or apex.")
+    territory: Territory = Field(description="Territory under the map used.")
+    shared_supply: list[Territory] = Field(description="Other territories that commonly supply this segment.")
+    wall_motion: dict[Stage, int | None] = Field(description="Wall-motion score per stage; null = not visualised.")
+    perfusion: dict[Stage, int | None] = Field(description="Perfusion score per stage; null = not visualised.")
+    response: WallMotionResponse = Field(description="Wall-motion response to stress.")
+    perfusion_response: PerfusionResponse = Field(description="Perfusion response from rest to peak.")
+
+
+class TerritoryResult(_Result):
+    """Results for one coronary territory."""
+
+    segments: list[int] = Field(description="Segments in the territory.")
+    ischemic_segments: list[int] = Field(description="Segments whose response is ischemic or biphasic.")
+    viable_segments: list[int] = Field(description="Abnormal at rest and improving at low dose or stress.")
+    fixed_segments: list[int] = Field(description="Abnormal at rest and unchanged.")
+    wmsi: dict[Stage, float | None] = Field(description="Mean wall-motion score of the territory's scored segments per stage.")
+    scored_segments: dict[Stage, int] = Field(description="Segments scored per stage.")
+    reversible_perfusion_segments: list[int] = Field(description="Reversible or partially reversible perfusion defects.")
+    fixed_perfusion_segments: list[int] = Field(description="Fixed perfusion defects.")
+    ischemic: bool = Field(description="Ischaemia by wall motion or reversible perfusion defect.")
+
+
+class PerfusionResult(_Result):
+    """Contrast perfusion summary."""
+
+    scored: bool = Field(description="Perfusion was scored at any stage.")
+    defect_extent_percent: dict[Stage, float] = Field(description="Segments scored ≥ 2 ÷ segments scored × 100, per stage.")
+    score_index: dict[Stage, float] = Field(description="Mean perfusion score per stage.")
+    scored_segments: dict[Stage, int] = Field(description="Segments scored per stage.")
+    reversible_segments: list[int] = Field(description="Normal at rest, abnormal at peak.")
+    partially_reversible_segments: list[int] = Field(description="Abnormal at rest and worse at peak.")
+    fixed_segments: list[int] = Field(description="Abnormal at rest and unchanged at peak.")
+
+
+class StressResult(_Result):
+    """Adequacy of stress and exercise indices."""
+
+    age_years: int | None = Field(description="Age used for the targets.")
+    heart_rate_formula: HeartRateFormula = Field(description="Formula of the age-predicted maximum.")
+    age_predicted_max_hr_bpm: float | None = Field(description="Age-predicted maximum heart rate (bpm).")
+    target_hr_bpm: float | None = Field(description="Target heart rate (bpm), a fraction of the predicted maximum.")
+    target_fraction: float = Field(description="The fraction used (0.85 by default).")
+    peak_hr_bpm: int | None = Field(description="Highest heart rate at a stress stage (bpm).")
+    peak_hr_percent_of_predicted: float | None = Field(description="Peak heart rate as % of the predicted maximum.")
+    heart_rate_target_applies: bool = Field(description="False for vasodilator stress, where heart rate is not the end point.")
+    adequate: bool = Field(description="Target heart rate reached (or not rate-dependent stress with a peak stage).")
+    adequacy_note: str = Field(description="Why stress was or was not judged adequate.")
+    rate_pressure_product: dict[Stage, int] = Field(description="Heart rate × systolic pressure per stage.")
+    duke_treadmill_score: float | None = Field(description="Duke treadmill score (Mark 1991); null when not computed.")
+    duke_risk: DukeRisk | None = Field(description="low, intermediate or high; null when not an exercise study.")
+    mets: float | None = Field(description="Estimated workload (METs).")
+
+
+class FindingCode(StrEnum):
+    """High-risk findings."""
+
+    LOW_THRESHOLD_ISCHEMIA = "low_threshold_ischemia"
+    """More than two segments newly abnormal at low dobutamine dose or at low heart rate."""
+    EXTENSIVE_ISCHEMIA = "extensive_ischemia"
+    """Ischaemia in three or more segments."""
+    MULTIVESSEL_ISCHEMIA = "multivessel_ischemia"
+    """Ischaemia in two or more coronary territories."""
+    LOW_RESTING_EF = "low_resting_ef"
+    """Resting LVEF below 35 %."""
+    HIGH_PEAK_WMSI = "high_peak_wmsi"
+    """Peak WMSI above 1.7."""
+    ESV_RISE = "esv_rise"
+    """LV end-systolic volume rises with stress (cavity dilation)."""
+    EF_FALL = "ef_fall"
+    """LVEF falls with stress."""
+    DUKE_HIGH_RISK = "duke_high_risk"
+    """Duke treadmill score in the high-risk band."""
+
+
+class HighRiskFinding(_Result):
+    """A high-risk finding, its evidence and its source."""
+
+    code: FindingCode = Field(description="Kind of finding.")
+    detail: str = Field(description="What was found, with the numbers.")
+    source: str = Field(description="Published source of the criterion.")
+
+
+class DiagnosticStatus(StrEnum):
+    """Overall answer of the study for inducible ischaemia."""
+
+    ISCHEMIA = "ischemia"
+    """Inducible ischaemia shown."""
+    NO_ISCHEMIA = "no_ischemia"
+    """No inducible ischaemia at adequate stress."""
+    NON_DIAGNOSTIC = "non_diagnostic"
+    """No ischaemia shown, but stress was inadequate or peak could not be assessed."""
+
+
+class NoteKind(StrEnum):
+    """Kind of image-quality or protocol note."""
+
+    SUGGEST_CONTRAST = "suggest_contrast"
+    """Contiguous segments not visualised without an enhancing agent."""
+    HIGH_MI_PERFUSION = "high_mi_perfusion"
+    """Perfusion imaging above the low-MI range."""
+    BOLUS_QUANTIFICATION = "bolus_quantification"
+    """Quantitative curves acquired with bolus rather than infusion."""
+    PERFUSION_WITHOUT_CONTRAST = "perfusion_without_contrast"
+    """Perfusion scores entered but no enhancing agent recorded."""
+    NOT_VISUALISED = "not_visualised"
+    """Segments not visualised at a stage."""
+    DUKE_NOT_APPLICABLE = "duke_not_applicable"
+    """Exercise data given for a protocol on which the Duke score is not validated."""
+    AGE_UNKNOWN = "age_unknown"
+    """No age, so heart-rate targets cannot be computed."""
+    VIABILITY = "viability"
+    """Enough biphasic segments to predict recovery of global function."""
+
+
+class Note(_Result):
+    """An image-quality, protocol or interpretation note for the reader."""
+
+    kind: NoteKind = Field(description="Kind of note.")
+    text: str = Field(description="The note.")
+    source: str | None = Field(description="Published source, when the note rests on one.")
+
+
+class Conclusion(_Result):
+    """The answer of the study."""
+
+    ischemia: bool = Field(description="Any segment ischemic or biphasic by wall motion, or a reversible perfusion defect.")
+    status: DiagnosticStatus = Field(description="ischemia, no_ischemia or non_diagnostic.")
+    ischemic_territories: list[Territory] = Field(description="Territories of the ischaemic segments.")
+    ischemic_segment_count: int = Field(description="Segments ischemic or biphasic by wall motion.")
+    ischemia_extent: IschemiaExtent = Field(description="none, mild (1–2) or moderate_severe (≥ 3) (Kataoka 2015).")
+    multivessel: bool = Field(description="Ischaemia in two or more territories.")
+    viable_segments: list[int] = Field(description="Segments biphasic or with sustained improvement.")
+    fixed_segments: list[int] = Field(description="Segments abnormal at rest and unchanged.")
+    akinetic_to_dyskinetic_segments: list[int] = Field(description="Akinesis turning dyskinetic (not ischaemia).")
+    high_risk_findings: list[HighRiskFinding] = Field(description="High-risk findings with sources.")
+
+
+class Analysis(_Result):
+    """Everything computed from one study: the analysis record."""
+
+    model_config = ConfigDict(
+        extra="forbid",
+        frozen=True,
+        json_schema_extra={"$id": RECORD_SCHEMA_ID},
+    )
+
+    schema_version: int = Field(description="Version of the record format.")
+    generator: str = Field(description="Program and version that computed the record.")
+    study: StudyHeader = Field(description="Study identification.")
+    patient: PatientSummary = Field(description="Patient details.")
+    protocol: Protocol = Field(description="Kind of stress.")
+    segment_model: SegmentModel = Field(description="16, 17 or 18 segments.")
+    wall_motion_scale: int = Field(description="Highest wall-motion score of the scale (4 or 5).")
+    territory_map: TerritoryMapInfo = Field(description="Territory map used.")
+    stages: list[Stage] = Field(description="Stages present, in protocol order.")
+    haemodynamics: dict[Stage, StageHaemodynamics] = Field(description="Haemodynamics per stage.")
+    contrast_used: bool = Field(description="An ultrasound-enhancing agent was used.")
+    contrast_agent: str | None = Field(description="Generic description of the agent.")
+    wmsi: dict[Stage, float] = Field(description="Wall-motion score index per stage with scored segments (full precision).")
+    wmsi_scored_segments: dict[Stage, int] = Field(description="Segments that entered the WMSI at each stage.")
+    segments: list[SegmentResult] = Field(description="Per-segment results in segment order.")
+    territories: dict[Territory, TerritoryResult] = Field(description="Per-territory results.")
+    perfusion: PerfusionResult = Field(description="Contrast perfusion summary.")
+    stress: StressResult = Field(description="Stress adequacy and exercise indices.")
+    conclusion: Conclusion = Field(description="Conclusions and high-risk findings.")
+    notes: list[Note] = Field(description="Image-quality, protocol and interpretation notes.")
+    cautions: list[str] = Field(description="Cautions that accompany every report.")

@@ -1,0 +1,158 @@
+"""Scoring rules: wall-motion score index, segment responses, perfusion categories, extent.
+
+Pure functions of scores; no I/O and no knowledge of files. The response rules follow the table of
+Marwick TH, Heart 2003;89:113 and the ASE stress-echo guideline (Pellikka PA et al., JASE 2020);
+akinesis turning dyskinetic is its own finding and never ischaemia (Elhendy A et al., Chest 1996;
+Sozzi FB et al., JASE 2007).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Mapping
+from enum import StrEnum
+
+NORMAL_SCORE = 1
+AKINETIC_SCORE = 3
+
+
+class WallMotionResponse(StrEnum):
+    """How a segment's wall motion behaved from rest through stress."""
+
+    NORMAL = "normal"
+    """Normal at rest and normal (or hyperdynamic) at stress: no ischaemia."""
+    ISCHEMIC = "ischemic"
+    """New or worsening abnormality at stress."""
+    BIPHASIC = "biphasic"
+    """Abnormal at rest, better at low dose, worse again at peak: viable and ischaemic."""
+    SUSTAINED_IMPROVEMENT = "sustained_improvement"
+    """Abnormal at rest and better with stress, staying better: viable, no ischaemia."""
+    FIXED = "fixed"
+    """Abnormal at rest and unchanged with stress: scar or no inducible change."""
+    AKINETIC_TO_DYSKINETIC = "akinetic_to_dyskinetic"
+    """Akinetic (or worse) at rest and more dyskinetic at stress: a mechanical finding, not ischaemia."""
+    NOT_ASSESSABLE = "not_assessable"
+    """Not visualised at rest or at peak (or the stage is missing)."""
+
+
+ISCHEMIC_RESPONSES = frozenset({WallMotionResponse.ISCHEMIC, WallMotionResponse.BIPHASIC})
+VIABLE_RESPONSES = frozenset({WallMotionResponse.BIPHASIC, WallMotionResponse.SUSTAINED_IMPROVEMENT})
+
+
+class PerfusionResponse(StrEnum):
+    """How a segment's contrast perfusion behaved from rest to peak."""
+
+    NORMAL = "normal"
+    """Normal at rest and at peak."""
+    REVERSIBLE = "reversible"
+    """Normal at rest, abnormal at peak: inducible ischaemia."""
+    PARTIALLY_REVERSIBLE = "partially_reversible"
+    """Abnormal at rest and worse at peak: scar with inducible ischaemia around it."""
+    FIXED = "fixed"
+    """Abnormal at rest and unchanged at peak: infarct."""
+    BETTER_AT_STRESS = "better_at_stress"
+    """Abnormal at rest, better at peak: unusual; review for artefact at rest."""
+    NOT_ASSESSABLE = "not_assessable"
+    """Not scored at rest or at peak."""
+
+
+ISCHEMIC_PERFUSION = frozenset({PerfusionResponse.REVERSIBLE, PerfusionResponse.PARTIALLY_REVERSIBLE})
+
+
+class IschemiaExtent(StrEnum):
+    """Extent of inducible wall-motion ischaemia by segment count (Kataoka 2015)."""
+
+    NONE = "none"
+    """No ischaemic segment."""
+    MILD = "mild"
+    """One or two ischaemic segments."""
+    MODERATE_SEVERE = "moderate_severe"
+    """Three or more ischaemic segments."""
+
+
+def score_index(scores: Iterable[int | None]) -> tuple[float | None, int]:
+    """Mean of the scored values and how many there were; ``None`` when nothing was scored.
+
+    This is the wall-motion score index (sum of scores ÷ segments scored, not-visualised segments
+    left out; Lang RM et al., JASE 2015) and, applied to perfusion scores, the perfusion score index.
+    """
+    scored = [s for s in scores if s is not None]
+    if not scored:
+        return None, 0
+    return sum(scored) / len(scored), len(scored)
+
+
+def wall_motion_response(rest: int | None, low_dose: int | None, peak: int | None) -> WallMotionResponse:
+    """The response of one segment (Marwick 2003, table 1).
+
+    ``low_dose`` is ``None`` when the stage was not imaged or the segment not seen there.
+    """
+    if rest is None or peak is None:
+        return WallMotionResponse.NOT_ASSESSABLE
+    if rest == NORMAL_SCORE:
+        stress_scores = [s for s in (low_dose, peak) if s is not None]
+        return WallMotionResponse.ISCHEMIC if max(stress_scores) > rest else WallMotionResponse.NORMAL
+    if low_dose is not None and low_dose < rest:
+        return WallMotionResponse.BIPHASIC if peak > low_dose else WallMotionResponse.SUSTAINED_IMPROVEMENT
+    if peak > rest and rest >= AKINETIC_SCORE:
+        return WallMotionResponse.AKINETIC_TO_DYSKINETIC
+    if peak > rest or (low_dose is not None and low_dose > rest):
+        return WallMotionResponse.ISCHEMIC
+    if peak < rest:
+        return WallMotionResponse.SUSTAINED_IMPROVEMENT
+    return WallMotionResponse.FIXED
+
+
+def perfusion_response(rest: int | None, peak: int | None) -> PerfusionResponse:
+    """The perfusion category of one segment from its rest and peak visual scores."""
+    if rest is None or peak is None:
+        return PerfusionResponse.NOT_ASSESSABLE
+    if rest == NORMAL_SCORE:
+        return PerfusionResponse.REVERSIBLE if peak > rest else PerfusionResponse.NORMAL
+    if peak > rest:
+        return PerfusionResponse.PARTIALLY_REVERSIBLE
+    if peak < rest:
+        return PerfusionResponse.BETTER_AT_STRESS
+    return PerfusionResponse.FIXED
+
+
+def defect_extent_percent(scores: Iterable[int | None]) -> float | None:
+    """Segments with a defect (score ≥ 2) as a percentage of the segments scored."""
+    scored = [s for s in scores if s is not None]
+    if not scored:
+        return None
+    return 100.0 * sum(1 for s in scored if s > NORMAL_SCORE) / len(scored)
+
+
+def ischemia_extent(ischemic_segments: int, moderate_from: int) -> IschemiaExtent:
+    """None, mild (1 to ``moderate_from`` − 1) or moderate–severe (≥ ``moderate_from``)."""
+    if ischemic_segments == 0:
+        return IschemiaExtent.NONE
+    return IschemiaExtent.MODERATE_SEVERE if ischemic_segments >= moderate_from else IschemiaExtent.MILD
+
+
+def newly_abnormal(rest: Mapping[int, int | None], stage: Mapping[int, int | None]) -> list[int]:
+    """Segments worse at ``stage`` than at rest, leaving out akinesis turning dyskinetic."""
+    return sorted(
+        n
+        for n, score in stage.items()
+        if score is not None
+        and rest.get(n) is not None
+        and score > (r := rest[n] or 0)
+        and r < AKINETIC_SCORE
+    )
+
+
+def connected_groups(members: Iterable[int], touching: Mapping[int, frozenset[int]]) -> list[list[int]]:
+    """Groups of ``members`` that touch each other (connected components), largest first."""
+    remaining = set(members)
+    groups: list[list[int]] = []
+    while remaining:
+        stack = [remaining.pop()]
+        group = set(stack)
+        while stack:
+            for other in touching[stack.pop()] & remaining:
+                remaining.discard(other)
+                group.add(other)
+                stack.append(other)
+        groups.append(sorted(group))
+    return sorted(groups, key=lambda g: (-len(g), g))

@@ -1,0 +1,95 @@
+"""The one settings object: every clinical threshold the analysis uses, each with its source.
+
+Defaults come from ``data/thresholds.yaml`` (value and source side by side). A lab overrides any
+subset with a YAML file of plain ``name: value`` pairs; unknown names and wrong types are refused with
+their location. Settings are immutable: pass a different object, never change one in place.
+"""
+
+from __future__ import annotations
+
+from enum import StrEnum
+from functools import cache
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+import yaml
+from pydantic import BaseModel, ConfigDict, Field, ValidationError
+
+from reporting.errors import InputError, InputErrors
+from reporting.model import Protocol
+
+
+class HeartRateFormula(StrEnum):
+    """Formula for the age-predicted maximum heart rate."""
+
+    FOX = "fox"
+    """220 − age (Fox 1971)."""
+    TANAKA = "tanaka"
+    """208 − 0.7 × age (Tanaka 2001)."""
+
+
+class Settings(BaseModel):
+    """Thresholds of the analysis. ``sources()`` gives the citation of each."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    heart_rate_formula: HeartRateFormula = Field(description="Age-predicted maximum heart rate formula.")
+    target_heart_rate_fraction: float = Field(gt=0, le=1, description="Fraction of the age-predicted maximum that makes stress adequate.")
+    dobutamine_low_dose_max_ug_kg_min: float = Field(gt=0, description="Highest dobutamine dose (μg/kg/min) that counts as low dose.")
+    low_heart_rate_bpm: float = Field(gt=0, description="Heart rate (bpm) below which new abnormalities count as low-threshold ischaemia.")
+    low_threshold_abnormal_segments_min: int = Field(ge=1, description="Segments newly abnormal at low dose or low heart rate that make a high-risk finding.")
+    extensive_ischemia_segments_min: int = Field(ge=1, description="Ischaemic segments from which ischaemia is moderate–severe (extensive).")
+    multivessel_territories_min: int = Field(ge=2, description="Ischaemic territories from which the pattern is multivessel.")
+    resting_ef_high_risk_below_percent: float = Field(gt=0, lt=100, description="Resting LVEF (%) below which the finding is high risk.")
+    peak_wmsi_high_risk_above: float = Field(ge=1, description="Peak WMSI above which the finding is high risk.")
+    esv_rise_high_risk_above_ml: float = Field(ge=0, description="Rise of LV end-systolic volume (mL) from rest to peak above which the finding is high risk.")
+    ef_fall_high_risk_above_percent: float = Field(ge=0, description="Fall of LVEF (percentage points) from rest to peak above which the finding is high risk.")
+    duke_low_risk_min: float = Field(description="Duke treadmill score from which risk is low.")
+    duke_high_risk_max: float = Field(description="Duke treadmill score up to which risk is high.")
+    duke_protocols: tuple[Protocol, ...] = Field(description="Protocols for which the Duke treadmill score is computed.")
+    viability_biphasic_segments_min: int = Field(ge=1, description="Biphasic segments from which recovery of global function is likely.")
+    contrast_suggest_contiguous_not_visualised_min: int = Field(ge=2, description="Contiguous non-visualised segments from which an enhancing agent is suggested.")
+    low_mi_max: float = Field(gt=0, description="Highest mechanical index counted as low-MI perfusion imaging.")
+    wmsi_excludes_apex: bool = Field(description="Leave the apical cap (segment 17) out of WMSI, keeping it for perfusion.")
+
+    @staticmethod
+    def sources() -> dict[str, str]:
+        """The published source of each default, by setting name."""
+        return {name: entry["source"] for name, entry in _defaults_file().items()}
+
+
+@cache
+def _defaults_file() -> dict[str, dict[str, Any]]:
+    text = resources.files("reporting.data").joinpath("thresholds.yaml").read_text(encoding="utf-8")
+    data: dict[str, dict[str, Any]] = yaml.safe_load(text)
+    return data
+
+
+@cache
+def default_settings() -> Settings:
+    """The published defaults."""
+    return Settings.model_validate({name: entry["value"] for name, entry in _defaults_file().items()})
+
+
+def load_settings(path: Path | None) -> Settings:
+    """Defaults overridden by the lab settings file at ``path`` (``None``: the defaults)."""
+    if path is None:
+        return default_settings()
+    try:
+        overrides = yaml.safe_load(path.read_text(encoding="utf-8"))
+    except OSError as exc:
+        raise InputError(str(path), f"cannot read settings: {exc.strerror or exc}") from None
+    except (yaml.YAMLError, UnicodeDecodeError) as exc:
+        raise InputError(str(path), f"not a readable YAML settings file ({exc})") from None
+    if overrides is None:
+        return default_settings()
+    if not isinstance(overrides, dict):
+        raise InputError(str(path), "a settings file is a mapping of setting name -> value")
+    merged = default_settings().model_dump() | overrides
+    try:
+        return Settings.model_validate(merged)
+    except ValidationError as exc:
+        raise InputErrors(
+            [InputError(f"{path}: {'.'.join(str(p) for p in e['loc'])}", e["msg"]) for e in exc.errors()]
+        ) from None
