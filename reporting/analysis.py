@@ -15,7 +15,7 @@ from pathlib import Path
 from reporting import scoring, stress
 from reporting.errors import InputError
 from reporting.load import load_study
-from reporting.model import EXERCISE_PROTOCOLS, STRESS_STAGES, Protocol, Stage, Study
+from reporting.model import STRESS_STAGES, Protocol, Stage, Study
 from reporting.results import (
     RECORD_SCHEMA_VERSION,
     Analysis,
@@ -34,8 +34,23 @@ from reporting.results import (
     TerritoryMapInfo,
     TerritoryResult,
 )
-from reporting.scoring import ISCHEMIC_PERFUSION, ISCHEMIC_RESPONSES, VIABLE_RESPONSES, PerfusionResponse, WallMotionResponse
-from reporting.segments import BUILT_IN_MAPS, SegmentModel, Territory, TerritoryMap, adjacency, built_in_map, load_territory_map, segments_of
+from reporting.scoring import (
+    ISCHEMIC_PERFUSION,
+    ISCHEMIC_RESPONSES,
+    VIABLE_RESPONSES,
+    PerfusionResponse,
+    WallMotionResponse,
+)
+from reporting.segments import (
+    BUILT_IN_MAPS,
+    SegmentModel,
+    Territory,
+    TerritoryMap,
+    adjacency,
+    built_in_map,
+    load_territory_map,
+    segments_of,
+)
 from reporting.settings import Settings, default_settings, load_settings
 
 log = logging.getLogger(__name__)
@@ -59,10 +74,16 @@ def analyze_file(
     path = Path(path)
     study = load_study(path)
     settings = load_settings(settings_path)
-    return analyze(study, settings=settings, territory_map=resolve_territory_map(study, path.parent, territory_map))
+    return analyze(
+        study,
+        settings=settings,
+        territory_map=resolve_territory_map(study, path.parent, territory_map),
+    )
 
 
-def resolve_territory_map(study: Study, base_dir: Path, override: str | Path | None = None) -> TerritoryMap:
+def resolve_territory_map(
+    study: Study, base_dir: Path, override: str | Path | None = None
+) -> TerritoryMap:
     """The map named by ``override`` or by the study: a built-in name or a YAML file path."""
     choice = override if override is not None else study.territory_map
     if choice is None:
@@ -73,16 +94,22 @@ def resolve_territory_map(study: Study, base_dir: Path, override: str | Path | N
     return load_territory_map(where)
 
 
-def analyze(study: Study, *, settings: Settings | None = None, territory_map: TerritoryMap | None = None) -> Analysis:
+def analyze(
+    study: Study, *, settings: Settings | None = None, territory_map: TerritoryMap | None = None
+) -> Analysis:
     """Compute the full analysis of ``study``."""
     settings = settings or default_settings()
     if territory_map is None:
         if study.territory_map not in (None, *BUILT_IN_MAPS):
-            raise InputError("territory_map", "a lab-defined map must be loaded first (use analyze_file)")
+            raise InputError(
+                "territory_map", "a lab-defined map must be loaded first (use analyze_file)"
+            )
         territory_map = built_in_map(study.territory_map or "standard")
     model = study.segment_model
     if not territory_map.supports(model):
-        raise InputError("territory_map", f"map {territory_map.name!r} has no {int(model)}-segment assignment")
+        raise InputError(
+            "territory_map", f"map {territory_map.name!r} has no {int(model)}-segment assignment"
+        )
 
     wall = _scores_by_stage(study, "wall_motion")
     perf = _scores_by_stage(study, "perfusion")
@@ -101,7 +128,9 @@ def analyze(study: Study, *, settings: Settings | None = None, territory_map: Te
     stress_result, stress_notes = _stress_result(study, settings)
     conclusion = _conclusion(study, settings, segments, territories, wall, wmsi, stress_result)
     notes = stress_notes + _notes(study, settings, segments, wall, perf, conclusion)
-    log.debug("analysed %s: %d segments, status %s", study.study.id, len(segments), conclusion.status)
+    log.debug(
+        "analysed %s: %d segments, status %s", study.study.id, len(segments), conclusion.status
+    )
 
     return Analysis(
         schema_version=RECORD_SCHEMA_VERSION,
@@ -127,7 +156,9 @@ def analyze(study: Study, *, settings: Settings | None = None, territory_map: Te
         protocol=study.protocol,
         segment_model=model,
         wall_motion_scale=study.wall_motion_scale,
-        territory_map=TerritoryMapInfo(name=territory_map.name, title=territory_map.title, source=territory_map.source),
+        territory_map=TerritoryMapInfo(
+            name=territory_map.name, title=territory_map.title, source=territory_map.source
+        ),
         stages=list(study.stages),
         haemodynamics=_haemodynamics(study, stress_result),
         contrast_used=study.contrast is not None,
@@ -167,7 +198,10 @@ def _wmsi_segments(model: SegmentModel, settings: Settings) -> list[int]:
 
 
 def _segment_results(
-    study: Study, territory_map: TerritoryMap, wall: dict[Stage, dict[int, int | None]], perf: dict[Stage, dict[int, int | None]]
+    study: Study,
+    territory_map: TerritoryMap,
+    wall: dict[Stage, dict[int, int | None]],
+    perf: dict[Stage, dict[int, int | None]],
 ) -> list[SegmentResult]:
     def at(scores: dict[Stage, dict[int, int | None]], stage: Stage, n: int) -> int | None:
         return scores[stage][n] if stage in scores else None
@@ -186,22 +220,31 @@ def _segment_results(
                 shared_supply=others,
                 wall_motion={stage: scores[n] for stage, scores in wall.items()},
                 perfusion={stage: scores[n] for stage, scores in perf.items()},
-                response=scoring.wall_motion_response(at(wall, Stage.REST, n), at(wall, Stage.LOW_DOSE, n), at(wall, Stage.PEAK, n)),
-                perfusion_response=scoring.perfusion_response(at(perf, Stage.REST, n), at(perf, Stage.PEAK, n)),
+                response=scoring.wall_motion_response(
+                    at(wall, Stage.REST, n), at(wall, Stage.LOW_DOSE, n), at(wall, Stage.PEAK, n)
+                ),
+                perfusion_response=scoring.perfusion_response(
+                    at(perf, Stage.REST, n), at(perf, Stage.PEAK, n)
+                ),
             )
         )
     return results
 
 
 def _territory_result(
-    territory: Territory, segments: list[SegmentResult], wall: dict[Stage, dict[int, int | None]], wmsi_numbers: list[int]
+    territory: Territory,
+    segments: list[SegmentResult],
+    wall: dict[Stage, dict[int, int | None]],
+    wmsi_numbers: list[int],
 ) -> TerritoryResult:
     mine = [s for s in segments if s.territory is territory]
     numbers = [s.number for s in mine]
     wmsi: dict[Stage, float | None] = {}
     counts: dict[Stage, int] = {}
     for stage, scores in wall.items():
-        wmsi[stage], counts[stage] = scoring.score_index(scores[n] for n in numbers if n in wmsi_numbers)
+        wmsi[stage], counts[stage] = scoring.score_index(
+            scores[n] for n in numbers if n in wmsi_numbers
+        )
     ischemic = [s.number for s in mine if s.response in ISCHEMIC_RESPONSES]
     reversible = [s.number for s in mine if s.perfusion_response in ISCHEMIC_PERFUSION]
     return TerritoryResult(
@@ -212,12 +255,16 @@ def _territory_result(
         wmsi=wmsi,
         scored_segments=counts,
         reversible_perfusion_segments=reversible,
-        fixed_perfusion_segments=[s.number for s in mine if s.perfusion_response is PerfusionResponse.FIXED],
+        fixed_perfusion_segments=[
+            s.number for s in mine if s.perfusion_response is PerfusionResponse.FIXED
+        ],
         ischemic=bool(ischemic or reversible),
     )
 
 
-def _perfusion_result(segments: list[SegmentResult], perf: dict[Stage, dict[int, int | None]]) -> PerfusionResult:
+def _perfusion_result(
+    segments: list[SegmentResult], perf: dict[Stage, dict[int, int | None]]
+) -> PerfusionResult:
     extent: dict[Stage, float] = {}
     index: dict[Stage, float] = {}
     counts: dict[Stage, int] = {}
@@ -245,19 +292,31 @@ def _stress_result(study: Study, settings: Settings) -> tuple[StressResult, list
     notes: list[Note] = []
     sources = Settings.sources()
     age = study.age_years()
-    predicted = stress.age_predicted_max_hr(age, settings.heart_rate_formula) if age is not None else None
+    predicted = (
+        stress.age_predicted_max_hr(age, settings.heart_rate_formula) if age is not None else None
+    )
     target = predicted * settings.target_heart_rate_fraction if predicted is not None else None
-    stress_rates = [d.heart_rate_bpm for s, d in study.stages.items() if s in STRESS_STAGES and d.heart_rate_bpm is not None]
+    stress_rates = [
+        d.heart_rate_bpm
+        for s, d in study.stages.items()
+        if s in STRESS_STAGES and d.heart_rate_bpm is not None
+    ]
     peak_hr = max(stress_rates) if stress_rates else None
     percent = 100 * peak_hr / predicted if peak_hr is not None and predicted else None
     rate_dependent = study.protocol is not Protocol.VASODILATOR
 
     if not rate_dependent:
         adequate = Stage.PEAK in study.stages
-        why = "Vasodilator stress: the heart-rate target does not apply." if adequate else "No peak stage was recorded."
+        why = (
+            "Vasodilator stress: the heart-rate target does not apply."
+            if adequate
+            else "No peak stage was recorded."
+        )
     elif age is None:
         adequate = False
-        why = "Age unknown: the target heart rate cannot be computed, so adequacy is not established."
+        why = (
+            "Age unknown: the target heart rate cannot be computed, so adequacy is not established."
+        )
         notes.append(Note(kind=NoteKind.AGE_UNKNOWN, text=why, source=None))
     elif peak_hr is None or target is None:
         adequate = False
@@ -279,7 +338,9 @@ def _stress_result(study: Study, settings: Settings) -> tuple[StressResult, list
     if study.exercise is not None:
         if study.protocol in settings.duke_protocols:
             ex = study.exercise
-            duke = stress.duke_treadmill_score(ex.duration_min, ex.max_st_deviation_mm, ex.angina_index)
+            duke = stress.duke_treadmill_score(
+                ex.duration_min, ex.max_st_deviation_mm, ex.angina_index
+            )
             risk = stress.duke_risk(duke, settings.duke_low_risk_min, settings.duke_high_risk_max)
         else:
             notes.append(
@@ -316,7 +377,9 @@ def _haemodynamics(study: Study, result: StressResult) -> dict[Stage, StageHaemo
             systolic_bp_mmhg=d.systolic_bp_mmhg,
             diastolic_bp_mmhg=d.diastolic_bp_mmhg,
             rate_pressure_product=result.rate_pressure_product.get(stage),
-            hr_percent_of_predicted=100 * d.heart_rate_bpm / predicted if d.heart_rate_bpm is not None and predicted else None,
+            hr_percent_of_predicted=100 * d.heart_rate_bpm / predicted
+            if d.heart_rate_bpm is not None and predicted
+            else None,
             dose_ug_kg_min=d.dose_ug_kg_min,
             atropine_mg=d.atropine_mg,
             lvef_percent=d.lvef_percent,
@@ -354,12 +417,18 @@ def _conclusion(
         status=status,
         ischemic_territories=ischemic_territories,
         ischemic_segment_count=len(wm_ischemic),
-        ischemia_extent=scoring.ischemia_extent(len(wm_ischemic), settings.extensive_ischemia_segments_min),
+        ischemia_extent=scoring.ischemia_extent(
+            len(wm_ischemic), settings.extensive_ischemia_segments_min
+        ),
         multivessel=multivessel,
         viable_segments=[s.number for s in segments if s.response in VIABLE_RESPONSES],
         fixed_segments=[s.number for s in segments if s.response is WallMotionResponse.FIXED],
-        akinetic_to_dyskinetic_segments=[s.number for s in segments if s.response is WallMotionResponse.AKINETIC_TO_DYSKINETIC],
-        high_risk_findings=_high_risk(study, settings, wm_ischemic, ischemic_territories, wall, wmsi, stress_result),
+        akinetic_to_dyskinetic_segments=[
+            s.number for s in segments if s.response is WallMotionResponse.AKINETIC_TO_DYSKINETIC
+        ],
+        high_risk_findings=_high_risk(
+            study, settings, wm_ischemic, ischemic_territories, wall, wmsi, stress_result
+        ),
     )
 
 
@@ -387,11 +456,19 @@ def _high_risk(
             low_dose = (
                 stage is Stage.LOW_DOSE
                 and study.protocol is Protocol.DOBUTAMINE
-                and (data.dose_ug_kg_min is None or data.dose_ug_kg_min <= settings.dobutamine_low_dose_max_ug_kg_min)
+                and (
+                    data.dose_ug_kg_min is None
+                    or data.dose_ug_kg_min <= settings.dobutamine_low_dose_max_ug_kg_min
+                )
             )
-            low_rate = data.heart_rate_bpm is not None and data.heart_rate_bpm < settings.low_heart_rate_bpm
+            low_rate = (
+                data.heart_rate_bpm is not None
+                and data.heart_rate_bpm < settings.low_heart_rate_bpm
+            )
             worse = scoring.newly_abnormal(rest, wall[stage])
-            if (low_dose or low_rate) and len(worse) >= settings.low_threshold_abnormal_segments_min:
+            if (low_dose or low_rate) and len(
+                worse
+            ) >= settings.low_threshold_abnormal_segments_min:
                 when = []
                 if data.dose_ug_kg_min is not None:
                     when.append(f"dobutamine {data.dose_ug_kg_min:g} μg/kg/min")
@@ -405,7 +482,11 @@ def _high_risk(
                 )
                 break
     if len(wm_ischemic) >= settings.extensive_ischemia_segments_min:
-        add(FindingCode.EXTENSIVE_ISCHEMIA, f"Ischaemia in {len(wm_ischemic)} segments: {_nums(wm_ischemic)}.", "extensive_ischemia_segments_min")
+        add(
+            FindingCode.EXTENSIVE_ISCHEMIA,
+            f"Ischaemia in {len(wm_ischemic)} segments: {_nums(wm_ischemic)}.",
+            "extensive_ischemia_segments_min",
+        )
     if len(ischemic_territories) >= settings.multivessel_territories_min:
         add(
             FindingCode.MULTIVESSEL_ISCHEMIA,
@@ -414,21 +495,48 @@ def _high_risk(
         )
     rest_data = study.stages.get(Stage.REST)
     peak_data = study.stages.get(Stage.PEAK)
-    if rest_data and rest_data.lvef_percent is not None and rest_data.lvef_percent < settings.resting_ef_high_risk_below_percent:
-        add(FindingCode.LOW_RESTING_EF, f"Resting LVEF {rest_data.lvef_percent:g} %.", "resting_ef_high_risk_below_percent")
+    if (
+        rest_data
+        and rest_data.lvef_percent is not None
+        and rest_data.lvef_percent < settings.resting_ef_high_risk_below_percent
+    ):
+        add(
+            FindingCode.LOW_RESTING_EF,
+            f"Resting LVEF {rest_data.lvef_percent:g} %.",
+            "resting_ef_high_risk_below_percent",
+        )
     if Stage.PEAK in wmsi and wmsi[Stage.PEAK] > settings.peak_wmsi_high_risk_above:
-        add(FindingCode.HIGH_PEAK_WMSI, f"Peak WMSI {wmsi[Stage.PEAK]:.2f}.", "peak_wmsi_high_risk_above")
+        add(
+            FindingCode.HIGH_PEAK_WMSI,
+            f"Peak WMSI {wmsi[Stage.PEAK]:.2f}.",
+            "peak_wmsi_high_risk_above",
+        )
     if rest_data and peak_data:
         if rest_data.lv_esv_ml is not None and peak_data.lv_esv_ml is not None:
             rise = peak_data.lv_esv_ml - rest_data.lv_esv_ml
             if rise > settings.esv_rise_high_risk_above_ml:
-                add(FindingCode.ESV_RISE, f"LV end-systolic volume rose from {rest_data.lv_esv_ml:g} to {peak_data.lv_esv_ml:g} mL.", "esv_rise_high_risk_above_ml")
+                add(
+                    FindingCode.ESV_RISE,
+                    f"LV end-systolic volume rose from {rest_data.lv_esv_ml:g} to {peak_data.lv_esv_ml:g} mL.",
+                    "esv_rise_high_risk_above_ml",
+                )
         if rest_data.lvef_percent is not None and peak_data.lvef_percent is not None:
             fall = rest_data.lvef_percent - peak_data.lvef_percent
             if fall > settings.ef_fall_high_risk_above_percent:
-                add(FindingCode.EF_FALL, f"LVEF fell from {rest_data.lvef_percent:g} % to {peak_data.lvef_percent:g} %.", "ef_fall_high_risk_above_percent")
-    if stress_result.duke_risk is stress.DukeRisk.HIGH and stress_result.duke_treadmill_score is not None:
-        add(FindingCode.DUKE_HIGH_RISK, f"Duke treadmill score {stress_result.duke_treadmill_score:g}.", "duke_high_risk_max")
+                add(
+                    FindingCode.EF_FALL,
+                    f"LVEF fell from {rest_data.lvef_percent:g} % to {peak_data.lvef_percent:g} %.",
+                    "ef_fall_high_risk_above_percent",
+                )
+    if (
+        stress_result.duke_risk is stress.DukeRisk.HIGH
+        and stress_result.duke_treadmill_score is not None
+    ):
+        add(
+            FindingCode.DUKE_HIGH_RISK,
+            f"Duke treadmill score {stress_result.duke_treadmill_score:g}.",
+            "duke_high_risk_max",
+        )
     return found
 
 
@@ -449,7 +557,11 @@ def _notes(
         if not unseen:
             continue
         notes.append(
-            Note(kind=NoteKind.NOT_VISUALISED, text=f"Not visualised at {_stage_text(stage)}: segments {_nums(unseen)}.", source=None)
+            Note(
+                kind=NoteKind.NOT_VISUALISED,
+                text=f"Not visualised at {_stage_text(stage)}: segments {_nums(unseen)}.",
+                source=None,
+            )
         )
         groups = scoring.connected_groups(unseen, touching)
         if groups and len(groups[0]) >= settings.contrast_suggest_contiguous_not_visualised_min:
@@ -458,7 +570,8 @@ def _notes(
         notes.append(
             Note(
                 kind=NoteKind.SUGGEST_CONTRAST,
-                text="Contiguous segments were not visualised at " + "; ".join(suggest_at)
+                text="Contiguous segments were not visualised at "
+                + "; ".join(suggest_at)
                 + ": an ultrasound-enhancing agent is suggested for border definition.",
                 source=src["contrast_suggest_contiguous_not_visualised_min"],
             )
@@ -471,7 +584,12 @@ def _notes(
                 source=None,
             )
         )
-    if perf and study.contrast and study.contrast.imaging_mi is not None and study.contrast.imaging_mi > settings.low_mi_max:
+    if (
+        perf
+        and study.contrast
+        and study.contrast.imaging_mi is not None
+        and study.contrast.imaging_mi > settings.low_mi_max
+    ):
         notes.append(
             Note(
                 kind=NoteKind.HIGH_MI_PERFUSION,

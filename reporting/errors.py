@@ -36,7 +36,9 @@ class InputErrors(ReportingError, ValueError):
 
     def prefixed(self, prefix: str) -> InputErrors:
         """The same problems with ``prefix`` (usually a file name) put before each location."""
-        return InputErrors([InputError(_join(prefix, p.location), p.problem) for p in self.problems])
+        return InputErrors(
+            [InputError(_join(prefix, p.location), p.problem) for p in self.problems]
+        )
 
 
 def problems_of(error: ReportingError) -> tuple[InputError, ...] | tuple[ReportingError, ...]:

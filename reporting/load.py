@@ -32,18 +32,23 @@ def load_study(path: Path | str) -> Study:
 def study_from_data(data: Any, *, source: str = "study") -> Study:
     """Validate already-parsed data; problems are located inside ``source``."""
     if not isinstance(data, dict):
-        raise InputError(source, "the study file must hold a mapping (schema_version, study, protocol, stages, …)")
+        raise InputError(
+            source,
+            "the study file must hold a mapping (schema_version, study, protocol, stages, …)",
+        )
     try:
         return Study.model_validate(data)
     except ValidationError as exc:
-        raise InputErrors([_located(e, source) for e in exc.errors()]) from None
+        raise InputErrors([_located(dict(e), source) for e in exc.errors()]) from None
 
 
 def read_document(path: Path) -> Any:
     """Parse a YAML or JSON file safely, refusing aliases and duplicate keys."""
     where = str(path)
     if path.suffix.lower() not in STUDY_SUFFIXES:
-        raise InputError(where, f"unknown file type {path.suffix or '(none)'!r}; use .yaml, .yml or .json")
+        raise InputError(
+            where, f"unknown file type {path.suffix or '(none)'!r}; use .yaml, .yml or .json"
+        )
     try:
         raw = path.read_bytes()
     except IsADirectoryError:
@@ -51,7 +56,9 @@ def read_document(path: Path) -> Any:
     except OSError as exc:
         raise InputError(where, f"cannot read: {exc.strerror or exc}") from None
     if len(raw) > MAX_STUDY_BYTES:
-        raise InputError(where, f"file is {len(raw):,} bytes; a study file is at most {MAX_STUDY_BYTES:,}")
+        raise InputError(
+            where, f"file is {len(raw):,} bytes; a study file is at most {MAX_STUDY_BYTES:,}"
+        )
     if not raw.strip():
         raise InputError(where, "file is empty")
     if b"\x00" in raw:
@@ -77,7 +84,9 @@ def _parse_json(text: str, where: str) -> Any:
     try:
         return json.loads(text, object_pairs_hook=no_duplicates)
     except json.JSONDecodeError as exc:
-        raise InputError(f"{where}: line {exc.lineno}, column {exc.colno}", f"invalid JSON: {exc.msg}") from None
+        raise InputError(
+            f"{where}: line {exc.lineno}, column {exc.colno}", f"invalid JSON: {exc.msg}"
+        ) from None
 
 
 class _StrictLoader(yaml.SafeLoader):
@@ -85,7 +94,9 @@ class _StrictLoader(yaml.SafeLoader):
 
 
 def _no_alias(loader: _StrictLoader, node: yaml.Node) -> Any:
-    raise yaml.constructor.ConstructorError(None, None, "anchors and aliases are not allowed in study files", node.start_mark)
+    raise yaml.constructor.ConstructorError(
+        None, None, "anchors and aliases are not allowed in study files", node.start_mark
+    )
 
 
 def _mapping(loader: _StrictLoader, node: yaml.MappingNode, deep: bool = False) -> dict[Any, Any]:
@@ -96,9 +107,13 @@ def _mapping(loader: _StrictLoader, node: yaml.MappingNode, deep: bool = False) 
         try:
             hash(key)
         except TypeError:
-            raise yaml.constructor.ConstructorError(None, None, "a mapping key must be a plain value", key_node.start_mark) from None
+            raise yaml.constructor.ConstructorError(
+                None, None, "a mapping key must be a plain value", key_node.start_mark
+            ) from None
         if key in out:
-            raise yaml.constructor.ConstructorError(None, None, f"key {key!r} appears twice in one mapping", key_node.start_mark)
+            raise yaml.constructor.ConstructorError(
+                None, None, f"key {key!r} appears twice in one mapping", key_node.start_mark
+            )
         out[key] = loader.construct_object(value_node, deep=True)
     return out
 
@@ -107,16 +122,18 @@ _StrictLoader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _m
 
 
 class _AliasRefusingComposer(_StrictLoader):
-    def compose_node(self, parent: Any, index: Any) -> Any:  # noqa: D102 - PyYAML hook
+    def compose_node(self, parent: Any, index: Any) -> Any:
         if self.check_event(yaml.events.AliasEvent):
-            event = self.peek_event()
-            raise yaml.composer.ComposerError(None, None, "anchors and aliases are not allowed in study files", event.start_mark)
+            event = self.peek_event()  # type: ignore[no-untyped-call]
+            raise yaml.composer.ComposerError(
+                None, None, "anchors and aliases are not allowed in study files", event.start_mark
+            )
         return super().compose_node(parent, index)
 
 
 def _parse_yaml(text: str, where: str) -> Any:
     try:
-        return yaml.load(text, Loader=_AliasRefusingComposer)  # noqa: S506 - a SafeLoader subclass
+        return yaml.load(text, Loader=_AliasRefusingComposer)
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark
         at = f"{where}: line {mark.line + 1}, column {mark.column + 1}" if mark else where
@@ -147,20 +164,23 @@ def _located(error: dict[str, Any], source: str) -> InputError:
     elif "[key]" in loc:
         problem = _key_problem(loc, problem)
         loc = loc[: loc.index("[key]")]
-    elif kind in ("less_than_equal", "greater_than_equal", "less_than", "greater_than") and segment is not None:
+    elif (
+        kind in ("less_than_equal", "greater_than_equal", "less_than", "greater_than")
+        and segment is not None
+    ):
         name = _SCORE_KINDS[str(loc[2])]
         problem = f"{name} score {error['input']!r} is out of range ({_score_range(str(loc[2]))})"
     elif kind.startswith("int_") and segment is not None:
-        problem = f"score {error['input']!r} is not a whole number ({_score_range(str(loc[2]))}, or x)"
+        problem = (
+            f"score {error['input']!r} is not a whole number ({_score_range(str(loc[2]))}, or x)"
+        )
     elif kind in ("int_parsing", "float_parsing", "int_type", "float_type"):
         problem = f"{error['input']!r} is not a number"
     elif kind == "int_from_float":
         problem = f"{error['input']!r} is not a whole number"
     elif kind in ("date_from_datetime_parsing", "date_parsing", "date_type"):
         problem = f"{error['input']!r} is not a date (use YYYY-MM-DD)"
-    elif kind == "enum":
-        problem = f"{error['input']!r} is not allowed; {problem[0].lower()}{problem[1:]}"
-    elif kind == "literal_error":
+    elif kind == "enum" or kind == "literal_error":
         problem = f"{error['input']!r} is not allowed; {problem[0].lower()}{problem[1:]}"
     if segment is not None and not problem.startswith("segment"):
         problem = f"segment {segment}: {problem}"

@@ -9,8 +9,8 @@ name. Each field's ``description`` becomes the published JSON Schema of the stud
 
 from __future__ import annotations
 
-import re
 import datetime as dt
+import re
 from enum import StrEnum
 from typing import Annotated, Any, Literal
 
@@ -133,8 +133,14 @@ def _parse_scores(value: Any) -> Any:
         for key, score in value.items():
             number = _segment_key(key)
             if number in seen:
-                raise PydanticCustomError("duplicate_segment", "segment {n} is scored twice", {"n": number})
-            seen[number] = None if isinstance(score, str) and score.strip().lower() == NOT_VISUALISED else score
+                raise PydanticCustomError(
+                    "duplicate_segment", "segment {n} is scored twice", {"n": number}
+                )
+            seen[number] = (
+                None
+                if isinstance(score, str) and score.strip().lower() == NOT_VISUALISED
+                else score
+            )
         return seen
     return value
 
@@ -146,17 +152,30 @@ def _segment_key(key: Any) -> Any:
 
 
 SegmentNumber = Annotated[int, Field(ge=1, le=18)]
-WallMotionScore = Annotated[int, Field(ge=1, le=5, description="1 normal, 2 hypokinetic, 3 akinetic, 4 dyskinetic, 5 aneurysmal (5-point scale only)")]
-PerfusionScore = Annotated[int, Field(ge=1, le=3, description="1 normal, 2 reduced or delayed, 3 absent")]
+WallMotionScore = Annotated[
+    int,
+    Field(
+        ge=1,
+        le=5,
+        description="1 normal, 2 hypokinetic, 3 akinetic, 4 dyskinetic, 5 aneurysmal (5-point scale only)",
+    ),
+]
+PerfusionScore = Annotated[
+    int, Field(ge=1, le=3, description="1 normal, 2 reduced or delayed, 3 absent")
+]
 WallMotionScores = Annotated[
     dict[SegmentNumber, WallMotionScore | None],
     BeforeValidator(_parse_scores),
-    Field(description="Segment -> wall-motion score; null (or x) = not visualised. Input may be a string with one character per segment."),
+    Field(
+        description="Segment -> wall-motion score; null (or x) = not visualised. Input may be a string with one character per segment."
+    ),
 ]
 PerfusionScores = Annotated[
     dict[SegmentNumber, PerfusionScore | None],
     BeforeValidator(_parse_scores),
-    Field(description="Segment -> perfusion score; null (or x) = not visualised. Input may be a string with one character per segment."),
+    Field(
+        description="Segment -> perfusion score; null (or x) = not visualised. Input may be a string with one character per segment."
+    ),
 ]
 
 
@@ -167,13 +186,22 @@ class _Input(BaseModel):
 class StudyInfo(_Input):
     """Identification of the study."""
 
-    id: SafeId = Field(description="Study id: 1–64 letters, digits, '.', '_' or '-'; used in output file names.")
+    id: SafeId = Field(
+        description="Study id: 1–64 letters, digits, '.', '_' or '-'; used in output file names."
+    )
     date: dt.date = Field(description="Date of the study (ISO 8601).")
     lab: str | None = Field(default=None, max_length=200, description="Name of the echo lab.")
     reader: str | None = Field(default=None, max_length=200, description="Reading physician.")
-    sonographer: str | None = Field(default=None, max_length=200, description="Sonographer who acquired the study.")
-    referring_physician: str | None = Field(default=None, max_length=200, description="Referring doctor.")
-    report_status: ReportStatus = Field(default=ReportStatus.PRELIMINARY, description="preliminary until the reader signs; then final.")
+    sonographer: str | None = Field(
+        default=None, max_length=200, description="Sonographer who acquired the study."
+    )
+    referring_physician: str | None = Field(
+        default=None, max_length=200, description="Referring doctor."
+    )
+    report_status: ReportStatus = Field(
+        default=ReportStatus.PRELIMINARY,
+        description="preliminary until the reader signs; then final.",
+    )
 
 
 class Patient(_Input):
@@ -182,7 +210,9 @@ class Patient(_Input):
     id: SafeId | None = Field(default=None, description="Patient or record number.")
     name: str | None = Field(default=None, max_length=200, description="Patient name.")
     birth_date: dt.date | None = Field(default=None, description="Date of birth (ISO 8601).")
-    age_years: int | None = Field(default=None, ge=0, le=120, description="Age in whole years at the study.")
+    age_years: int | None = Field(
+        default=None, ge=0, le=120, description="Age in whole years at the study."
+    )
     sex: Sex | None = Field(default=None, description="Sex as recorded.")
     height_cm: float | None = Field(default=None, gt=30, lt=260, description="Height in cm.")
     weight_kg: float | None = Field(default=None, gt=1, lt=400, description="Weight in kg.")
@@ -191,35 +221,77 @@ class Patient(_Input):
 class StageData(_Input):
     """What was measured and scored at one stage."""
 
-    heart_rate_bpm: int | None = Field(default=None, ge=20, le=260, description="Heart rate in beats per minute.")
-    systolic_bp_mmhg: int | None = Field(default=None, ge=40, le=300, description="Systolic blood pressure in mmHg.")
-    diastolic_bp_mmhg: int | None = Field(default=None, ge=20, le=200, description="Diastolic blood pressure in mmHg.")
-    dose_ug_kg_min: float | None = Field(default=None, ge=0, le=60, description="Dobutamine dose at this stage in μg/kg/min.")
-    atropine_mg: float | None = Field(default=None, ge=0, le=3, description="Cumulative atropine given by this stage, in mg.")
-    lvef_percent: float | None = Field(default=None, ge=5, le=95, description="Left-ventricular ejection fraction in %.")
-    lv_esv_ml: float | None = Field(default=None, gt=0, le=1000, description="Left-ventricular end-systolic volume in mL.")
+    heart_rate_bpm: int | None = Field(
+        default=None, ge=20, le=260, description="Heart rate in beats per minute."
+    )
+    systolic_bp_mmhg: int | None = Field(
+        default=None, ge=40, le=300, description="Systolic blood pressure in mmHg."
+    )
+    diastolic_bp_mmhg: int | None = Field(
+        default=None, ge=20, le=200, description="Diastolic blood pressure in mmHg."
+    )
+    dose_ug_kg_min: float | None = Field(
+        default=None, ge=0, le=60, description="Dobutamine dose at this stage in μg/kg/min."
+    )
+    atropine_mg: float | None = Field(
+        default=None, ge=0, le=3, description="Cumulative atropine given by this stage, in mg."
+    )
+    lvef_percent: float | None = Field(
+        default=None, ge=5, le=95, description="Left-ventricular ejection fraction in %."
+    )
+    lv_esv_ml: float | None = Field(
+        default=None, gt=0, le=1000, description="Left-ventricular end-systolic volume in mL."
+    )
     wall_motion: WallMotionScores | None = Field(default=None)
     perfusion: PerfusionScores | None = Field(default=None)
-    symptoms: str | None = Field(default=None, max_length=2000, description="Symptoms, ECG changes or events at this stage (free text).")
+    symptoms: str | None = Field(
+        default=None,
+        max_length=2000,
+        description="Symptoms, ECG changes or events at this stage (free text).",
+    )
 
 
 class Exercise(_Input):
     """Exercise test results (treadmill or bicycle)."""
 
-    duration_min: float = Field(ge=0, le=60, description="Exercise time in minutes (Bruce protocol for the Duke score).")
-    max_st_deviation_mm: float = Field(ge=0, le=20, description="Largest ST deviation other than in aVR, in mm.")
-    angina_index: Literal[0, 1, 2] = Field(description="0 none, 1 non-limiting angina, 2 exercise-limiting angina.")
-    mets: float | None = Field(default=None, gt=0, le=30, description="Estimated workload in METs (1 MET = 3.5 mL O2/kg/min).")
-    hr_recovery_1min_bpm: int | None = Field(default=None, ge=-50, le=150, description="Fall in heart rate during the first minute of recovery, in bpm.")
+    duration_min: float = Field(
+        ge=0, le=60, description="Exercise time in minutes (Bruce protocol for the Duke score)."
+    )
+    max_st_deviation_mm: float = Field(
+        ge=0, le=20, description="Largest ST deviation other than in aVR, in mm."
+    )
+    angina_index: Literal[0, 1, 2] = Field(
+        description="0 none, 1 non-limiting angina, 2 exercise-limiting angina."
+    )
+    mets: float | None = Field(
+        default=None,
+        gt=0,
+        le=30,
+        description="Estimated workload in METs (1 MET = 3.5 mL O2/kg/min).",
+    )
+    hr_recovery_1min_bpm: int | None = Field(
+        default=None,
+        ge=-50,
+        le=150,
+        description="Fall in heart rate during the first minute of recovery, in bpm.",
+    )
 
 
 class Contrast(_Input):
     """Ultrasound-enhancing agent and imaging settings."""
 
-    agent: str | None = Field(default=None, max_length=200, description="Generic description of the agent, e.g. lipid-shelled perfluorocarbon microspheres.")
+    agent: str | None = Field(
+        default=None,
+        max_length=200,
+        description="Generic description of the agent, e.g. lipid-shelled perfluorocarbon microspheres.",
+    )
     administration: Administration = Field(description="infusion or bolus.")
-    imaging_mi: float | None = Field(default=None, gt=0, le=2, description="Mechanical index used for perfusion imaging.")
-    flash_mi: float | None = Field(default=None, gt=0, le=2, description="Mechanical index of the high-MI flash.")
+    imaging_mi: float | None = Field(
+        default=None, gt=0, le=2, description="Mechanical index used for perfusion imaging."
+    )
+    flash_mi: float | None = Field(
+        default=None, gt=0, le=2, description="Mechanical index of the high-MI flash."
+    )
 
 
 class Study(_Input):
@@ -235,16 +307,41 @@ class Study(_Input):
     schema_version: Literal[1] = Field(description="Version of the study-file format.")
     study: StudyInfo = Field(description="Identification of the study.")
     patient: Patient = Field(default_factory=Patient, description="Patient details (all optional).")
-    indication: str | None = Field(default=None, max_length=2000, description="Reason for the test (free text).")
+    indication: str | None = Field(
+        default=None, max_length=2000, description="Reason for the test (free text)."
+    )
     protocol: Protocol = Field(description="Kind of stress.")
-    segment_model: SegmentModel = Field(default=SegmentModel.SEVENTEEN, description="16, 17 or 18 segments.")
-    wall_motion_scale: Literal[4, 5] = Field(default=4, description="4-point scale (Lang 2015) or the older 5-point scale with 5 = aneurysmal.")
-    territory_map: str | None = Field(default=None, max_length=500, description="standard, left_dominant, or a path to a lab map (YAML) relative to the study file.")
-    stages: dict[Stage, StageData] = Field(min_length=1, description="Stages in protocol order: any of rest, low_dose, peak, recovery.")
-    exercise: Exercise | None = Field(default=None, description="Exercise results (treadmill or bicycle studies).")
-    contrast: Contrast | None = Field(default=None, description="Enhancing agent and imaging settings, when one was used.")
-    perfusion_curves: str | None = Field(default=None, max_length=500, description="Time-intensity curve CSV, relative to the study file.")
-    comments: str | None = Field(default=None, max_length=5000, description="Reader's free-text comments, printed in the report.")
+    segment_model: SegmentModel = Field(
+        default=SegmentModel.SEVENTEEN, description="16, 17 or 18 segments."
+    )
+    wall_motion_scale: Literal[4, 5] = Field(
+        default=4,
+        description="4-point scale (Lang 2015) or the older 5-point scale with 5 = aneurysmal.",
+    )
+    territory_map: str | None = Field(
+        default=None,
+        max_length=500,
+        description="standard, left_dominant, or a path to a lab map (YAML) relative to the study file.",
+    )
+    stages: dict[Stage, StageData] = Field(
+        min_length=1, description="Stages in protocol order: any of rest, low_dose, peak, recovery."
+    )
+    exercise: Exercise | None = Field(
+        default=None, description="Exercise results (treadmill or bicycle studies)."
+    )
+    contrast: Contrast | None = Field(
+        default=None, description="Enhancing agent and imaging settings, when one was used."
+    )
+    perfusion_curves: str | None = Field(
+        default=None,
+        max_length=500,
+        description="Time-intensity curve CSV, relative to the study file.",
+    )
+    comments: str | None = Field(
+        default=None,
+        max_length=5000,
+        description="Reader's free-text comments, printed in the report.",
+    )
 
     @model_validator(mode="after")
     def _scores_fit_model(self) -> Study:
@@ -252,7 +349,13 @@ class Study(_Input):
         order = [STAGE_ORDER.index(s) for s in self.stages]
         if order != sorted(order):
             given = ", ".join(self.stages)
-            problems.append(_problem(("stages",), f"stages must come in protocol order (rest, low_dose, peak, recovery); given {given}", given))
+            problems.append(
+                _problem(
+                    ("stages",),
+                    f"stages must come in protocol order (rest, low_dose, peak, recovery); given {given}",
+                    given,
+                )
+            )
         count = int(self.segment_model)
         for stage, data in self.stages.items():
             for kind in ("wall_motion", "perfusion"):
@@ -262,14 +365,32 @@ class Study(_Input):
                 where = ("stages", stage.value, kind)
                 extra = sorted(n for n in scores if n > count)
                 for n in extra:
-                    problems.append(_problem((*where, n), f"segment {n} does not exist in the {count}-segment model", scores[n]))
+                    problems.append(
+                        _problem(
+                            (*where, n),
+                            f"segment {n} does not exist in the {count}-segment model",
+                            scores[n],
+                        )
+                    )
                 missing = [n for n in range(1, count + 1) if n not in scores]
                 if missing:
-                    problems.append(_problem(where, f"{len(scores)} scores given; the {count}-segment model needs {count} (none for segment {_listing(missing)}; use x for not visualised)", len(scores)))
+                    problems.append(
+                        _problem(
+                            where,
+                            f"{len(scores)} scores given; the {count}-segment model needs {count} (none for segment {_listing(missing)}; use x for not visualised)",
+                            len(scores),
+                        )
+                    )
                 if kind == "wall_motion" and self.wall_motion_scale == 4:
                     for n, score in scores.items():
                         if score == 5 and n <= count:
-                            problems.append(_problem((*where, n), "score 5 (aneurysmal) needs wall_motion_scale: 5", score))
+                            problems.append(
+                                _problem(
+                                    (*where, n),
+                                    "score 5 (aneurysmal) needs wall_motion_scale: 5",
+                                    score,
+                                )
+                            )
         if problems:
             raise ValidationError.from_exception_data("Study", problems)
         return self
@@ -289,7 +410,12 @@ class Study(_Input):
         born = self.patient.birth_date
         if born is not None and born > self.study.date:
             raise ValidationError.from_exception_data(
-                "Study", [_problem(("patient", "birth_date"), "birth date is after the study date", str(born))]
+                "Study",
+                [
+                    _problem(
+                        ("patient", "birth_date"), "birth date is after the study date", str(born)
+                    )
+                ],
             )
         return self
 

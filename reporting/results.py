@@ -47,7 +47,9 @@ class PatientSummary(_Result):
     id: str | None = Field(description="Patient or record number.")
     name: str | None = Field(description="Patient name.")
     birth_date: dt.date | None = Field(description="Date of birth.")
-    age_years: int | None = Field(description="Age at the study in whole years (given or derived from the birth date).")
+    age_years: int | None = Field(
+        description="Age at the study in whole years (given or derived from the birth date)."
+    )
     sex: Sex | None = Field(description="Sex as recorded.")
 
 
@@ -65,8 +67,12 @@ class StageHaemodynamics(_Result):
     heart_rate_bpm: int | None = Field(description="Heart rate (bpm).")
     systolic_bp_mmhg: int | None = Field(description="Systolic pressure (mmHg).")
     diastolic_bp_mmhg: int | None = Field(description="Diastolic pressure (mmHg).")
-    rate_pressure_product: int | None = Field(description="Heart rate × systolic pressure (bpm·mmHg).")
-    hr_percent_of_predicted: float | None = Field(description="Heart rate as % of the age-predicted maximum.")
+    rate_pressure_product: int | None = Field(
+        description="Heart rate × systolic pressure (bpm·mmHg)."
+    )
+    hr_percent_of_predicted: float | None = Field(
+        description="Heart rate as % of the age-predicted maximum."
+    )
     dose_ug_kg_min: float | None = Field(description="Dobutamine dose (μg/kg/min).")
     atropine_mg: float | None = Field(description="Cumulative atropine (mg).")
     lvef_percent: float | None = Field(description="LV ejection fraction (%).")
@@ -81,23 +87,39 @@ class SegmentResult(_Result):
     name: str = Field(description="Segment name (Cerqueira 2002).")
     ring: Ring = Field(description="basal, mid, apical or apex.")
     territory: Territory = Field(description="Territory under the map used.")
-    shared_supply: list[Territory] = Field(description="Other territories that commonly supply this segment.")
-    wall_motion: dict[Stage, int | None] = Field(description="Wall-motion score per stage; null = not visualised.")
-    perfusion: dict[Stage, int | None] = Field(description="Perfusion score per stage; null = not visualised.")
+    shared_supply: list[Territory] = Field(
+        description="Other territories that commonly supply this segment."
+    )
+    wall_motion: dict[Stage, int | None] = Field(
+        description="Wall-motion score per stage; null = not visualised."
+    )
+    perfusion: dict[Stage, int | None] = Field(
+        description="Perfusion score per stage; null = not visualised."
+    )
     response: WallMotionResponse = Field(description="Wall-motion response to stress.")
-    perfusion_response: PerfusionResponse = Field(description="Perfusion response from rest to peak.")
+    perfusion_response: PerfusionResponse = Field(
+        description="Perfusion response from rest to peak."
+    )
 
 
 class TerritoryResult(_Result):
     """Results for one coronary territory."""
 
     segments: list[int] = Field(description="Segments in the territory.")
-    ischemic_segments: list[int] = Field(description="Segments whose response is ischemic or biphasic.")
-    viable_segments: list[int] = Field(description="Abnormal at rest and improving at low dose or stress.")
+    ischemic_segments: list[int] = Field(
+        description="Segments whose response is ischemic or biphasic."
+    )
+    viable_segments: list[int] = Field(
+        description="Abnormal at rest and improving at low dose or stress."
+    )
     fixed_segments: list[int] = Field(description="Abnormal at rest and unchanged.")
-    wmsi: dict[Stage, float | None] = Field(description="Mean wall-motion score of the territory's scored segments per stage.")
+    wmsi: dict[Stage, float | None] = Field(
+        description="Mean wall-motion score of the territory's scored segments per stage."
+    )
     scored_segments: dict[Stage, int] = Field(description="Segments scored per stage.")
-    reversible_perfusion_segments: list[int] = Field(description="Reversible or partially reversible perfusion defects.")
+    reversible_perfusion_segments: list[int] = Field(
+        description="Reversible or partially reversible perfusion defects."
+    )
     fixed_perfusion_segments: list[int] = Field(description="Fixed perfusion defects.")
     ischemic: bool = Field(description="Ischaemia by wall motion or reversible perfusion defect.")
 
@@ -106,11 +128,15 @@ class PerfusionResult(_Result):
     """Contrast perfusion summary."""
 
     scored: bool = Field(description="Perfusion was scored at any stage.")
-    defect_extent_percent: dict[Stage, float] = Field(description="Segments scored ≥ 2 ÷ segments scored × 100, per stage.")
+    defect_extent_percent: dict[Stage, float] = Field(
+        description="Segments scored ≥ 2 ÷ segments scored × 100, per stage."
+    )
     score_index: dict[Stage, float] = Field(description="Mean perfusion score per stage.")
     scored_segments: dict[Stage, int] = Field(description="Segments scored per stage.")
     reversible_segments: list[int] = Field(description="Normal at rest, abnormal at peak.")
-    partially_reversible_segments: list[int] = Field(description="Abnormal at rest and worse at peak.")
+    partially_reversible_segments: list[int] = Field(
+        description="Abnormal at rest and worse at peak."
+    )
     fixed_segments: list[int] = Field(description="Abnormal at rest and unchanged at peak.")
 
 
@@ -118,18 +144,36 @@ class StressResult(_Result):
     """Adequacy of stress and exercise indices."""
 
     age_years: int | None = Field(description="Age used for the targets.")
-    heart_rate_formula: HeartRateFormula = Field(description="Formula of the age-predicted maximum.")
-    age_predicted_max_hr_bpm: float | None = Field(description="Age-predicted maximum heart rate (bpm).")
-    target_hr_bpm: float | None = Field(description="Target heart rate (bpm), a fraction of the predicted maximum.")
+    heart_rate_formula: HeartRateFormula = Field(
+        description="Formula of the age-predicted maximum."
+    )
+    age_predicted_max_hr_bpm: float | None = Field(
+        description="Age-predicted maximum heart rate (bpm)."
+    )
+    target_hr_bpm: float | None = Field(
+        description="Target heart rate (bpm), a fraction of the predicted maximum."
+    )
     target_fraction: float = Field(description="The fraction used (0.85 by default).")
     peak_hr_bpm: int | None = Field(description="Highest heart rate at a stress stage (bpm).")
-    peak_hr_percent_of_predicted: float | None = Field(description="Peak heart rate as % of the predicted maximum.")
-    heart_rate_target_applies: bool = Field(description="False for vasodilator stress, where heart rate is not the end point.")
-    adequate: bool = Field(description="Target heart rate reached (or not rate-dependent stress with a peak stage).")
+    peak_hr_percent_of_predicted: float | None = Field(
+        description="Peak heart rate as % of the predicted maximum."
+    )
+    heart_rate_target_applies: bool = Field(
+        description="False for vasodilator stress, where heart rate is not the end point."
+    )
+    adequate: bool = Field(
+        description="Target heart rate reached (or not rate-dependent stress with a peak stage)."
+    )
     adequacy_note: str = Field(description="Why stress was or was not judged adequate.")
-    rate_pressure_product: dict[Stage, int] = Field(description="Heart rate × systolic pressure per stage.")
-    duke_treadmill_score: float | None = Field(description="Duke treadmill score (Mark 1991); null when not computed.")
-    duke_risk: DukeRisk | None = Field(description="low, intermediate or high; null when not an exercise study.")
+    rate_pressure_product: dict[Stage, int] = Field(
+        description="Heart rate × systolic pressure per stage."
+    )
+    duke_treadmill_score: float | None = Field(
+        description="Duke treadmill score (Mark 1991); null when not computed."
+    )
+    duke_risk: DukeRisk | None = Field(
+        description="low, intermediate or high; null when not an exercise study."
+    )
     mets: float | None = Field(description="Estimated workload (METs).")
 
 
@@ -205,16 +249,28 @@ class Note(_Result):
 class Conclusion(_Result):
     """The answer of the study."""
 
-    ischemia: bool = Field(description="Any segment ischemic or biphasic by wall motion, or a reversible perfusion defect.")
+    ischemia: bool = Field(
+        description="Any segment ischemic or biphasic by wall motion, or a reversible perfusion defect."
+    )
     status: DiagnosticStatus = Field(description="ischemia, no_ischemia or non_diagnostic.")
-    ischemic_territories: list[Territory] = Field(description="Territories of the ischaemic segments.")
+    ischemic_territories: list[Territory] = Field(
+        description="Territories of the ischaemic segments."
+    )
     ischemic_segment_count: int = Field(description="Segments ischemic or biphasic by wall motion.")
-    ischemia_extent: IschemiaExtent = Field(description="none, mild (1–2) or moderate_severe (≥ 3) (Kataoka 2015).")
+    ischemia_extent: IschemiaExtent = Field(
+        description="none, mild (1–2) or moderate_severe (≥ 3) (Kataoka 2015)."
+    )
     multivessel: bool = Field(description="Ischaemia in two or more territories.")
-    viable_segments: list[int] = Field(description="Segments biphasic or with sustained improvement.")
+    viable_segments: list[int] = Field(
+        description="Segments biphasic or with sustained improvement."
+    )
     fixed_segments: list[int] = Field(description="Segments abnormal at rest and unchanged.")
-    akinetic_to_dyskinetic_segments: list[int] = Field(description="Akinesis turning dyskinetic (not ischaemia).")
-    high_risk_findings: list[HighRiskFinding] = Field(description="High-risk findings with sources.")
+    akinetic_to_dyskinetic_segments: list[int] = Field(
+        description="Akinesis turning dyskinetic (not ischaemia)."
+    )
+    high_risk_findings: list[HighRiskFinding] = Field(
+        description="High-risk findings with sources."
+    )
 
 
 class Analysis(_Result):
@@ -238,8 +294,12 @@ class Analysis(_Result):
     haemodynamics: dict[Stage, StageHaemodynamics] = Field(description="Haemodynamics per stage.")
     contrast_used: bool = Field(description="An ultrasound-enhancing agent was used.")
     contrast_agent: str | None = Field(description="Generic description of the agent.")
-    wmsi: dict[Stage, float] = Field(description="Wall-motion score index per stage with scored segments (full precision).")
-    wmsi_scored_segments: dict[Stage, int] = Field(description="Segments that entered the WMSI at each stage.")
+    wmsi: dict[Stage, float] = Field(
+        description="Wall-motion score index per stage with scored segments (full precision)."
+    )
+    wmsi_scored_segments: dict[Stage, int] = Field(
+        description="Segments that entered the WMSI at each stage."
+    )
     segments: list[SegmentResult] = Field(description="Per-segment results in segment order.")
     territories: dict[Territory, TerritoryResult] = Field(description="Per-territory results.")
     perfusion: PerfusionResult = Field(description="Contrast perfusion summary.")

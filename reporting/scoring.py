@@ -35,7 +35,9 @@ class WallMotionResponse(StrEnum):
 
 
 ISCHEMIC_RESPONSES = frozenset({WallMotionResponse.ISCHEMIC, WallMotionResponse.BIPHASIC})
-VIABLE_RESPONSES = frozenset({WallMotionResponse.BIPHASIC, WallMotionResponse.SUSTAINED_IMPROVEMENT})
+VIABLE_RESPONSES = frozenset(
+    {WallMotionResponse.BIPHASIC, WallMotionResponse.SUSTAINED_IMPROVEMENT}
+)
 
 
 class PerfusionResponse(StrEnum):
@@ -55,7 +57,9 @@ class PerfusionResponse(StrEnum):
     """Not scored at rest or at peak."""
 
 
-ISCHEMIC_PERFUSION = frozenset({PerfusionResponse.REVERSIBLE, PerfusionResponse.PARTIALLY_REVERSIBLE})
+ISCHEMIC_PERFUSION = frozenset(
+    {PerfusionResponse.REVERSIBLE, PerfusionResponse.PARTIALLY_REVERSIBLE}
+)
 
 
 class IschemiaExtent(StrEnum):
@@ -81,7 +85,9 @@ def score_index(scores: Iterable[int | None]) -> tuple[float | None, int]:
     return sum(scored) / len(scored), len(scored)
 
 
-def wall_motion_response(rest: int | None, low_dose: int | None, peak: int | None) -> WallMotionResponse:
+def wall_motion_response(
+    rest: int | None, low_dose: int | None, peak: int | None
+) -> WallMotionResponse:
     """The response of one segment (Marwick 2003, table 1).
 
     ``low_dose`` is ``None`` when the stage was not imaged or the segment not seen there.
@@ -90,9 +96,15 @@ def wall_motion_response(rest: int | None, low_dose: int | None, peak: int | Non
         return WallMotionResponse.NOT_ASSESSABLE
     if rest == NORMAL_SCORE:
         stress_scores = [s for s in (low_dose, peak) if s is not None]
-        return WallMotionResponse.ISCHEMIC if max(stress_scores) > rest else WallMotionResponse.NORMAL
+        return (
+            WallMotionResponse.ISCHEMIC if max(stress_scores) > rest else WallMotionResponse.NORMAL
+        )
     if low_dose is not None and low_dose < rest:
-        return WallMotionResponse.BIPHASIC if peak > low_dose else WallMotionResponse.SUSTAINED_IMPROVEMENT
+        return (
+            WallMotionResponse.BIPHASIC
+            if peak > low_dose
+            else WallMotionResponse.SUSTAINED_IMPROVEMENT
+        )
     if peak > rest and rest >= AKINETIC_SCORE:
         return WallMotionResponse.AKINETIC_TO_DYSKINETIC
     if peak > rest or (low_dose is not None and low_dose > rest):
@@ -127,7 +139,11 @@ def ischemia_extent(ischemic_segments: int, moderate_from: int) -> IschemiaExten
     """None, mild (1 to ``moderate_from`` − 1) or moderate–severe (≥ ``moderate_from``)."""
     if ischemic_segments == 0:
         return IschemiaExtent.NONE
-    return IschemiaExtent.MODERATE_SEVERE if ischemic_segments >= moderate_from else IschemiaExtent.MILD
+    return (
+        IschemiaExtent.MODERATE_SEVERE
+        if ischemic_segments >= moderate_from
+        else IschemiaExtent.MILD
+    )
 
 
 def newly_abnormal(rest: Mapping[int, int | None], stage: Mapping[int, int | None]) -> list[int]:
@@ -142,7 +158,9 @@ def newly_abnormal(rest: Mapping[int, int | None], stage: Mapping[int, int | Non
     )
 
 
-def connected_groups(members: Iterable[int], touching: Mapping[int, frozenset[int]]) -> list[list[int]]:
+def connected_groups(
+    members: Iterable[int], touching: Mapping[int, frozenset[int]]
+) -> list[list[int]]:
     """Groups of ``members`` that touch each other (connected components), largest first."""
     remaining = set(members)
     groups: list[list[int]] = []

@@ -172,8 +172,12 @@ BUILT_IN_MAPS = ("standard", "left_dominant")
 def built_in_map(name: str) -> TerritoryMap:
     """One of the maps shipped in ``data/territory_maps``."""
     if name not in BUILT_IN_MAPS:
-        raise InputError("territory_map", f"unknown map {name!r}; built-in maps: {', '.join(BUILT_IN_MAPS)}")
-    text = resources.files("reporting.data").joinpath(f"territory_maps/{name}.yaml").read_text("utf-8")
+        raise InputError(
+            "territory_map", f"unknown map {name!r}; built-in maps: {', '.join(BUILT_IN_MAPS)}"
+        )
+    text = (
+        resources.files("reporting.data").joinpath(f"territory_maps/{name}.yaml").read_text("utf-8")
+    )
     return parse_territory_map(yaml.safe_load(text), location=f"territory map {name}")
 
 
@@ -192,7 +196,10 @@ def parse_territory_map(data: Any, *, location: str) -> TerritoryMap:
     """Check and build a map: every segment of each listed model in exactly one territory."""
     problems: list[InputError] = []
     if not isinstance(data, dict) or not isinstance(data.get("territories"), dict):
-        raise InputError(location, "a territory map needs a 'territories' mapping of model -> territory -> segments")
+        raise InputError(
+            location,
+            "a territory map needs a 'territories' mapping of model -> territory -> segments",
+        )
     assignment: dict[SegmentModel, dict[int, Territory]] = {}
     for model_key, by_territory in data["territories"].items():
         where = f"{location}: territories.{model_key}"
@@ -202,7 +209,9 @@ def parse_territory_map(data: Any, *, location: str) -> TerritoryMap:
             problems.append(InputError(where, "model must be 16, 17 or 18"))
             continue
         if not isinstance(by_territory, dict):
-            problems.append(InputError(where, "expected a mapping of territory -> list of segments"))
+            problems.append(
+                InputError(where, "expected a mapping of territory -> list of segments")
+            )
             continue
         seen: dict[int, Territory] = {}
         for name, numbers in by_territory.items():
@@ -216,14 +225,23 @@ def parse_territory_map(data: Any, *, location: str) -> TerritoryMap:
                 continue
             for n in numbers:
                 if not 1 <= n <= model:
-                    problems.append(InputError(f"{where}.{name}", f"segment {n} does not exist in the {int(model)}-segment model"))
+                    problems.append(
+                        InputError(
+                            f"{where}.{name}",
+                            f"segment {n} does not exist in the {int(model)}-segment model",
+                        )
+                    )
                 elif n in seen:
-                    problems.append(InputError(f"{where}.{name}", f"segment {n} is already in {seen[n]}"))
+                    problems.append(
+                        InputError(f"{where}.{name}", f"segment {n} is already in {seen[n]}")
+                    )
                 else:
                     seen[n] = territory
         missing = [n for n in range(1, model + 1) if n not in seen]
         if missing:
-            problems.append(InputError(where, f"segments {_listing(missing)} belong to no territory"))
+            problems.append(
+                InputError(where, f"segments {_listing(missing)} belong to no territory")
+            )
         assignment[model] = seen
     if problems:
         raise InputErrors(problems)

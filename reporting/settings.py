@@ -34,24 +34,61 @@ class Settings(BaseModel):
 
     model_config = ConfigDict(extra="forbid", frozen=True)
 
-    heart_rate_formula: HeartRateFormula = Field(description="Age-predicted maximum heart rate formula.")
-    target_heart_rate_fraction: float = Field(gt=0, le=1, description="Fraction of the age-predicted maximum that makes stress adequate.")
-    dobutamine_low_dose_max_ug_kg_min: float = Field(gt=0, description="Highest dobutamine dose (μg/kg/min) that counts as low dose.")
-    low_heart_rate_bpm: float = Field(gt=0, description="Heart rate (bpm) below which new abnormalities count as low-threshold ischaemia.")
-    low_threshold_abnormal_segments_min: int = Field(ge=1, description="Segments newly abnormal at low dose or low heart rate that make a high-risk finding.")
-    extensive_ischemia_segments_min: int = Field(ge=1, description="Ischaemic segments from which ischaemia is moderate–severe (extensive).")
-    multivessel_territories_min: int = Field(ge=2, description="Ischaemic territories from which the pattern is multivessel.")
-    resting_ef_high_risk_below_percent: float = Field(gt=0, lt=100, description="Resting LVEF (%) below which the finding is high risk.")
-    peak_wmsi_high_risk_above: float = Field(ge=1, description="Peak WMSI above which the finding is high risk.")
-    esv_rise_high_risk_above_ml: float = Field(ge=0, description="Rise of LV end-systolic volume (mL) from rest to peak above which the finding is high risk.")
-    ef_fall_high_risk_above_percent: float = Field(ge=0, description="Fall of LVEF (percentage points) from rest to peak above which the finding is high risk.")
+    heart_rate_formula: HeartRateFormula = Field(
+        description="Age-predicted maximum heart rate formula."
+    )
+    target_heart_rate_fraction: float = Field(
+        gt=0, le=1, description="Fraction of the age-predicted maximum that makes stress adequate."
+    )
+    dobutamine_low_dose_max_ug_kg_min: float = Field(
+        gt=0, description="Highest dobutamine dose (μg/kg/min) that counts as low dose."
+    )
+    low_heart_rate_bpm: float = Field(
+        gt=0,
+        description="Heart rate (bpm) below which new abnormalities count as low-threshold ischaemia.",
+    )
+    low_threshold_abnormal_segments_min: int = Field(
+        ge=1,
+        description="Segments newly abnormal at low dose or low heart rate that make a high-risk finding.",
+    )
+    extensive_ischemia_segments_min: int = Field(
+        ge=1, description="Ischaemic segments from which ischaemia is moderate–severe (extensive)."
+    )
+    multivessel_territories_min: int = Field(
+        ge=2, description="Ischaemic territories from which the pattern is multivessel."
+    )
+    resting_ef_high_risk_below_percent: float = Field(
+        gt=0, lt=100, description="Resting LVEF (%) below which the finding is high risk."
+    )
+    peak_wmsi_high_risk_above: float = Field(
+        ge=1, description="Peak WMSI above which the finding is high risk."
+    )
+    esv_rise_high_risk_above_ml: float = Field(
+        ge=0,
+        description="Rise of LV end-systolic volume (mL) from rest to peak above which the finding is high risk.",
+    )
+    ef_fall_high_risk_above_percent: float = Field(
+        ge=0,
+        description="Fall of LVEF (percentage points) from rest to peak above which the finding is high risk.",
+    )
     duke_low_risk_min: float = Field(description="Duke treadmill score from which risk is low.")
     duke_high_risk_max: float = Field(description="Duke treadmill score up to which risk is high.")
-    duke_protocols: tuple[Protocol, ...] = Field(description="Protocols for which the Duke treadmill score is computed.")
-    viability_biphasic_segments_min: int = Field(ge=1, description="Biphasic segments from which recovery of global function is likely.")
-    contrast_suggest_contiguous_not_visualised_min: int = Field(ge=2, description="Contiguous non-visualised segments from which an enhancing agent is suggested.")
-    low_mi_max: float = Field(gt=0, description="Highest mechanical index counted as low-MI perfusion imaging.")
-    wmsi_excludes_apex: bool = Field(description="Leave the apical cap (segment 17) out of WMSI, keeping it for perfusion.")
+    duke_protocols: tuple[Protocol, ...] = Field(
+        description="Protocols for which the Duke treadmill score is computed."
+    )
+    viability_biphasic_segments_min: int = Field(
+        ge=1, description="Biphasic segments from which recovery of global function is likely."
+    )
+    contrast_suggest_contiguous_not_visualised_min: int = Field(
+        ge=2,
+        description="Contiguous non-visualised segments from which an enhancing agent is suggested.",
+    )
+    low_mi_max: float = Field(
+        gt=0, description="Highest mechanical index counted as low-MI perfusion imaging."
+    )
+    wmsi_excludes_apex: bool = Field(
+        description="Leave the apical cap (segment 17) out of WMSI, keeping it for perfusion."
+    )
 
     @staticmethod
     def sources() -> dict[str, str]:
@@ -69,7 +106,9 @@ def _defaults_file() -> dict[str, dict[str, Any]]:
 @cache
 def default_settings() -> Settings:
     """The published defaults."""
-    return Settings.model_validate({name: entry["value"] for name, entry in _defaults_file().items()})
+    return Settings.model_validate(
+        {name: entry["value"] for name, entry in _defaults_file().items()}
+    )
 
 
 def load_settings(path: Path | None) -> Settings:
@@ -91,5 +130,8 @@ def load_settings(path: Path | None) -> Settings:
         return Settings.model_validate(merged)
     except ValidationError as exc:
         raise InputErrors(
-            [InputError(f"{path}: {'.'.join(str(p) for p in e['loc'])}", e["msg"]) for e in exc.errors()]
+            [
+                InputError(f"{path}: {'.'.join(str(p) for p in e['loc'])}", e["msg"])
+                for e in exc.errors()
+            ]
         ) from None

@@ -35,7 +35,9 @@ def rate_pressure_product(heart_rate_bpm: int, systolic_bp_mmhg: int) -> int:
     return heart_rate_bpm * systolic_bp_mmhg
 
 
-def duke_treadmill_score(duration_min: float, max_st_deviation_mm: float, angina_index: int) -> float:
+def duke_treadmill_score(
+    duration_min: float, max_st_deviation_mm: float, angina_index: int
+) -> float:
     """Minutes of exercise − 5 × ST deviation (mm) − 4 × angina index (Mark 1991)."""
     return duration_min - 5 * max_st_deviation_mm - 4 * angina_index
 

@@ -1,0 +1,1 @@
+"""Reference tables, thresholds and demo studies (see SOURCES.md)."""

@@ -1,0 +1,43 @@
+"""The bundled demo: invented studies from an invented clinic, and what segreport makes of them.
+
+The studies live in ``data/demo``; :func:`write_demo` copies each into a folder and writes its
+outputs beside it, so a newcomer sees the whole job without preparing any input.
+"""
+
+from __future__ import annotations
+
+from importlib import resources
+from pathlib import Path
+
+from reporting.analysis import analyze_file
+from reporting.export.record import record_json
+from reporting.files import write_atomic
+
+
+def demo_study_names() -> list[str]:
+    """File names of the bundled demo studies, in order."""
+    folder = resources.files("reporting.data").joinpath("demo")
+    return sorted(p.name for p in folder.iterdir() if p.name.endswith(".yaml"))
+
+
+def demo_study_text(name: str) -> str:
+    """The text of one bundled demo study."""
+    return (
+        resources.files("reporting.data")
+        .joinpath("demo")
+        .joinpath(name)
+        .read_text(encoding="utf-8")
+    )
+
+
+def write_demo(outdir: Path) -> list[Path]:
+    """Write every demo study and its record into ``outdir``; return the paths written."""
+    written: list[Path] = []
+    for name in demo_study_names():
+        study_path = outdir / name
+        write_atomic(study_path, demo_study_text(name))
+        analysis = analyze_file(study_path)
+        record_path = outdir / f"{analysis.study.id}.record.json"
+        write_atomic(record_path, record_json(analysis))
+        written += [study_path, record_path]
+    return written
