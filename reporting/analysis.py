@@ -138,7 +138,8 @@ def analyze(
         study=StudyHeader(
             id=study.study.id,
             date=study.study.date,
-            lab=study.study.lab,
+            lab=study.study.lab or settings.lab_name,
+            lab_address=settings.lab_address,
             reader=study.study.reader,
             sonographer=study.study.sonographer,
             referring_physician=study.study.referring_physician,

@@ -32,7 +32,10 @@ class StudyHeader(_Result):
 
     id: str = Field(description="Study id.")
     date: dt.date = Field(description="Date of the study.")
-    lab: str | None = Field(description="Echo lab.")
+    lab: str | None = Field(description="Echo lab (the study's, else the lab settings').")
+    lab_address: str | None = Field(
+        description="Lab address or contact line from the lab settings."
+    )
     reader: str | None = Field(description="Reading physician.")
     sonographer: str | None = Field(description="Sonographer.")
     referring_physician: str | None = Field(description="Referring doctor.")

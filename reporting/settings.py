@@ -86,6 +86,12 @@ class Settings(BaseModel):
     low_mi_max: float = Field(
         gt=0, description="Highest mechanical index counted as low-MI perfusion imaging."
     )
+    lab_name: str | None = Field(
+        max_length=200, description="Lab name for report headers when a study names none."
+    )
+    lab_address: str | None = Field(
+        max_length=300, description="Lab address or contact line for report headers."
+    )
     wmsi_excludes_apex: bool = Field(
         description="Leave the apical cap (segment 17) out of WMSI, keeping it for perfusion."
     )
