@@ -174,6 +174,16 @@ def _located(error: dict[str, Any], source: str) -> InputError:
         problem = (
             f"score {error['input']!r} is not a whole number ({_score_range(str(loc[2]))}, or x)"
         )
+    elif kind in ("less_than_equal", "less_than"):
+        limit = error.get("ctx", {}).get("le", error.get("ctx", {}).get("lt"))
+        problem = f"{error['input']!r} is above the allowed maximum {limit}"
+    elif kind in ("greater_than_equal", "greater_than"):
+        limit = error.get("ctx", {}).get("ge", error.get("ctx", {}).get("gt"))
+        problem = f"{error['input']!r} is below the allowed minimum {limit}"
+    elif kind == "too_short" and loc == ["stages"]:
+        problem = "at least one stage is needed"
+    elif kind == "string_too_long":
+        problem = f"text is longer than {error.get('ctx', {}).get('max_length')} characters"
     elif kind in ("int_parsing", "float_parsing", "int_type", "float_type"):
         problem = f"{error['input']!r} is not a number"
     elif kind == "int_from_float":

@@ -14,7 +14,15 @@ import re
 from enum import StrEnum
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, model_validator
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    ValidationError,
+    WithJsonSchema,
+    model_validator,
+)
 from pydantic_core import InitErrorDetails, PydanticCustomError
 
 from reporting.segments import SegmentModel
@@ -122,8 +130,8 @@ def _parse_scores(value: Any) -> Any:
             else:
                 raise PydanticCustomError(
                     "score_character",
-                    "character {position} is {char!r}; use a score digit or x for not visualised",
-                    {"position": position, "char": char},
+                    "character {position} is {char}; use a score digit or x for not visualised",
+                    {"position": position, "char": repr(char)},
                 )
         if not scores:
             raise PydanticCustomError("no_scores", "no scores given", {})
@@ -151,6 +159,34 @@ def _segment_key(key: Any) -> Any:
     return key
 
 
+def _scores_input_schema(highest: int, meaning: str) -> WithJsonSchema:
+    """The study-file schema of a score set: the character form or the mapping form."""
+    score = {
+        "anyOf": [
+            {"type": "integer", "minimum": 1, "maximum": highest},
+            {"type": "null"},
+            {"const": "x"},
+        ]
+    }
+    return WithJsonSchema(
+        {
+            "description": f"{meaning} One character per segment in number order (spaces ignored, x = not "
+            "visualised), or a mapping of segment number to score (null or x = not visualised). "
+            "Every segment of the model must be given.",
+            "anyOf": [
+                {"type": "string", "pattern": "^[0-9xX ]+$"},
+                {"type": "integer", "minimum": 1},
+                {
+                    "type": "object",
+                    "patternProperties": {"^[0-9]+$": score},
+                    "additionalProperties": False,
+                },
+            ],
+        },
+        mode="validation",
+    )
+
+
 SegmentNumber = Annotated[int, Field(ge=1, le=18)]
 WallMotionScore = Annotated[
     int,
@@ -166,16 +202,15 @@ PerfusionScore = Annotated[
 WallMotionScores = Annotated[
     dict[SegmentNumber, WallMotionScore | None],
     BeforeValidator(_parse_scores),
-    Field(
-        description="Segment -> wall-motion score; null (or x) = not visualised. Input may be a string with one character per segment."
+    _scores_input_schema(
+        5,
+        "Wall-motion scores: 1 normal, 2 hypokinetic, 3 akinetic, 4 dyskinetic, 5 aneurysmal (5-point scale only).",
     ),
 ]
 PerfusionScores = Annotated[
     dict[SegmentNumber, PerfusionScore | None],
     BeforeValidator(_parse_scores),
-    Field(
-        description="Segment -> perfusion score; null (or x) = not visualised. Input may be a string with one character per segment."
-    ),
+    _scores_input_schema(3, "Perfusion scores: 1 normal, 2 reduced or delayed, 3 absent."),
 ]
 
 

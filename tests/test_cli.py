@@ -1,0 +1,87 @@
+"""The command line: start-up cost, module entry point, demo and analyze."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+from click.testing import CliRunner
+
+from reporting.cli import main
+
+
+def test_help_does_not_import_heavy_modules() -> None:
+    # Lazy imports keep `segreport --help` quick (design brief).
+    code = (
+        "import sys\n"
+        "from reporting.cli import main\n"
+        "try:\n    main(['--help'])\nexcept SystemExit:\n    pass\n"
+        "heavy = [m for m in ('pandas', 'scipy', 'numpy', 'reportlab', 'jinja2', 'pydantic') if m in sys.modules]\n"
+        "print('HEAVY:' + ','.join(heavy))\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip().splitlines()[-1] == "HEAVY:"
+
+
+def test_python_dash_m_runs_the_cli() -> None:
+    out = subprocess.run(
+        [sys.executable, "-m", "reporting", "--help"], capture_output=True, text=True, check=True
+    )
+    assert "Usage: segreport" in out.stdout
+    for command in ("analyze", "validate", "demo"):
+        assert command in out.stdout
+
+
+def test_demo_writes_studies_and_records(tmp_path: Path) -> None:
+    result = CliRunner().invoke(main, ["demo", "-o", str(tmp_path)])
+    assert result.exit_code == 0, result.output
+    records = sorted(tmp_path.glob("*.record.json"))
+    studies = sorted(tmp_path.glob("DEMO-*.yaml"))
+    assert len(records) >= 5 and len(studies) == len(records)
+    for path in records:
+        record = json.loads(path.read_text())
+        assert record["study"]["id"] == path.name.removesuffix(".record.json")
+
+
+def test_analyze_prints_record_or_writes_file(tmp_path: Path) -> None:
+    CliRunner().invoke(main, ["demo", "-o", str(tmp_path)])
+    study = tmp_path / "DEMO-0002.yaml"
+    shown = CliRunner().invoke(main, ["analyze", str(study)])
+    assert shown.exit_code == 0
+    record = json.loads(shown.stdout)
+    assert record["conclusion"]["ischemic_territories"] == ["LAD"]
+    out = tmp_path / "sub" / "r.json"
+    written = CliRunner().invoke(main, ["analyze", str(study), "-o", str(out)])
+    assert written.exit_code == 0 and json.loads(out.read_text()) == record
+
+
+def test_territory_map_option_overrides_study(tmp_path: Path) -> None:
+    CliRunner().invoke(main, ["demo", "-o", str(tmp_path)])
+    result = CliRunner().invoke(
+        main, ["analyze", str(tmp_path / "DEMO-0004.yaml"), "--territory-map", "left_dominant"]
+    )
+    assert json.loads(result.stdout)["conclusion"]["ischemic_territories"] == ["LCx"]
+
+
+def test_settings_file_overrides_and_is_checked(tmp_path: Path) -> None:
+    CliRunner().invoke(main, ["demo", "-o", str(tmp_path)])
+    lab = tmp_path / "lab.yaml"
+    lab.write_text("heart_rate_formula: tanaka\n")
+    result = CliRunner().invoke(
+        main, ["analyze", str(tmp_path / "DEMO-0001.yaml"), "--settings", str(lab)]
+    )
+    stress = json.loads(result.stdout)["stress"]
+    assert stress["age_predicted_max_hr_bpm"] == 208 - 0.7 * 58  # Tanaka H et al., JACC 2001
+    lab.write_text("target_heart_rate_fraction: lots\nno_such_setting: 1\n")
+    bad = CliRunner().invoke(
+        main, ["analyze", str(tmp_path / "DEMO-0001.yaml"), "--settings", str(lab)]
+    )
+    assert bad.exit_code == 1
+    assert "target_heart_rate_fraction" in bad.stderr and "no_such_setting" in bad.stderr
+
+
+def test_usage_error_exits_2() -> None:
+    result = CliRunner().invoke(main, ["analyze"])
+    assert result.exit_code == 2

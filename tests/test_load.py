@@ -1,0 +1,253 @@
+"""A gallery of bad study files: each gives located errors, exit code 1 and no output file."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any
+
+import pytest
+import yaml
+from click.testing import CliRunner
+from conftest import NORMAL_17, stages, study_dict
+
+from reporting.cli import main
+
+
+def _yaml(data: dict[str, Any]) -> str:
+    return yaml.safe_dump(data, sort_keys=False)
+
+
+def _with(path: list[str], value: Any) -> str:
+    data = study_dict()
+    target = data
+    for key in path[:-1]:
+        target = target.setdefault(key, {})
+    target[path[-1]] = value
+    return _yaml(data)
+
+
+GOOD = _yaml(study_dict())
+BOMB = "a: &a [x, x, x, x, x, x, x, x, x]\nb: &b [*a, *a, *a, *a, *a, *a, *a, *a, *a]\nc: &c [*b, *b, *b, *b, *b, *b, *b, *b]\n"
+
+# (case id, file name, content, expected location, expected problem fragment)
+GALLERY: list[tuple[str, str, str | bytes, str, str]] = [
+    # 16 characters where the 17-segment model needs 17.
+    (
+        "short-string",
+        "s.yaml",
+        _with(["stages", "rest", "wall_motion"], "111111 111111 1111"),
+        "stages.rest.wall_motion",
+        "16 scores given; the 17-segment model needs 17",
+    ),
+    # A mapping naming segment 18 in a 17-segment study.
+    (
+        "segment-18",
+        "s.yaml",
+        _with(["stages", "peak", "wall_motion"], {**{n: 1 for n in range(1, 18)}, 18: 1}),
+        "stages.peak.wall_motion",
+        "segment 18 does not exist in the 17-segment model",
+    ),
+    # Wall-motion scores stop at 4 (Lang 2015).
+    (
+        "score-7",
+        "s.yaml",
+        _with(["stages", "peak", "wall_motion"], "117111 111111 1111 1"),
+        "stages.peak.wall_motion",
+        "segment 3: wall-motion score 7 is out of range",
+    ),
+    # Perfusion scores stop at 3.
+    (
+        "perfusion-4",
+        "s.yaml",
+        _with(["stages", "peak", "perfusion"], "411111 111111 1111 1"),
+        "stages.peak.perfusion",
+        "segment 1: perfusion score 4 is out of range (1–3)",
+    ),
+    # 5 = aneurysmal only on the declared 5-point scale.
+    (
+        "score-5-on-4-point",
+        "s.yaml",
+        _with(["stages", "peak", "wall_motion"], "511111 111111 1111 1"),
+        "stages.peak.wall_motion",
+        "score 5 (aneurysmal) needs wall_motion_scale: 5",
+    ),
+    # A letter that is neither a digit nor x.
+    (
+        "letter-in-scores",
+        "s.yaml",
+        _with(["stages", "rest", "wall_motion"], "11a111 111111 1111 1"),
+        "stages.rest.wall_motion",
+        "character 3 is 'a'",
+    ),
+    # "stress" is not one of the four stages.
+    (
+        "unknown-stage",
+        "s.yaml",
+        _with(["stages", "stress"], {"heart_rate_bpm": 100}),
+        "stages.stress",
+        "unknown stage",
+    ),
+    # Peak before rest.
+    (
+        "stage-order",
+        "s.yaml",
+        _yaml(
+            study_dict(
+                stages={
+                    "peak": stages(peak=NORMAL_17)["peak"],
+                    "rest": stages(rest=NORMAL_17)["rest"],
+                }
+            )
+        ),
+        "stages",
+        "protocol order",
+    ),
+    # Text where a number belongs.
+    (
+        "text-for-number",
+        "s.yaml",
+        _with(["stages", "rest", "heart_rate_bpm"], "fast"),
+        "stages.rest.heart_rate_bpm",
+        "'fast' is not a number",
+    ),
+    # Physiologically impossible heart rate.
+    (
+        "heart-rate-400",
+        "s.yaml",
+        _with(["stages", "peak", "heart_rate_bpm"], 400),
+        "stages.peak.heart_rate_bpm",
+        "above the allowed maximum 260",
+    ),
+    ("empty-file", "s.yaml", "", "s.yaml", "file is empty"),
+    ("binary-file", "s.yaml", b"\x89PNG\r\n\x1a\n\x00\x00\x00\rIHDR", "s.yaml", "binary file"),
+    ("not-utf8", "s.yaml", "study: caf\xe9\n".encode("latin-1"), "s.yaml", "not UTF-8 text"),
+    # Alias expansion ("billion laughs") is refused outright.
+    ("yaml-bomb", "s.yaml", BOMB, "line 2", "anchors and aliases are not allowed"),
+    ("yaml-syntax", "s.yaml", "study: {id: [\n", "line 2", "invalid YAML"),
+    # The same segment twice in one mapping.
+    (
+        "duplicate-segment-yaml",
+        "s.yaml",
+        GOOD.replace("wall_motion: 111111 111111 1111 1", "wall_motion: {1: 1, 1: 2}", 1),
+        "line",
+        "key 1 appears twice",
+    ),
+    (
+        "duplicate-segment-json",
+        "s.json",
+        json.dumps(study_dict()).replace(
+            '"wall_motion": "111111 111111 1111 1"', '"wall_motion": {"1": 1, "01": 2}', 1
+        ),
+        "stages.rest.wall_motion",
+        "segment 1 is scored twice",
+    ),
+    (
+        "duplicate-key-json",
+        "s.json",
+        '{"schema_version": 1, "schema_version": 1}',
+        "s.json",
+        "key 'schema_version' appears twice",
+    ),
+    ("json-syntax", "s.json", '{"schema_version": 1,', "line 1", "invalid JSON"),
+    ("top-level-list", "s.json", "[1, 2, 3]", "s.json", "must hold a mapping"),
+    (
+        "missing-id",
+        "s.yaml",
+        _with(["study"], {"date": "2026-10-14"}),
+        "study",
+        "required field 'id' is missing",
+    ),
+    # Ids become file names: anything that could escape the output folder is refused.
+    ("path-like-id", "s.yaml", _with(["study", "id"], "../x"), "study.id", "id '../x' must be"),
+    ("slash-id", "s.yaml", _with(["study", "id"], "a/b"), "study.id", "must be 1–64 letters"),
+    ("dot-dot-id", "s.yaml", _with(["study", "id"], ".."), "study.id", "not '.' or '..'"),
+    (
+        "misspelt-field",
+        "s.yaml",
+        _with(["pateint"], {"age_years": 50}),
+        "s.yaml",
+        "unknown field 'pateint'",
+    ),
+    (
+        "schema-version-2",
+        "s.yaml",
+        _with(["schema_version"], 2),
+        "schema_version",
+        "2 is not allowed",
+    ),
+    (
+        "unknown-protocol",
+        "s.yaml",
+        _with(["protocol"], "swimming"),
+        "protocol",
+        "'swimming' is not allowed",
+    ),
+    ("bad-date", "s.yaml", _with(["study", "date"], "2026-13-45"), "study.date", "not a date"),
+    (
+        "born-after-study",
+        "s.yaml",
+        _with(["patient", "birth_date"], "2027-01-01"),
+        "patient.birth_date",
+        "birth date is after the study date",
+    ),
+    ("no-stages", "s.yaml", _with(["stages"], {}), "stages", "at least one stage is needed"),
+    ("wrong-extension", "s.txt", GOOD, "s.txt", "unknown file type"),
+    (
+        "missing-map-file",
+        "s.yaml",
+        _with(["territory_map"], "nowhere.yaml"),
+        "nowhere.yaml",
+        "cannot read territory map",
+    ),
+]
+
+
+@pytest.mark.parametrize(
+    "name,content,location,problem", [c[1:] for c in GALLERY], ids=[c[0] for c in GALLERY]
+)
+def test_bad_input_is_located_and_writes_nothing(
+    tmp_path: Path, name: str, content: str | bytes, location: str, problem: str
+) -> None:
+    study = tmp_path / name
+    if isinstance(content, bytes):
+        study.write_bytes(content)
+    else:
+        study.write_text(content, encoding="utf-8")
+    out = tmp_path / "record.json"
+    result = CliRunner().invoke(main, ["analyze", str(study), "-o", str(out)])
+    assert result.exit_code == 1, result.output
+    lines = result.stderr.strip().splitlines()
+    assert lines and all(line.startswith("Error: ") for line in lines), result.stderr
+    assert any(location in line and problem in line for line in lines), result.stderr
+    assert "Traceback" not in result.output
+    assert not out.exists()
+    assert [p.name for p in tmp_path.iterdir() if p.name != name and p.name != "nowhere.yaml"] == []
+
+
+def test_every_problem_is_listed_at_once(tmp_path: Path) -> None:
+    data = study_dict()
+    data["protocol"] = "swimming"
+    data["stages"]["rest"]["heart_rate_bpm"] = "fast"
+    data["stages"]["peak"]["wall_motion"] = "117111 111111 1111 9"
+    study = tmp_path / "s.yaml"
+    study.write_text(_yaml(data))
+    result = CliRunner().invoke(main, ["validate", str(study)])
+    assert result.exit_code == 1
+    errors = [line for line in result.stderr.splitlines() if line.startswith("Error: ")]
+    assert len(errors) == 4, result.stderr
+    assert (
+        f"Error: {study}: stages.peak.wall_motion: segment 17: wall-motion score 9 is out of range"
+        in result.stderr
+    )
+
+
+def test_validate_lists_each_file(tmp_path: Path) -> None:
+    good, bad = tmp_path / "good.yaml", tmp_path / "bad.yaml"
+    good.write_text(GOOD)
+    bad.write_text(_with(["protocol"], "swimming"))
+    result = CliRunner().invoke(main, ["validate", str(good), str(bad)])
+    assert result.exit_code == 1
+    assert f"ok: {good}" in result.stdout
+    assert f"Error: {bad}: protocol:" in result.stderr
+    assert "1 of 2 file(s) have problems." in result.stderr
