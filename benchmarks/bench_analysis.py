@@ -36,7 +36,9 @@ def in_process(rounds: int = 3, per_round: int = 2000) -> None:
         for i in range(per_round):
             record_json(analyze(study_from_data(documents[i % len(documents)])))
         best_full = min(best_full, time.perf_counter() - start)
-    print(f"in-process validate + analyse:          {per_round / best_validate:8.0f} studies/s (target >= 2000)")
+    print(
+        f"in-process validate + analyse:          {per_round / best_validate:8.0f} studies/s (target >= 2000)"
+    )
     print(f"in-process validate + analyse + record: {per_round / best_full:8.0f} studies/s")
 
 
@@ -56,8 +58,12 @@ def whole_process(repeats: int = 7) -> None:
         baseline = timed([sys.executable, "-c", "import pydantic, yaml, click"])
         ours = timed([sys.executable, "-m", "reporting", "analyze", str(study)])
         helps = timed([sys.executable, "-m", "reporting", "--help"])
-    print(f"python -c 'import pydantic, yaml, click': {1000 * baseline:6.0f} ms (median of {repeats})")
-    print(f"segreport analyze DEMO-0002:              {1000 * ours:6.0f} ms  ratio {ours / baseline:.2f} (target <= 1.5)")
+    print(
+        f"python -c 'import pydantic, yaml, click': {1000 * baseline:6.0f} ms (median of {repeats})"
+    )
+    print(
+        f"segreport analyze DEMO-0002:              {1000 * ours:6.0f} ms  ratio {ours / baseline:.2f} (target <= 1.5)"
+    )
     print(f"segreport --help:                         {1000 * helps:6.0f} ms")
 
 

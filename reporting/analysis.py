@@ -11,6 +11,7 @@ from __future__ import annotations
 import logging
 from collections.abc import Mapping
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from reporting import scoring, stress
 from reporting.errors import InputError
@@ -53,6 +54,9 @@ from reporting.segments import (
 )
 from reporting.settings import Settings, default_settings, load_settings
 
+if TYPE_CHECKING:
+    from reporting.kinetics.curves import CurveSet
+
 log = logging.getLogger(__name__)
 
 CAUTIONS = (
@@ -74,10 +78,20 @@ def analyze_file(
     path = Path(path)
     study = load_study(path)
     settings = load_settings(settings_path)
+    curves = None
+    if study.perfusion_curves is not None:
+        from reporting.kinetics import load_curves  # numpy loads only for studies with curves
+
+        curves = load_curves(
+            path.parent / study.perfusion_curves,
+            segment_model=study.segment_model,
+            settings=settings,
+        )
     return analyze(
         study,
         settings=settings,
         territory_map=resolve_territory_map(study, path.parent, territory_map),
+        curves=curves,
     )
 
 
@@ -95,9 +109,13 @@ def resolve_territory_map(
 
 
 def analyze(
-    study: Study, *, settings: Settings | None = None, territory_map: TerritoryMap | None = None
+    study: Study,
+    *,
+    settings: Settings | None = None,
+    territory_map: TerritoryMap | None = None,
+    curves: CurveSet | None = None,
 ) -> Analysis:
-    """Compute the full analysis of ``study``."""
+    """Compute the full analysis of ``study`` (with replenishment kinetics when ``curves`` are given)."""
     settings = settings or default_settings()
     if territory_map is None:
         if study.territory_map not in (None, *BUILT_IN_MAPS):
@@ -125,6 +143,17 @@ def analyze(
 
     territories = {t: _territory_result(t, segments, wall, wmsi_numbers) for t in Territory}
     perfusion = _perfusion_result(segments, perf)
+    kinetics = None
+    if curves is not None:
+        from reporting.kinetics import analyze_kinetics
+
+        kinetics = analyze_kinetics(
+            curves,
+            segment_model=model,
+            territory_of={s.number: s.territory for s in segments},
+            perfusion_scores=perf,
+            settings=settings,
+        )
     stress_result, stress_notes = _stress_result(study, settings)
     conclusion = _conclusion(study, settings, segments, territories, wall, wmsi, stress_result)
     notes = stress_notes + _notes(study, settings, segments, wall, perf, conclusion)
@@ -169,6 +198,7 @@ def analyze(
         segments=segments,
         territories=territories,
         perfusion=perfusion,
+        kinetics=kinetics,
         stress=stress_result,
         conclusion=conclusion,
         notes=notes,

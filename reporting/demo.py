@@ -12,6 +12,7 @@ from pathlib import Path
 from reporting.analysis import analyze_file
 from reporting.export.record import record_json
 from reporting.files import write_atomic
+from reporting.load import load_study
 
 
 def demo_study_names() -> list[str]:
@@ -36,8 +37,13 @@ def write_demo(outdir: Path) -> list[Path]:
     for name in demo_study_names():
         study_path = outdir / name
         write_atomic(study_path, demo_study_text(name))
+        written.append(study_path)
+        curves = load_study(study_path).perfusion_curves
+        if curves is not None:  # the curve file travels beside its study
+            write_atomic(outdir / curves, demo_study_text(curves))
+            written.append(outdir / curves)
         analysis = analyze_file(study_path)
         record_path = outdir / f"{analysis.study.id}.record.json"
         write_atomic(record_path, record_json(analysis))
-        written += [study_path, record_path]
+        written.append(record_path)
     return written

@@ -14,7 +14,7 @@ from pathlib import Path
 from typing import Any
 
 import yaml
-from pydantic import BaseModel, ConfigDict, Field, ValidationError
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
 from reporting.errors import InputError, InputErrors
 from reporting.model import Protocol
@@ -27,6 +27,15 @@ class HeartRateFormula(StrEnum):
     """220 − age (Fox 1971)."""
     TANAKA = "tanaka"
     """208 − 0.7 × age (Tanaka 2001)."""
+
+
+class TerritoryAggregation(StrEnum):
+    """How segment kinetics are combined into a territory reserve."""
+
+    RATIO_OF_MEANS = "ratio_of_means"
+    """Mean stress value ÷ mean rest value over the territory's segments with good fits at both."""
+    MEAN_OF_RATIOS = "mean_of_ratios"
+    """Mean of the segment reserves over the territory's segments with good fits at both."""
 
 
 class Settings(BaseModel):
@@ -95,6 +104,48 @@ class Settings(BaseModel):
     wmsi_excludes_apex: bool = Field(
         description="Leave the apical cap (segment 17) out of WMSI, keeping it for perfusion."
     )
+    kinetics_db_to_linear_divisor: float = Field(
+        gt=0,
+        description="Log-compressed curves: linear intensity = 10^(dB / divisor); 10 power-like, 20 amplitude-like.",
+    )
+    kinetics_min_frames: int = Field(
+        ge=4, description="Fewest post-flash frames a replenishment curve needs to be fitted."
+    )
+    kinetics_beta_min_per_s: float = Field(
+        gt=0, description="Lower bound of the fitted replenishment rate β (1/s)."
+    )
+    kinetics_beta_max_per_s: float = Field(
+        gt=0, description="Upper bound of the fitted replenishment rate β (1/s)."
+    )
+    kinetics_min_r_squared: float = Field(
+        ge=0,
+        le=1,
+        description="R² below which a replenishment fit is poor and left out of reserve.",
+    )
+    kinetics_rest_replenishment_max_s: float = Field(
+        gt=0, description="Usual upper bound of the time to 90 % of plateau at rest (s)."
+    )
+    kinetics_peak_replenishment_max_s: float = Field(
+        gt=0, description="Usual upper bound of the time to 90 % of plateau at peak stress (s)."
+    )
+    kinetics_a_beta_reserve_min: float = Field(
+        gt=0, description="Segment A·β (flow) reserve below which it is flagged as reduced."
+    )
+    kinetics_territory_flow_reserve_min: float = Field(
+        gt=0, description="Territory A·β (flow) reserve below which it is flagged as reduced."
+    )
+    kinetics_beta_reserve_min: float = Field(
+        gt=0, description="β reserve (segment or territory) below which it is flagged as reduced."
+    )
+    kinetics_territory_aggregation: TerritoryAggregation = Field(
+        description="How segment kinetics are combined into a territory reserve."
+    )
+
+    @model_validator(mode="after")
+    def _kinetics_beta_bounds(self) -> Settings:
+        if self.kinetics_beta_min_per_s >= self.kinetics_beta_max_per_s:
+            raise ValueError("kinetics_beta_min_per_s must be below kinetics_beta_max_per_s")
+        return self
 
     @staticmethod
     def sources() -> dict[str, str]:
