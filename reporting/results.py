@@ -10,9 +10,11 @@ from __future__ import annotations
 
 import datetime as dt
 from enum import StrEnum
+from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from reporting.kinetics.models import KineticsResult
 from reporting.model import Protocol, ReportStatus, Sex, Stage
 from reporting.scoring import IschemiaExtent, PerfusionResponse, WallMotionResponse
 from reporting.segments import Ring, SegmentModel, Territory
@@ -27,11 +29,22 @@ class _Result(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
 
-class StudyHeader(_Result):
-    """Identification of the study, as entered."""
+def _no_default(schema: dict[str, Any]) -> None:
+    schema.pop("default", None)
 
-    id: str = Field(description="Study id.")
-    date: dt.date = Field(description="Date of the study.")
+
+class StudyHeader(_Result):
+    """Identification of the study, as entered (or de-identified: see ``deidentified``)."""
+
+    id: str = Field(description="Study id (a keyed hash in a de-identified record).")
+    date: dt.date | None = Field(
+        description="Date of the study; null in a de-identified record, which keeps the year only."
+    )
+    year: int = Field(
+        default=0,  # filled from the date by _year_from_date; 0 never survives validation
+        description="Year of the study (always given; the only part of the date kept when de-identified).",
+        json_schema_extra=_no_default,
+    )
     lab: str | None = Field(description="Echo lab (the study's, else the lab settings').")
     lab_address: str | None = Field(
         description="Lab address or contact line from the lab settings."
@@ -42,16 +55,49 @@ class StudyHeader(_Result):
     report_status: ReportStatus = Field(description="preliminary or final.")
     indication: str | None = Field(description="Reason for the test.")
     comments: str | None = Field(description="Reader's comments.")
+    deidentified: bool = Field(
+        default=False,
+        description="True when names, record numbers, dates finer than the year, ages over 89 and "
+        "(unless kept) free text were removed and the ids replaced by keyed hashes "
+        "(HIPAA Safe Harbor, 45 CFR 164.514(b)(2)).",
+    )
+
+    @model_validator(mode="before")
+    @classmethod
+    def _year_from_date(cls, data: Any) -> Any:
+        # The year follows from the date unless de-identification removed the date.
+        if isinstance(data, dict) and not data.get("year") and data.get("date") is not None:
+            date = data["date"]
+            text = date.isoformat() if isinstance(date, dt.date) else str(date)
+            if text[:4].isdigit():
+                data = {**data, "year": int(text[:4])}
+        return data
+
+    @model_validator(mode="after")
+    def _year_fits_date(self) -> StudyHeader:
+        if self.year <= 0:
+            raise ValueError("year is required when the date is null")
+        if self.date is not None and self.date.year != self.year:
+            raise ValueError(f"year {self.year} does not match the date {self.date.isoformat()}")
+        return self
 
 
 class PatientSummary(_Result):
     """Patient details carried into the report."""
 
-    id: str | None = Field(description="Patient or record number.")
+    id: str | None = Field(
+        description="Patient or record number (a keyed hash in a de-identified record)."
+    )
     name: str | None = Field(description="Patient name.")
     birth_date: dt.date | None = Field(description="Date of birth.")
     age_years: int | None = Field(
-        description="Age at the study in whole years (given or derived from the birth date)."
+        description="Age at the study in whole years (given or derived from the birth date); "
+        "null when withheld as 90 or over."
+    )
+    age_group: Literal["90+"] | None = Field(
+        default=None,
+        description="'90+' when the age is 90 or over and withheld from a de-identified record "
+        "(45 CFR 164.514(b)(2)(i)(C)); age_years is then null.",
     )
     sex: Sex | None = Field(description="Sex as recorded.")
 
@@ -306,6 +352,10 @@ class Analysis(_Result):
     segments: list[SegmentResult] = Field(description="Per-segment results in segment order.")
     territories: dict[Territory, TerritoryResult] = Field(description="Per-territory results.")
     perfusion: PerfusionResult = Field(description="Contrast perfusion summary.")
+    kinetics: KineticsResult | None = Field(
+        default=None,
+        description="Replenishment kinetics from the study's time-intensity curves; null without curves.",
+    )
     stress: StressResult = Field(description="Stress adequacy and exercise indices.")
     conclusion: Conclusion = Field(description="Conclusions and high-risk findings.")
     notes: list[Note] = Field(description="Image-quality, protocol and interpretation notes.")
