@@ -15,6 +15,7 @@ from typing import TYPE_CHECKING
 
 from reporting import scoring, stress
 from reporting.errors import InputError
+from reporting.findings import high_risk_findings, quality_notes
 from reporting.load import load_study
 from reporting.model import STRESS_STAGES, Protocol, Stage, Study
 from reporting.results import (
@@ -22,8 +23,6 @@ from reporting.results import (
     Analysis,
     Conclusion,
     DiagnosticStatus,
-    FindingCode,
-    HighRiskFinding,
     Note,
     NoteKind,
     PatientSummary,
@@ -47,7 +46,6 @@ from reporting.segments import (
     SegmentModel,
     Territory,
     TerritoryMap,
-    adjacency,
     built_in_map,
     load_territory_map,
     segments_of,
@@ -156,7 +154,7 @@ def analyze(
         )
     stress_result, stress_notes = _stress_result(study, settings)
     conclusion = _conclusion(study, settings, segments, territories, wall, wmsi, stress_result)
-    notes = stress_notes + _notes(study, settings, segments, wall, perf, conclusion)
+    notes = stress_notes + quality_notes(study, settings, segments, wall, perf, conclusion)
     log.debug(
         "analysed %s: %d segments, status %s", study.study.id, len(segments), conclusion.status
     )
@@ -457,203 +455,7 @@ def _conclusion(
         akinetic_to_dyskinetic_segments=[
             s.number for s in segments if s.response is WallMotionResponse.AKINETIC_TO_DYSKINETIC
         ],
-        high_risk_findings=_high_risk(
+        high_risk_findings=high_risk_findings(
             study, settings, wm_ischemic, ischemic_territories, wall, wmsi, stress_result
         ),
     )
-
-
-def _high_risk(
-    study: Study,
-    settings: Settings,
-    wm_ischemic: list[int],
-    ischemic_territories: list[Territory],
-    wall: dict[Stage, dict[int, int | None]],
-    wmsi: dict[Stage, float],
-    stress_result: StressResult,
-) -> list[HighRiskFinding]:
-    src = Settings.sources()
-    found: list[HighRiskFinding] = []
-
-    def add(code: FindingCode, detail: str, setting: str) -> None:
-        found.append(HighRiskFinding(code=code, detail=detail, source=src[setting]))
-
-    rest = wall.get(Stage.REST)
-    if rest is not None:
-        for stage in STRESS_STAGES:
-            if stage not in wall:
-                continue
-            data = study.stages[stage]
-            low_dose = (
-                stage is Stage.LOW_DOSE
-                and study.protocol is Protocol.DOBUTAMINE
-                and (
-                    data.dose_ug_kg_min is None
-                    or data.dose_ug_kg_min <= settings.dobutamine_low_dose_max_ug_kg_min
-                )
-            )
-            low_rate = (
-                data.heart_rate_bpm is not None
-                and data.heart_rate_bpm < settings.low_heart_rate_bpm
-            )
-            worse = scoring.newly_abnormal(rest, wall[stage])
-            if (low_dose or low_rate) and len(
-                worse
-            ) >= settings.low_threshold_abnormal_segments_min:
-                when = []
-                if data.dose_ug_kg_min is not None:
-                    when.append(f"dobutamine {data.dose_ug_kg_min:g} μg/kg/min")
-                if data.heart_rate_bpm is not None:
-                    when.append(f"heart rate {data.heart_rate_bpm} bpm")
-                context = f" ({', '.join(when)})" if when else ""
-                add(
-                    FindingCode.LOW_THRESHOLD_ISCHEMIA,
-                    f"{len(worse)} segments newly abnormal at {stage.value.replace('_', ' ')}{context}: {_nums(worse)}.",
-                    "low_threshold_abnormal_segments_min",
-                )
-                break
-    if len(wm_ischemic) >= settings.extensive_ischemia_segments_min:
-        add(
-            FindingCode.EXTENSIVE_ISCHEMIA,
-            f"Ischaemia in {len(wm_ischemic)} segments: {_nums(wm_ischemic)}.",
-            "extensive_ischemia_segments_min",
-        )
-    if len(ischemic_territories) >= settings.multivessel_territories_min:
-        add(
-            FindingCode.MULTIVESSEL_ISCHEMIA,
-            f"Ischaemia in {len(ischemic_territories)} territories: {', '.join(ischemic_territories)}.",
-            "multivessel_territories_min",
-        )
-    rest_data = study.stages.get(Stage.REST)
-    peak_data = study.stages.get(Stage.PEAK)
-    if (
-        rest_data
-        and rest_data.lvef_percent is not None
-        and rest_data.lvef_percent < settings.resting_ef_high_risk_below_percent
-    ):
-        add(
-            FindingCode.LOW_RESTING_EF,
-            f"Resting LVEF {rest_data.lvef_percent:g} %.",
-            "resting_ef_high_risk_below_percent",
-        )
-    if Stage.PEAK in wmsi and wmsi[Stage.PEAK] > settings.peak_wmsi_high_risk_above:
-        add(
-            FindingCode.HIGH_PEAK_WMSI,
-            f"Peak WMSI {wmsi[Stage.PEAK]:.2f}.",
-            "peak_wmsi_high_risk_above",
-        )
-    if rest_data and peak_data:
-        if rest_data.lv_esv_ml is not None and peak_data.lv_esv_ml is not None:
-            rise = peak_data.lv_esv_ml - rest_data.lv_esv_ml
-            if rise > settings.esv_rise_high_risk_above_ml:
-                add(
-                    FindingCode.ESV_RISE,
-                    f"LV end-systolic volume rose from {rest_data.lv_esv_ml:g} to {peak_data.lv_esv_ml:g} mL.",
-                    "esv_rise_high_risk_above_ml",
-                )
-        if rest_data.lvef_percent is not None and peak_data.lvef_percent is not None:
-            fall = rest_data.lvef_percent - peak_data.lvef_percent
-            if fall > settings.ef_fall_high_risk_above_percent:
-                add(
-                    FindingCode.EF_FALL,
-                    f"LVEF fell from {rest_data.lvef_percent:g} % to {peak_data.lvef_percent:g} %.",
-                    "ef_fall_high_risk_above_percent",
-                )
-    if (
-        stress_result.duke_risk is stress.DukeRisk.HIGH
-        and stress_result.duke_treadmill_score is not None
-    ):
-        add(
-            FindingCode.DUKE_HIGH_RISK,
-            f"Duke treadmill score {stress_result.duke_treadmill_score:g}.",
-            "duke_high_risk_max",
-        )
-    return found
-
-
-def _notes(
-    study: Study,
-    settings: Settings,
-    segments: list[SegmentResult],
-    wall: dict[Stage, dict[int, int | None]],
-    perf: dict[Stage, dict[int, int | None]],
-    conclusion: Conclusion,
-) -> list[Note]:
-    src = Settings.sources()
-    notes: list[Note] = []
-    touching = adjacency(study.segment_model)
-    suggest_at: list[str] = []
-    for stage, scores in wall.items():
-        unseen = [n for n, score in scores.items() if score is None]
-        if not unseen:
-            continue
-        notes.append(
-            Note(
-                kind=NoteKind.NOT_VISUALISED,
-                text=f"Not visualised at {_stage_text(stage)}: segments {_nums(unseen)}.",
-                source=None,
-            )
-        )
-        groups = scoring.connected_groups(unseen, touching)
-        if groups and len(groups[0]) >= settings.contrast_suggest_contiguous_not_visualised_min:
-            suggest_at.append(f"{_stage_text(stage)} (segments {_nums(groups[0])})")
-    if suggest_at and study.contrast is None:
-        notes.append(
-            Note(
-                kind=NoteKind.SUGGEST_CONTRAST,
-                text="Contiguous segments were not visualised at "
-                + "; ".join(suggest_at)
-                + ": an ultrasound-enhancing agent is suggested for border definition.",
-                source=src["contrast_suggest_contiguous_not_visualised_min"],
-            )
-        )
-    if perf and study.contrast is None:
-        notes.append(
-            Note(
-                kind=NoteKind.PERFUSION_WITHOUT_CONTRAST,
-                text="Perfusion scores were entered but no enhancing agent is recorded; check the contrast details.",
-                source=None,
-            )
-        )
-    if (
-        perf
-        and study.contrast
-        and study.contrast.imaging_mi is not None
-        and study.contrast.imaging_mi > settings.low_mi_max
-    ):
-        notes.append(
-            Note(
-                kind=NoteKind.HIGH_MI_PERFUSION,
-                text=f"Perfusion was imaged at mechanical index {study.contrast.imaging_mi:g}, above the low-MI range "
-                f"(≤ {settings.low_mi_max:g}); microbubble destruction may mimic perfusion defects.",
-                source=src["low_mi_max"],
-            )
-        )
-    if study.perfusion_curves and study.contrast and study.contrast.administration.value == "bolus":
-        notes.append(
-            Note(
-                kind=NoteKind.BOLUS_QUANTIFICATION,
-                text="Replenishment curves were acquired with bolus injection; quantification assumes the steady "
-                "state of a continuous infusion, so the fitted values are unreliable.",
-                source="Wei K et al., Circulation 1998;97:473 (model requires constant infusion) [C]",
-            )
-        )
-    biphasic = [s.number for s in segments if s.response is WallMotionResponse.BIPHASIC]
-    if len(biphasic) >= settings.viability_biphasic_segments_min:
-        notes.append(
-            Note(
-                kind=NoteKind.VIABILITY,
-                text=f"{len(biphasic)} segments show a biphasic response (segments {_nums(biphasic)}); "
-                "recovery of global function after revascularisation is likely.",
-                source=src["viability_biphasic_segments_min"],
-            )
-        )
-    return notes
-
-
-def _stage_text(stage: Stage) -> str:
-    return stage.value.replace("_", " ")
-
-
-def _nums(numbers: list[int]) -> str:
-    return ", ".join(str(n) for n in numbers)
