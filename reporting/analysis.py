@@ -154,7 +154,7 @@ def analyze(
         )
     stress_result, stress_notes = _stress_result(study, settings)
     conclusion = _conclusion(study, settings, segments, territories, wall, wmsi, stress_result)
-    notes = stress_notes + quality_notes(study, settings, segments, wall, perf, conclusion)
+    notes = stress_notes + quality_notes(study, settings, segments, wall, perf)
     log.debug(
         "analysed %s: %d segments, status %s", study.study.id, len(segments), conclusion.status
     )

@@ -11,7 +11,6 @@ from __future__ import annotations
 from reporting import scoring, stress
 from reporting.model import STRESS_STAGES, Administration, Protocol, Stage, Study
 from reporting.results import (
-    Conclusion,
     FindingCode,
     HighRiskFinding,
     Note,
@@ -33,6 +32,7 @@ def high_risk_findings(
     wmsi: dict[Stage, float],
     stress_result: StressResult,
 ) -> list[HighRiskFinding]:
+    """Every high-risk finding the study shows, each with its evidence and source."""
     src = Settings.sources()
     found: list[HighRiskFinding] = []
 
@@ -138,8 +138,8 @@ def quality_notes(
     segments: list[SegmentResult],
     wall: dict[Stage, dict[int, int | None]],
     perf: dict[Stage, dict[int, int | None]],
-    conclusion: Conclusion,
 ) -> list[Note]:
+    """Notes on unseen segments, contrast use, imaging settings and viability."""
     src = Settings.sources()
     notes: list[Note] = []
     touching = adjacency(study.segment_model)
