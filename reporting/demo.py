@@ -31,8 +31,13 @@ def demo_study_text(name: str) -> str:
     )
 
 
-def write_demo(outdir: Path) -> list[Path]:
-    """Write every demo study and its record into ``outdir``; return the paths written."""
+def write_demo(outdir: Path, *, reports: bool = True) -> list[Path]:
+    """Write every demo study (with its curve files) and its outputs into ``outdir``.
+
+    With ``reports`` (the default) each study gets its record, bull's-eye SVG maps and PDF; without,
+    only its record.
+    """
+    folder = resources.files("reporting.data").joinpath("demo")
     written: list[Path] = []
     for name in demo_study_names():
         study_path = outdir / name
@@ -40,10 +45,17 @@ def write_demo(outdir: Path) -> list[Path]:
         written.append(study_path)
         curves = load_study(study_path).perfusion_curves
         if curves is not None:  # the curve file travels beside its study
-            write_atomic(outdir / curves, demo_study_text(curves))
+            write_atomic(outdir / curves, folder.joinpath(curves).read_bytes())
             written.append(outdir / curves)
         analysis = analyze_file(study_path)
-        record_path = outdir / f"{analysis.study.id}.record.json"
-        write_atomic(record_path, record_json(analysis))
-        written.append(record_path)
+        if reports:
+            from reporting.render import (
+                write_report,
+            )  # reportlab loads only when reports are wanted
+
+            written += write_report(analysis, outdir)
+        else:
+            record_path = outdir / f"{analysis.study.id}.record.json"
+            write_atomic(record_path, record_json(analysis))
+            written.append(record_path)
     return written

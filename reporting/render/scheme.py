@@ -1,0 +1,79 @@
+"""Our colour scheme for the maps: what each score, response and territory looks like.
+
+Built from published colour-blind-safe palettes (see :mod:`reporting.render.style`): ColorBrewer
+sequential "YlOrBr" for wall-motion scores and "Blues" for perfusion scores, Okabe–Ito for response
+categories and territories. Every category also has a digit or letter so greyscale prints stay
+readable.
+"""
+
+from __future__ import annotations
+
+from enum import StrEnum
+
+from reportlab.lib.colors import Color
+
+from reporting.render import style
+from reporting.scoring import WallMotionResponse
+from reporting.segments import Territory
+
+
+class MapKind(StrEnum):
+    """What a bull's-eye map shows."""
+
+    SEGMENTS = "segments"
+    """Segment numbers on their territories (the key to the other maps)."""
+    WALL_MOTION = "wall_motion"
+    """Wall-motion scores at one stage."""
+    RESPONSE = "response"
+    """Segment response from rest through stress."""
+    PERFUSION = "perfusion"
+    """Contrast perfusion scores at one stage."""
+    RESERVE = "kinetic_reserve"
+    """Replenishment A·β reserve (stress ÷ rest) per segment, from fitted time-intensity curves."""
+
+
+WALL_MOTION_WORDS = {
+    1: "normal",
+    2: "hypokinetic",
+    3: "akinetic",
+    4: "dyskinetic",
+    5: "aneurysmal",
+}
+PERFUSION_WORDS = {1: "normal", 2: "reduced or delayed", 3: "absent"}
+
+# Okabe–Ito colours for the categories; a letter in each sector for greyscale print.
+RESPONSE_STYLE: dict[WallMotionResponse, tuple[str, str, str]] = {
+    WallMotionResponse.NORMAL: ("#ffffff", "N", "normal"),
+    WallMotionResponse.ISCHEMIC: (style.OKABE_ITO["vermillion"], "I", "ischaemic"),
+    WallMotionResponse.BIPHASIC: (style.OKABE_ITO["reddish_purple"], "B", "biphasic"),
+    WallMotionResponse.SUSTAINED_IMPROVEMENT: (
+        style.OKABE_ITO["bluish_green"],
+        "V",
+        "viable, sustained improvement",
+    ),
+    WallMotionResponse.FIXED: (style.OKABE_ITO["blue"], "F", "fixed"),
+    WallMotionResponse.AKINETIC_TO_DYSKINETIC: (
+        style.OKABE_ITO["yellow"],
+        "D",
+        "akinetic to dyskinetic",
+    ),
+}
+TERRITORY_FILL = {
+    Territory.LAD: style.tint(style.OKABE_ITO["sky_blue"], 0.5),
+    Territory.LCX: style.tint(style.OKABE_ITO["orange"], 0.45),
+    Territory.RCA: style.tint(style.OKABE_ITO["bluish_green"], 0.55),
+}
+
+
+# Kinetic reserve: light where the A·β reserve is at or above the cut-off, Okabe–Ito orange below it;
+# the value itself is printed in each sector.
+RESERVE_ADEQUATE = style.hex_color(style.BLUES_3[0])
+RESERVE_LOW = style.hex_color(style.OKABE_ITO["orange"])
+
+
+def wall_motion_fill(score: int) -> Color:
+    return style.hex_color(style.YLORBR_5[score - 1])
+
+
+def perfusion_fill(score: int) -> Color:
+    return style.hex_color(style.BLUES_3[score - 1])

@@ -1,0 +1,174 @@
+"""Colours, fonts and text safety shared by the maps and the PDF.
+
+The colours are our own scheme built from two published colour-blind-safe palettes: the sequential
+ColorBrewer schemes of Harrower M & Brewer CA, Cartographic Journal 2003;40:27–37 ("YlOrBr" for wall
+motion, "Blues" for perfusion) and the qualitative Okabe–Ito palette (Okabe M & Ito K, "Color
+Universal Design", 2002/2008) for categories. Every sector also carries a digit, a letter or a hatch,
+so a map stays readable when printed in greyscale.
+
+Free text from users passes through :func:`markup_text` before it reaches reportlab paragraph markup:
+XML special characters are escaped, control characters dropped, and characters the body font has no
+glyph for are replaced by U+FFFD (or ``?``), so hostile text never breaks the layout or the parser.
+"""
+
+from __future__ import annotations
+
+import logging
+import re
+from dataclasses import dataclass
+from functools import cache
+from pathlib import Path
+from xml.sax.saxutils import escape
+
+from reportlab.lib import colors
+from reportlab.lib.colors import Color
+from reportlab.pdfbase import pdfmetrics
+from reportlab.pdfbase.ttfonts import TTFont
+
+log = logging.getLogger(__name__)
+
+# --- palettes ---------------------------------------------------------------------------------
+
+# ColorBrewer "YlOrBr", 5 classes (Harrower & Brewer 2003): sequential, colour-blind safe.
+YLORBR_5 = ("#ffffd4", "#fed98e", "#fe9929", "#d95f0e", "#993404")
+# ColorBrewer "Blues", 3 classes (Harrower & Brewer 2003).
+BLUES_3 = ("#eff3ff", "#9ecae1", "#3182bd")
+# Okabe–Ito qualitative palette (Okabe & Ito 2008), colour-blind safe.
+OKABE_ITO = {
+    "orange": "#E69F00",
+    "sky_blue": "#56B4E9",
+    "bluish_green": "#009E73",
+    "yellow": "#F0E442",
+    "blue": "#0072B2",
+    "vermillion": "#D55E00",
+    "reddish_purple": "#CC79A7",
+    "black": "#000000",
+}
+
+INK = colors.HexColor("#1a1a1a")
+MUTED = colors.HexColor("#5f5f5f")
+RULE = colors.HexColor("#9a9a9a")
+PANEL = colors.HexColor("#f2f2f2")
+NOT_SEEN_FILL = colors.HexColor("#e6e6e6")
+WHITE = colors.white
+
+
+def hex_color(value: str) -> Color:
+    return colors.HexColor(value)
+
+
+def tint(value: str, amount: float) -> Color:
+    """``value`` mixed with white; ``amount`` 0 keeps the colour, 1 gives white."""
+    base = colors.HexColor(value)
+    return Color(
+        base.red + (1 - base.red) * amount,
+        base.green + (1 - base.green) * amount,
+        base.blue + (1 - base.blue) * amount,
+    )
+
+
+def text_on(fill: Color) -> Color:
+    """Black or white, whichever reads better on ``fill`` (relative luminance, WCAG 2.x)."""
+
+    def channel(c: float) -> float:
+        return c / 12.92 if c <= 0.03928 else ((c + 0.055) / 1.055) ** 2.4
+
+    luminance = (
+        0.2126 * channel(fill.red) + 0.7152 * channel(fill.green) + 0.0722 * channel(fill.blue)
+    )
+    # Contrast with black (L + 0.05) / 0.05 against white 1.05 / (L + 0.05): black wins above ~0.18.
+    return INK if luminance > 0.18 else WHITE
+
+
+# --- fonts --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Fonts:
+    """Font names registered with reportlab for one family."""
+
+    regular: str
+    bold: str
+    italic: str
+    embedded: bool
+
+
+# DejaVu Sans covers Latin, Greek, Cyrillic, Armenian, Georgian, Hebrew and Arabic letters and many
+# symbols; the Vera fonts shipped with reportlab are the fallback (Latin only); Helvetica last.
+_FAMILIES = (
+    ("DejaVuSans", ("DejaVuSans.ttf", "DejaVuSans-Bold.ttf", "DejaVuSans-Oblique.ttf")),
+    ("Vera", ("Vera.ttf", "VeraBd.ttf", "VeraIt.ttf")),
+)
+_FONT_DIRS = (
+    "/usr/share/fonts/truetype/dejavu",
+    "/usr/share/fonts/dejavu",
+    "/usr/share/fonts/TTF",
+    "/usr/local/share/fonts",
+    "/Library/Fonts",
+    "C:/Windows/Fonts",
+)
+MAP_FONTS = Fonts("Helvetica", "Helvetica-Bold", "Helvetica-Oblique", embedded=False)
+
+
+def _find(filename: str) -> Path | None:
+    import reportlab
+
+    dirs = [*_FONT_DIRS, str(Path(reportlab.__file__).parent / "fonts")]
+    for folder in dirs:
+        candidate = Path(folder) / filename
+        if candidate.is_file():
+            return candidate
+    return None
+
+
+@cache
+def body_fonts() -> Fonts:
+    """The embedded Unicode font family for the PDF, registered once per process."""
+    from reportlab.lib.fonts import addMapping
+
+    for family, files in _FAMILIES:
+        paths = [_find(f) for f in files]
+        if not all(paths):
+            continue
+        names = (family, f"{family}-Bold", f"{family}-Italic")
+        try:
+            for name, path in zip(names, paths, strict=True):
+                pdfmetrics.registerFont(TTFont(name, str(path)))
+        except Exception as exc:  # a damaged font file: try the next family
+            log.warning("cannot use font %s: %s", family, exc)
+            continue
+        addMapping(family, 0, 0, names[0])
+        addMapping(family, 1, 0, names[1])
+        addMapping(family, 0, 1, names[2])
+        addMapping(family, 1, 1, names[1])
+        return Fonts(*names, embedded=True)
+    log.warning("no Unicode TrueType font found; non-Latin text will not render")
+    return Fonts("Helvetica", "Helvetica-Bold", "Helvetica-Oblique", embedded=False)
+
+
+@cache
+def _glyphs(font_name: str) -> frozenset[int] | None:
+    font = pdfmetrics.getFont(font_name)
+    face = getattr(font, "face", None)
+    mapping = getattr(face, "charToGlyph", None)
+    return frozenset(mapping) if mapping else None
+
+
+_CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f\ud800-\udfff\ufeff]")
+_WINANSI = frozenset(range(0x20, 0x7F)) | frozenset(range(0xA0, 0x100))
+REPLACEMENT = "\ufffd"
+
+
+def printable(text: str, font_name: str) -> str:
+    """``text`` with control characters removed and unknown glyphs replaced."""
+    text = _CONTROL.sub("", text.replace("\r\n", "\n").replace("\t", " "))
+    known = _glyphs(font_name)
+    if known is None:
+        known = _WINANSI | frozenset(map(ord, "–—‘’“”•…€™"))
+    fallback = REPLACEMENT if ord(REPLACEMENT) in known else "?"
+    return "".join(c if ord(c) in known or c == "\n" else fallback for c in text)
+
+
+def markup_text(text: str, font_name: str) -> str:
+    """Free text made safe for reportlab Paragraph markup (escaped, line breaks kept)."""
+    return escape(printable(text, font_name)).replace("\n", "<br/>")

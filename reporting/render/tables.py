@@ -1,0 +1,179 @@
+"""The PDF's data tables: WMSI and findings per territory, haemodynamics and LV function per stage.
+
+Cells hold computed text; a cell becomes a wrapping Paragraph only when its text is wider than the
+column, which keeps table layout cheap. Any text that reaches Paragraph markup is escaped first.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+from reportlab.lib.styles import ParagraphStyle
+from reportlab.pdfbase.pdfmetrics import stringWidth
+from reportlab.platypus import Flowable, Paragraph, Table, TableStyle
+
+from reporting.render import diagram, style
+from reporting.results import Analysis
+from reporting.segments import Territory
+
+
+def _p(text: str, st: ParagraphStyle) -> Paragraph:
+    return Paragraph(style.markup_text(text, st.fontName), st)
+
+
+def _dash(value: Any) -> str:
+    return "–" if value is None or value == "" else str(value)
+
+
+def data_table(
+    rows: list[list[str]],
+    widths: list[float],
+    st: dict[str, ParagraphStyle],
+    bold_rows: tuple[int, ...] = (0,),
+    bold_first_column: bool = False,
+) -> Table:
+    """A data table of computed text; a cell becomes a wrapping Paragraph only when it must wrap."""
+    regular, bold = st["cell"], st["cell_bold"]
+    padding = 3
+    cells: list[list[str | Flowable]] = []
+    for r, row in enumerate(rows):
+        out: list[str | Flowable] = []
+        for c, text in enumerate(row):
+            is_bold = r in bold_rows or r - len(rows) in bold_rows or (bold_first_column and c == 0)
+            ps = bold if is_bold else regular
+            if stringWidth(text, ps.fontName, ps.fontSize) <= widths[c] - 2 * padding:
+                out.append(text)
+            else:
+                out.append(_p(text, ps))
+        cells.append(out)
+    table = Table(cells, colWidths=widths, repeatRows=1, hAlign="LEFT")
+    commands: list[tuple[Any, ...]] = [
+        ("FONT", (0, 0), (-1, -1), regular.fontName, regular.fontSize, regular.leading),
+        ("TEXTCOLOR", (0, 0), (-1, -1), style.INK),
+        ("BACKGROUND", (0, 0), (-1, 0), style.PANEL),
+        ("LINEBELOW", (0, 0), (-1, 0), 0.8, style.INK),
+        ("LINEBELOW", (0, 1), (-1, -1), 0.3, style.RULE),
+        ("VALIGN", (0, 0), (-1, -1), "TOP"),
+        ("LEFTPADDING", (0, 0), (-1, -1), padding),
+        ("RIGHTPADDING", (0, 0), (-1, -1), padding),
+        ("TOPPADDING", (0, 0), (-1, -1), 2),
+        ("BOTTOMPADDING", (0, 0), (-1, -1), 2.5),
+    ]
+    for r in bold_rows:
+        commands.append(("FONT", (0, r), (-1, r), bold.fontName, bold.fontSize, bold.leading))
+        commands.append(("VALIGN", (0, r), (-1, r), "TOP"))
+    if bold_first_column:
+        commands.append(("FONT", (0, 0), (0, -1), bold.fontName, bold.fontSize, bold.leading))
+    table.setStyle(TableStyle(commands))
+    return table
+
+
+def territory_table(analysis: Analysis, width: float, st: dict[str, ParagraphStyle]) -> Table:
+    stages = [s for s in analysis.stages if s in analysis.segments[0].wall_motion]
+    perfusion = analysis.perfusion.scored
+    head = [
+        "Territory",
+        "Segments",
+        *[f"WMSI {diagram.stage_title(s)}" for s in stages],
+        "Ischaemic segments",
+    ]
+    if perfusion:
+        head.append("Perfusion defects")
+    kinetics = analysis.kinetics.territory_reserve if analysis.kinetics else None
+    if kinetics is not None:
+        head.append("Flow reserve (A·β)")
+    rows: list[list[str]] = [head]
+    for territory in Territory:
+        t = analysis.territories[territory]
+        cells = [territory.value, _nums(t.segments) or "none under this map"]
+        cells += [_fmt(t.wmsi.get(s)) for s in stages]
+        cells.append(_nums(t.ischemic_segments) or "none")
+        if perfusion:
+            parts = []
+            if t.reversible_perfusion_segments:
+                parts.append(f"reversible {_nums(t.reversible_perfusion_segments)}")
+            if t.fixed_perfusion_segments:
+                parts.append(f"fixed {_nums(t.fixed_perfusion_segments)}")
+            cells.append("; ".join(parts) or "none")
+        if kinetics is not None:
+            reserve = kinetics.get(territory)
+            value = reserve.A_beta_reserve if reserve is not None else None
+            low = " (low)" if reserve is not None and reserve.flags else ""
+            cells.append("–" if value is None else f"{value:.2f}{low}")
+        rows.append(cells)
+    glob = [
+        "Whole LV",
+        f"{len(analysis.segments)} segments",
+        *[_fmt(analysis.wmsi.get(s)) for s in stages],
+    ]
+    glob.append(str(analysis.conclusion.ischemic_segment_count))
+    if perfusion:
+        glob.append(
+            f"{len(analysis.perfusion.reversible_segments) + len(analysis.perfusion.partially_reversible_segments)} reversible, {len(analysis.perfusion.fixed_segments)} fixed"
+        )
+    if kinetics is not None:
+        glob.append("")
+    rows.append(glob)
+    fixed = [0.11, 0.19] + [0.09] * len(stages)
+    if kinetics is not None:
+        fixed.append(0.13)
+    rest = 1 - sum(fixed)
+    widths = [f * width for f in fixed[: 2 + len(stages)]]
+    widths += [rest * 0.5 * width] * 2 if perfusion else [rest * width]
+    if kinetics is not None:
+        widths.append(fixed[-1] * width)
+    return data_table(rows, widths, st, bold_rows=(0, -1), bold_first_column=True)
+
+
+def _fmt(value: float | None) -> str:
+    return "–" if value is None else f"{value:.2f}"
+
+
+def _nums(values: Sequence[int]) -> str:
+    return ", ".join(str(v) for v in values)
+
+
+def haemodynamics_table(analysis: Analysis, width: float, st: dict[str, ParagraphStyle]) -> Table:
+    h = analysis.haemodynamics
+    stages = [s for s in analysis.stages if s in h]
+    dose = any(h[s].dose_ug_kg_min is not None or h[s].atropine_mg is not None for s in stages)
+    lvef = any(h[s].lvef_percent is not None for s in stages)
+    esv = any(h[s].lv_esv_ml is not None for s in stages)
+    head = ["Stage"]
+    if dose:
+        head.append("Dobutamine / atropine")
+    head += ["Heart rate (bpm)", "% of predicted", "BP (mmHg)", "Rate–pressure product"]
+    if lvef:
+        head.append("LVEF (%)")
+    if esv:
+        head.append("LV ESV (mL)")
+    rows: list[list[str]] = [head]
+    for s in stages:
+        d = h[s]
+        cells = [diagram.stage_title(s).capitalize()]
+        if dose:
+            parts = []
+            if d.dose_ug_kg_min is not None:
+                parts.append(f"{d.dose_ug_kg_min:g} μg/kg/min")
+            if d.atropine_mg:
+                parts.append(f"atropine {d.atropine_mg:g} mg")
+            cells.append(", ".join(parts) or "–")
+        bp = (
+            f"{d.systolic_bp_mmhg}/{d.diastolic_bp_mmhg}"
+            if d.systolic_bp_mmhg is not None and d.diastolic_bp_mmhg is not None
+            else _dash(d.systolic_bp_mmhg)
+        )
+        cells += [
+            _dash(d.heart_rate_bpm),
+            "–" if d.hr_percent_of_predicted is None else f"{d.hr_percent_of_predicted:.0f} %",
+            bp,
+            _dash(d.rate_pressure_product),
+        ]
+        if lvef:
+            cells.append("–" if d.lvef_percent is None else f"{d.lvef_percent:g}")
+        if esv:
+            cells.append("–" if d.lv_esv_ml is None else f"{d.lv_esv_ml:g}")
+        rows.append(cells)
+    weights = [1.0] + ([2.0] if dose else []) + [1.0, 1.0, 1.0, 1.4] + [0.9] * (lvef + esv)
+    return data_table(rows, [w / sum(weights) * width for w in weights], st)

@@ -1,0 +1,247 @@
+"""Narrative wording (reporting.render.narrative): golden sentences of the demo studies and rules.
+
+The golden texts are the exact narrative of each invented demo study. Wording rules checked beside
+them: a negative study below the target heart rate is non-diagnostic, never normal (Ballal RS et al.,
+1997); akinesis turning dyskinetic is not ischaemia (Elhendy A et al., Chest 1996; Sozzi FB et al.,
+JASE 2007); extent mild 1–2, moderate–severe ≥ 3 segments (Kataoka A et al., Cardiovasc Ultrasound
+2015;13:47); Duke treadmill score minutes − 5 × ST − 4 × angina index (Mark DB et al., NEJM 1991).
+"""
+
+from __future__ import annotations
+
+import re
+from importlib import resources
+from pathlib import Path
+
+import pytest
+import yaml
+
+from reporting.analysis import analyze
+from reporting.demo import demo_study_names, demo_study_text
+from reporting.errors import InputError
+from reporting.load import study_from_data
+from reporting.render.narrative import (
+    build_narrative,
+    narrative_html,
+    narrative_text,
+    summary,
+    text_blocks,
+)
+from reporting.results import Analysis
+
+GOLDEN = {
+    "DEMO-0001": """\
+Impression
+Negative for inducible ischaemia at adequate stress.
+LAD (segments 1, 2, 7, 8, 13, 14 and 17): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
+LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
+RCA (segments 3, 4, 9, 10 and 15): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
+Territories follow the map 'Standard coronary territories (right-dominant)'; segments 3, 4, 5, 9, 10, 11, 12, 15, 16 and 17 are often supplied by another artery.
+
+Stress and adequacy
+Dobutamine stress echocardiography to 40 μg/kg/min with atropine 0.5 mg; 17-segment model.
+Peak heart rate 148 bpm, 91 % of the age-predicted maximum of 162 bpm (220 − age); the target of 138 bpm (85 %) was reached: adequate stress.
+Peak rate–pressure product 23976 bpm·mmHg.
+
+Wall motion
+Rest: normal wall motion in all 17 segments (WMSI 1.00). LVEF 62 %, end-systolic volume 40 mL.
+Low dose (dobutamine 10 μg/kg/min): normal wall motion in all 17 segments (WMSI 1.00).
+Peak (dobutamine 40 μg/kg/min, atropine 0.5 mg): normal wall motion in all 17 segments (WMSI 1.00). LVEF 74 %, end-systolic volume 25 mL. Symptoms and ECG: No chest pain. No ST change. Occasional ventricular ectopics.
+Recovery: normal wall motion in all 17 segments (WMSI 1.00).
+
+High-risk findings
+None identified.
+""",
+    "DEMO-0002": """\
+Impression
+Positive for inducible ischaemia in the LAD territory, 5 segments (moderate–severe extent).
+LAD (segments 1, 2, 7, 8, 13, 14 and 17): inducible ischaemia in 5 of 7 segments (7, 8, 13, 14 and 17), at worst akinetic at peak; reversible perfusion defect in segments 7, 8, 13, 14 and 17. Territory WMSI 1.00 at rest, 2.00 at peak.
+LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
+RCA (segments 3, 4, 9, 10 and 15): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
+Territories follow the map 'Standard coronary territories (right-dominant)'; segments 3, 4, 5, 9, 10, 11, 12, 15, 16 and 17 are often supplied by another artery.
+
+Stress and adequacy
+Dobutamine stress echocardiography to 40 μg/kg/min with atropine 0.25 mg; 17-segment model.
+Peak heart rate 136 bpm, 88 % of the age-predicted maximum of 154 bpm (220 − age); the target of 131 bpm (85 %) was reached: adequate stress.
+Peak rate–pressure product 22848 bpm·mmHg.
+
+Wall motion
+Rest: normal wall motion in all 17 segments (WMSI 1.00). LVEF 60 %, end-systolic volume 38 mL.
+Low dose (dobutamine 10 μg/kg/min): normal wall motion in all 17 segments (WMSI 1.00).
+Peak (dobutamine 40 μg/kg/min, atropine 0.25 mg): WMSI 1.41. Hypokinetic: segments 7 (mid anterior), 8 (mid anteroseptal) and 13 (apical anterior). Akinetic: segments 14 (apical septal) and 17 (apex). Other segments normal. LVEF 52 %, end-systolic volume 44 mL. Symptoms and ECG: Typical chest pain at peak, relieved in recovery. 1.5 mm horizontal ST depression V3-V5.
+
+Perfusion
+Enhancing agent: lipid-shelled perfluorocarbon microspheres.
+Rest: normal perfusion in all 17 segments; defect extent 0 %.
+Peak: reduced or delayed in segments 7, 8 and 13; absent in segments 14 and 17; defect extent 29 %.
+Reversible defects (inducible ischaemia): segments 7, 8, 13, 14 and 17 (LAD).
+
+High-risk findings
+Extensive ischaemia — ischaemia in 5 segments: 7, 8, 13, 14, 17.
+LV cavity dilation at stress — LV end-systolic volume rose from 38 to 44 mL.
+Fall in ejection fraction at stress — LVEF fell from 60 % to 52 %.
+""",
+    "DEMO-0003": """\
+Impression
+Positive for inducible ischaemia in the LAD territory, 4 segments (moderate–severe extent).
+LAD (segments 1, 2, 7, 8, 13, 14 and 17): inducible ischaemia in 4 of 7 segments (1, 7, 8 and 13), at worst akinetic at peak; biphasic response (viable and ischaemic) in segments 1, 7, 8 and 13; viable with sustained improvement in segment 2; fixed abnormality (no change with stress) in segment 17; akinesis turning dyskinetic in segment 14. Territory WMSI 2.71 at rest, 2.71 at peak.
+LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
+RCA (segments 3, 4, 9, 10 and 15): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
+Akinesis turning dyskinetic at stress in segment 14: a mechanical finding, not counted as ischaemia.
+Territories follow the map 'Standard coronary territories (right-dominant)'; segments 3, 4, 5, 9, 10, 11, 12, 15, 16 and 17 are often supplied by another artery.
+
+Stress and adequacy
+Dobutamine stress echocardiography to 40 μg/kg/min with atropine 1 mg; 17-segment model.
+Peak heart rate 128 bpm, 86 % of the age-predicted maximum of 149 bpm (220 − age); the target of 127 bpm (85 %) was reached: adequate stress.
+Peak rate–pressure product 16128 bpm·mmHg.
+
+Wall motion
+Rest: WMSI 1.71. Hypokinetic: segments 1 (basal anterior) and 2 (basal anteroseptal). Akinetic: segments 7 (mid anterior), 8 (mid anteroseptal), 13 (apical anterior), 14 (apical septal) and 17 (apex). Other segments normal. LVEF 30 %, end-systolic volume 118 mL.
+Low dose (dobutamine 10 μg/kg/min): WMSI 1.41. Hypokinetic: segments 7 (mid anterior), 8 (mid anteroseptal) and 13 (apical anterior). Akinetic: segments 14 (apical septal) and 17 (apex). Other segments normal. LVEF 38 %.
+Peak (dobutamine 40 μg/kg/min, atropine 1 mg): WMSI 1.71. Hypokinetic: segment 1 (basal anterior). Akinetic: segments 7 (mid anterior), 8 (mid anteroseptal), 13 (apical anterior) and 17 (apex). Dyskinetic: segment 14 (apical septal). Other segments normal. LVEF 31 %, end-systolic volume 110 mL. Symptoms and ECG: Mild chest discomfort at peak. No arrhythmia.
+
+High-risk findings
+Extensive ischaemia — ischaemia in 4 segments: 1, 7, 8, 13.
+Low resting ejection fraction — resting LVEF 30 %.
+High peak WMSI — peak WMSI 1.71.
+
+Image quality and protocol notes
+4 segments show a biphasic response (segments 1, 7, 8, 13); recovery of global function after revascularisation is likely.
+""",
+    "DEMO-0004": """\
+Impression
+Positive for inducible ischaemia in the RCA territory, 2 segments (mild extent).
+LAD (segments 1, 2, 7, 8, 13, 14 and 17): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
+LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
+RCA (segments 3, 4, 9, 10 and 15): inducible ischaemia in 2 of 5 segments (4 and 10), at worst hypokinetic at peak. Territory WMSI 1.00 at rest, 1.40 at peak.
+Territories follow the map 'Standard coronary territories (right-dominant)'; segments 3, 4, 5, 9, 10, 11, 12, 15, 16 and 17 are often supplied by another artery.
+
+Stress and adequacy
+Treadmill exercise stress echocardiography; 17-segment model.
+Peak heart rate 158 bpm, 95 % of the age-predicted maximum of 166 bpm (220 − age); the target of 141 bpm (85 %) was reached: adequate stress.
+Peak rate–pressure product 27492 bpm·mmHg.
+Duke treadmill score −6.5: intermediate risk (Mark DB et al., NEJM 1991).
+Estimated workload 9.2 METs.
+
+Wall motion
+Rest: normal wall motion in all 17 segments (WMSI 1.00). LVEF 64 %.
+Peak: WMSI 1.12. Hypokinetic: segments 4 (basal inferior) and 10 (mid inferior). Other segments normal. LVEF 66 %. Symptoms and ECG: Non-limiting chest pressure at 6 minutes; 2 mm ST depression II, III, aVF.
+
+High-risk findings
+None identified.
+""",
+    "DEMO-0005": """\
+Impression
+Non-diagnostic for ischaemia: no ischaemia was shown, but the target heart rate was not reached (peak 112 bpm, 71 % of the age-predicted maximum; target 133 bpm), so ischaemia is not excluded.
+LAD (segments 1, 2, 7, 8, 13, 14 and 17): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
+LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality in the segments assessed; segments 5, 6 and 12 not assessable. Territory WMSI 1.00 at rest, 1.00 at peak.
+RCA (segments 3, 4, 9, 10 and 15): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
+Territories follow the map 'Standard coronary territories (right-dominant)'; segments 3, 4, 5, 9, 10, 11, 12, 15, 16 and 17 are often supplied by another artery.
+
+Stress and adequacy
+Dobutamine stress echocardiography to 40 μg/kg/min with atropine 1 mg; 17-segment model.
+Peak heart rate 112 bpm, 71 % of the age-predicted maximum of 157 bpm (220 − age); the target of 133 bpm (85 %) was not reached: submaximal stress, so a study without ischaemia is non-diagnostic.
+Peak rate–pressure product 16800 bpm·mmHg.
+
+Wall motion
+Rest: normal wall motion in all 17 segments (WMSI 1.00). LVEF 58 %.
+Low dose (dobutamine 10 μg/kg/min): normal wall motion in all 17 segments (WMSI 1.00).
+Peak (dobutamine 40 μg/kg/min, atropine 1 mg): normal wall motion in the 14 segments visualised (WMSI 1.00). Not visualised: segments 5, 6 and 12. Symptoms and ECG: Test stopped for nausea after maximal dobutamine and atropine.
+
+High-risk findings
+None identified.
+
+Image quality and protocol notes
+Not visualised at peak: segments 5, 6, 12.
+Contiguous segments were not visualised at peak (segments 5, 6, 12): an ultrasound-enhancing agent is suggested for border definition.
+""",
+}
+
+
+def _analysis(name: str) -> Analysis:
+    return analyze(study_from_data(yaml.safe_load(demo_study_text(f"{name}.yaml"))))
+
+
+@pytest.mark.parametrize("name", sorted(GOLDEN), ids=sorted(GOLDEN))
+def test_golden_narrative_of_each_demo_study(name: str) -> None:
+    assert narrative_text(_analysis(name), include_cautions=False) == GOLDEN[name]
+
+
+@pytest.mark.parametrize("name", demo_study_names())
+def test_every_demo_narrative_ends_with_the_cautions(name: str) -> None:
+    analysis = analyze(study_from_data(yaml.safe_load(demo_study_text(name))))
+    blocks = text_blocks(narrative_text(analysis))
+    assert blocks[-1] == ("Cautions", list(analysis.cautions))
+    assert "decision support for qualified clinicians" in " ".join(blocks[-1][1]).lower()
+
+
+def test_below_target_without_ischaemia_is_non_diagnostic_never_normal() -> None:
+    # Ballal RS et al., 1997: a negative study below 85 % of the predicted maximum is non-diagnostic
+    text = narrative_text(_analysis("DEMO-0005"))
+    assert summary(_analysis("DEMO-0005")).startswith("Non-diagnostic for ischaemia")
+    assert "Negative for inducible ischaemia" not in text
+    assert not re.search(r"\bnormal (study|stress echo)", text, re.IGNORECASE)
+
+
+def test_every_segment_unseen_at_peak_is_stated_plainly() -> None:
+    data = yaml.safe_load(demo_study_text("DEMO-0001.yaml"))
+    data["stages"]["peak"]["wall_motion"] = "x" * 17
+    analysis = analyze(study_from_data(data))
+    text = narrative_text(analysis)
+    assert (
+        "Peak (dobutamine 40 μg/kg/min, atropine 0.5 mg): no segment was visualised "
+        "(17 of 17 not visualised); wall motion cannot be assessed." in text
+    )
+    assert text.splitlines()[1] == (
+        "Non-diagnostic for ischaemia: no ischaemia was shown, but no segment could be "
+        "assessed at both rest and peak."
+    )
+
+
+def test_multivessel_wording() -> None:
+    data = yaml.safe_load(demo_study_text("DEMO-0001.yaml"))
+    data["stages"]["peak"]["wall_motion"] = "111211 221111 1111 1"  # RCA 4 and LAD 7, 8
+    analysis = analyze(study_from_data(data))
+    assert summary(analysis) == (
+        "Positive for inducible ischaemia in the LAD and RCA territories, 3 segments "
+        "(moderate–severe extent; multivessel pattern)."
+    )
+
+
+def test_sections_without_content_are_left_out() -> None:
+    keys = [s.key for s in build_narrative(_analysis("DEMO-0001")).sections]
+    assert keys == ["impression", "stress", "wall_motion", "high_risk", "cautions"]
+
+
+def test_lab_template_folder_overrides_the_packaged_template(tmp_path: Path) -> None:
+    (tmp_path / "narrative.txt.j2").write_text(
+        "{% for section in sections %}== {{ section.heading }} ==\n{% endfor %}", encoding="utf-8"
+    )
+    text = narrative_text(_analysis("DEMO-0002"), templates_dir=tmp_path)
+    assert text.startswith("== Impression ==\n== Stress and adequacy ==\n")
+
+
+def test_broken_lab_template_is_a_located_input_error(tmp_path: Path) -> None:
+    # StrictUndefined: an unknown variable is an error, not an empty string
+    (tmp_path / "narrative.txt.j2").write_text("{{ no_such_thing }}", encoding="utf-8")
+    with pytest.raises(InputError, match=r"template narrative\.txt\.j2"):
+        narrative_text(_analysis("DEMO-0002"), templates_dir=tmp_path)
+
+
+def test_html_narrative_escapes_user_text() -> None:
+    data = yaml.safe_load(demo_study_text("DEMO-0002.yaml"))
+    data["stages"]["peak"]["symptoms"] = "<script>alert(1)</script> & </p>"
+    html = narrative_html(analyze(study_from_data(data)))
+    assert "<script>" not in html
+    assert "&lt;script&gt;alert(1)&lt;/script&gt; &amp; &lt;/p&gt;" in html
+
+
+def test_packaged_templates_only_substitute_and_loop() -> None:
+    # STYLE.md: phrasing is decided in Python; templates hold no branching logic
+    folder = resources.files("reporting.render").joinpath("templates")
+    names = [p.name for p in folder.iterdir() if p.name.endswith(".j2")]
+    assert {"narrative.txt.j2", "narrative.html.j2"} <= set(names)
+    for name in names:
+        text = folder.joinpath(name).read_text(encoding="utf-8")
+        tags = re.findall(r"{%-?\s*(\w+)", text)
+        assert set(tags) <= {"for", "endfor"}, name
