@@ -8,6 +8,7 @@ exit code 1 (click's usage errors exit 2). Heavy modules are imported inside the
 
 from __future__ import annotations
 
+import datetime as dt
 import sys
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
@@ -119,6 +120,48 @@ def validate(
 
 
 @main.command()
+@click.argument("study", type=click.Path(path_type=Path))
+@click.option(
+    "-o",
+    "--output",
+    "outdir",
+    required=True,
+    type=click.Path(file_okay=False, path_type=Path),
+    help="Folder for the record, the bull's-eye SVG maps and the PDF (named after the study id).",
+)
+@click.option(
+    "--paper",
+    type=click.Choice(["A4", "Letter"], case_sensitive=False),
+    default="A4",
+    show_default=True,
+    help="Paper size of the PDF.",
+)
+@click.option(
+    "--templates",
+    "templates_dir",
+    type=click.Path(exists=True, file_okay=False, path_type=Path),
+    help="Lab template folder; its files override the packaged narrative templates.",
+)
+@_lab_options
+def report(
+    study: Path,
+    outdir: Path,
+    paper: str,
+    templates_dir: Path | None,
+    settings_path: Path | None,
+    territory_map: str | None,
+) -> None:
+    """Write the record, bull's-eye maps (SVG) and referring-doctor PDF of STUDY into OUTDIR."""
+    from reporting.analysis import analyze_file
+    from reporting.render import write_report
+
+    with _user_errors():
+        analysis = analyze_file(study, settings_path=settings_path, territory_map=territory_map)
+        for path in write_report(analysis, outdir, paper=paper, templates_dir=templates_dir):
+            click.echo(f"Wrote {path}")
+
+
+@main.command()
 @click.option(
     "-o",
     "--output",
@@ -129,7 +172,7 @@ def validate(
     help="Folder for the demo studies and their outputs.",
 )
 def demo(outdir: Path) -> None:
-    """Write the invented demo studies and their records (no input needed)."""
+    """Write the invented demo studies, their records, maps and PDFs (no input needed)."""
     from reporting.demo import write_demo
 
     with _user_errors():
@@ -156,3 +199,162 @@ def schema(outdir: Path | None) -> None:
     for name, build in SCHEMAS.items():
         write_atomic(outdir / name, schema_text(build()))
         click.echo(f"Wrote {outdir / name}")
+
+
+@main.command()
+@click.argument("records", type=click.Path(path_type=Path))
+@click.option(
+    "--angio",
+    "angio_path",
+    required=True,
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Angiography CSV: study_id, vessel (LAD, LCx, RCA or LM), stenosis_percent.",
+)
+@click.option(
+    "-o",
+    "--output",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Write the review JSON here instead of to stdout.",
+)
+@click.option(
+    "--pdf",
+    "pdf_path",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Also write the quality PDF here.",
+)
+@click.option(
+    "--stenosis",
+    "stenosis_percent",
+    type=click.FloatRange(0, 100, min_open=True),
+    help="Diameter stenosis (%) from which a vessel is significant [default: 70].",
+)
+@click.option(
+    "--left-main-stenosis",
+    "left_main_percent",
+    type=click.FloatRange(0, 100, min_open=True),
+    help="Threshold (%) for the left main stem [default: as --stenosis].",
+)
+@click.option(
+    "--from",
+    "date_from",
+    type=click.DateTime(formats=["%Y-%m-%d"]),
+    help="First study date (inclusive).",
+)
+@click.option(
+    "--to",
+    "date_to",
+    type=click.DateTime(formats=["%Y-%m-%d"]),
+    help="Last study date (inclusive).",
+)
+@click.option(
+    "--second-reading",
+    type=click.Path(path_type=Path),
+    help="Records of a second reader of the same studies: adds reader agreement to the PDF.",
+)
+def qa(
+    records: Path,
+    angio_path: Path,
+    output: Path | None,
+    pdf_path: Path | None,
+    stenosis_percent: float | None,
+    left_main_percent: float | None,
+    date_from: dt.datetime | None,
+    date_to: dt.datetime | None,
+    second_reading: Path | None,
+) -> None:
+    """Lab quality review of RECORDS (a folder of records or a registry.ndjson) against angiography."""
+    from reporting.files import all_or_nothing, write_atomic
+    from reporting.qa import review_json, run_agreement, run_review, write_review_pdf
+
+    thresholds = {
+        name: value
+        for name, value in (
+            ("stenosis_percent", stenosis_percent),
+            ("left_main_stenosis_percent", left_main_percent),
+        )
+        if value is not None
+    }
+    with _user_errors():
+        review = run_review(
+            records,
+            angio_path,
+            date_from=date_from.date() if date_from else None,
+            date_to=date_to.date() if date_to else None,
+            **thresholds,
+        )
+        agreement = run_agreement(records, second_reading) if second_reading else None
+        text = review_json(review)
+        written = [p for p in (output, pdf_path) if p is not None]
+        with all_or_nothing(written):
+            if pdf_path is not None:
+                write_review_pdf(review, pdf_path, agreement=agreement)
+            if output is not None:
+                write_atomic(output, text)
+        if output is None:
+            click.echo(text, nl=False)
+        for path in written:
+            click.echo(f"Wrote {path}", err=True)
+
+
+@main.command()
+@click.argument("records_a", type=click.Path(path_type=Path))
+@click.argument("records_b", type=click.Path(path_type=Path))
+@click.option(
+    "-o",
+    "--output",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Write the agreement JSON here instead of to stdout.",
+)
+def agreement(records_a: Path, records_b: Path, output: Path | None) -> None:
+    """Agreement of two readers: RECORDS_A and RECORDS_B matched by study id (Cohen's kappa)."""
+    from reporting.files import write_atomic
+    from reporting.qa import agreement_json, run_agreement
+
+    with _user_errors():
+        text = agreement_json(run_agreement(records_a, records_b))
+        if output is None:
+            click.echo(text, nl=False)
+        else:
+            write_atomic(output, text)
+            click.echo(f"Wrote {output}", err=True)
+
+
+@main.command()
+@click.argument("curves_file", metavar="CURVES", type=click.Path(path_type=Path))
+@click.option(
+    "-o",
+    "--output",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Write the fits (CSV) here instead of to stdout.",
+)
+@click.option(
+    "--segment-model",
+    type=click.Choice(["16", "17", "18"]),
+    help="Segment model of the curve file (default: accept segments 1–18).",
+)
+@click.option(
+    "--settings",
+    "settings_path",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Lab settings file (YAML) overriding the default thresholds.",
+)
+def curves(
+    curves_file: Path, output: Path | None, segment_model: str | None, settings_path: Path | None
+) -> None:
+    """Fit every time-intensity curve in CURVES (CSV) and write one row per fit."""
+    from reporting.files import write_atomic
+    from reporting.kinetics import fit_curve_file, fits_csv_text
+    from reporting.settings import load_settings
+
+    with _user_errors():
+        rows = fit_curve_file(
+            curves_file,
+            segment_model=int(segment_model) if segment_model else None,
+            settings=load_settings(settings_path),
+        )
+        text = fits_csv_text(rows)
+        if output is None:
+            click.echo(text, nl=False)
+        else:
+            write_atomic(output, text)
+            click.echo(f"Wrote {output}", err=True)

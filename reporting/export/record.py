@@ -14,6 +14,7 @@ from reporting.model import Study
 from reporting.results import RECORD_SCHEMA_VERSION, Analysis
 
 SCHEMA_DIALECT = "https://json-schema.org/draft/2020-12/schema"
+SCHEMA_BASE = "https://segreport.invalid/schemas"
 
 
 def record_dict(analysis: Analysis) -> dict[str, Any]:
@@ -36,9 +37,31 @@ def study_schema() -> dict[str, Any]:
     return {"$schema": SCHEMA_DIALECT, **Study.model_json_schema(mode="validation")}
 
 
+def quality_review_schema() -> dict[str, Any]:
+    """JSON Schema of ``segreport qa`` output."""
+    from reporting.qa.review import QualityReview
+
+    return _published(
+        QualityReview.model_json_schema(mode="serialization"), "quality-review-1.schema.json"
+    )
+
+
+def agreement_schema() -> dict[str, Any]:
+    """JSON Schema of ``segreport agreement`` output."""
+    from reporting.qa.agreement import Agreement
+
+    return _published(Agreement.model_json_schema(mode="serialization"), "agreement-1.schema.json")
+
+
+def _published(schema: dict[str, Any], name: str) -> dict[str, Any]:
+    return {"$schema": SCHEMA_DIALECT, "$id": f"{SCHEMA_BASE}/{name}", **schema}
+
+
 SCHEMAS = {
     f"record-{RECORD_SCHEMA_VERSION}.schema.json": record_schema,
     "study-1.schema.json": study_schema,
+    "quality-review-1.schema.json": quality_review_schema,
+    "agreement-1.schema.json": agreement_schema,
 }
 
 
