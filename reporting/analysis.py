@@ -364,9 +364,9 @@ def _stress_result(study: Study, settings: Settings) -> tuple[StressResult, list
         if d.heart_rate_bpm is not None and d.systolic_bp_mmhg is not None
     }
     duke = risk = None
-    if study.exercise is not None:
+    ex = study.exercise
+    if ex is not None:
         if study.protocol in settings.duke_protocols:
-            ex = study.exercise
             duke = stress.duke_treadmill_score(
                 ex.duration_min, ex.max_st_deviation_mm, ex.angina_index
             )
@@ -379,6 +379,7 @@ def _stress_result(study: Study, settings: Settings) -> tuple[StressResult, list
                     source=sources["duke_protocols"],
                 )
             )
+    recovery = ex.hr_recovery_1min_bpm if ex else None
     result = StressResult(
         age_years=age,
         heart_rate_formula=settings.heart_rate_formula,
@@ -393,7 +394,14 @@ def _stress_result(study: Study, settings: Settings) -> tuple[StressResult, list
         rate_pressure_product=rpp,
         duke_treadmill_score=duke,
         duke_risk=risk,
-        mets=study.exercise.mets if study.exercise else None,
+        mets=ex.mets if ex else None,
+        exercise_duration_min=ex.duration_min if ex else None,
+        max_st_deviation_mm=ex.max_st_deviation_mm if ex else None,
+        angina_index=ex.angina_index if ex else None,
+        hr_recovery_1min_bpm=recovery,
+        hr_recovery_abnormal=recovery <= settings.hr_recovery_abnormal_max_bpm
+        if recovery is not None
+        else None,
     )
     return result, notes
 

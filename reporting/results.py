@@ -224,6 +224,22 @@ class StressResult(_Result):
         description="low, intermediate or high; null when not an exercise study."
     )
     mets: float | None = Field(description="Estimated workload (METs).")
+    exercise_duration_min: float | None = Field(
+        default=None, description="Exercise time in minutes (treadmill or bicycle)."
+    )
+    max_st_deviation_mm: float | None = Field(
+        default=None, description="Largest ST deviation during exercise (mm)."
+    )
+    angina_index: int | None = Field(
+        default=None, description="0 none, 1 non-limiting, 2 exercise-limiting angina."
+    )
+    hr_recovery_1min_bpm: int | None = Field(
+        default=None, description="Fall in heart rate in the first minute of recovery (bpm)."
+    )
+    hr_recovery_abnormal: bool | None = Field(
+        default=None,
+        description="Heart-rate recovery at or below the abnormal cut-off; null when not measured.",
+    )
 
 
 class FindingCode(StrEnum):

@@ -95,6 +95,9 @@ class Settings(BaseModel):
     low_mi_max: float = Field(
         gt=0, description="Highest mechanical index counted as low-MI perfusion imaging."
     )
+    hr_recovery_abnormal_max_bpm: float = Field(
+        description="Fall in heart rate (bpm) in the first minute of recovery at or below which recovery is abnormal."
+    )
     lab_name: str | None = Field(
         max_length=200, description="Lab name for report headers when a study names none."
     )

@@ -297,3 +297,12 @@ def test_study_round_trips_through_json(rest: str, peak: dict[int, int | None]) 
     assert again == study
     dumped: Any = json.loads(study.model_dump_json())
     assert study_from_data(dumped) == study
+
+
+@pytest.mark.parametrize("recovery,abnormal", [(12, True), (13, False), (None, None)])
+def test_heart_rate_recovery(recovery: int | None, abnormal: bool | None) -> None:
+    # Heart-rate recovery <= 12 bpm in the first minute is abnormal (Cole CR et al., NEJM 1999).
+    exercise = {"duration_min": 9, "max_st_deviation_mm": 1, "angina_index": 0, "hr_recovery_1min_bpm": recovery}
+    a = analysed(protocol="treadmill", exercise=exercise)
+    assert a.stress.hr_recovery_abnormal is abnormal
+    assert a.stress.exercise_duration_min == 9 and a.stress.angina_index == 0
