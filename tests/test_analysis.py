@@ -275,7 +275,7 @@ def test_territory_wmsi_is_mean_of_its_segments(rest: str, peak: str) -> None:
             scored = [v for v in scores if v is not None]
             expected = sum(scored) / len(scored) if scored else None
             assert result.wmsi[stage] == (pytest.approx(expected) if expected is not None else None)
-    for stage, value in a.wmsi.items():
+    for value in a.wmsi.values():
         assert 1.0 <= value <= 4.0
     ischemic = {s.number for s in a.segments if s.response.value in ("ischemic", "biphasic")}
     assert {n for t in a.territories.values() for n in t.ischemic_segments} == ischemic
@@ -302,7 +302,12 @@ def test_study_round_trips_through_json(rest: str, peak: dict[int, int | None]) 
 @pytest.mark.parametrize("recovery,abnormal", [(12, True), (13, False), (None, None)])
 def test_heart_rate_recovery(recovery: int | None, abnormal: bool | None) -> None:
     # Heart-rate recovery <= 12 bpm in the first minute is abnormal (Cole CR et al., NEJM 1999).
-    exercise = {"duration_min": 9, "max_st_deviation_mm": 1, "angina_index": 0, "hr_recovery_1min_bpm": recovery}
+    exercise = {
+        "duration_min": 9,
+        "max_st_deviation_mm": 1,
+        "angina_index": 0,
+        "hr_recovery_1min_bpm": recovery,
+    }
     a = analysed(protocol="treadmill", exercise=exercise)
     assert a.stress.hr_recovery_abnormal is abnormal
     assert a.stress.exercise_duration_min == 9 and a.stress.angina_index == 0
