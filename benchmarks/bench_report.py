@@ -6,7 +6,9 @@ with the most maps). Prints, in one run and on this machine:
 * the full report in-process (``write_report``: record JSON, every SVG map, the PDF), target ≤ 150 ms;
 * the PDF alone (``pdf_bytes``);
 * the baseline: reportlab's canvas drawing the same map shapes (the already-built Drawings) and the
-  same text (every narrative, table and header string, pre-wrapped) on one page, target: ours ≤ 1.5×;
+  same text (every narrative, table and header string, pre-wrapped) on one page, plus, for a study
+  with time-intensity curves (``reporting/data/demo/DEMO-0006.yaml``), the same fitted-curve grid
+  on a second page, target: ours ≤ 1.5×;
 * a second baseline that adds reportlab's own SVG rendering of the same (pre-built) maps, since the
   full report also writes one SVG per map.
 
@@ -21,7 +23,7 @@ import statistics
 import sys
 import tempfile
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from pathlib import Path
 
 import yaml
@@ -35,7 +37,7 @@ from reporting.analysis import analyze, analyze_file
 from reporting.demo import demo_study_text
 from reporting.export.record import record_json
 from reporting.load import study_from_data
-from reporting.render import diagram, narrative, pdf_bytes, style, write_report
+from reporting.render import curves, diagram, narrative, pdf_bytes, style, write_report
 from reporting.results import Analysis
 
 RUNS = 15
@@ -57,8 +59,8 @@ def load(argv: list[str]) -> Analysis:
     return analyze(study_from_data(yaml.safe_load(demo_study_text("DEMO-0002.yaml"))))
 
 
-def baseline_content(analysis: Analysis) -> tuple[list[Drawing], list[str]]:
-    """The same shapes and text as the report, built once (not timed)."""
+def baseline_content(analysis: Analysis) -> tuple[list[Drawing], list[str], list[Drawing]]:
+    """The same shapes and text as the report, built once (not timed): maps, text, curve grid."""
     fonts = style.body_fonts()
     drawings = [
         diagram.bullseye(analysis, spec, radius=44, legend=False, fonts=fonts, width=127)
@@ -67,11 +69,12 @@ def baseline_content(analysis: Analysis) -> tuple[list[Drawing], list[str]]:
     text = narrative.narrative_text(analysis)
     lines = [line for line in text.splitlines() if line]
     lines += record_json(analysis).splitlines()[:60]  # stands in for header and table cells
-    return drawings, lines
+    grid = curves.curve_grid(analysis, A4[0] - 80, fonts)  # empty without curves
+    return drawings, lines, grid
 
 
-def draw_baseline(drawings: list[Drawing], lines: list[str]) -> bytes:
-    """reportlab alone: one page, the map drawings and the text lines drawn directly."""
+def draw_baseline(drawings: list[Drawing], lines: list[str], grid: Sequence[Drawing] = ()) -> bytes:
+    """reportlab alone: one page of map drawings and text lines, a second with the curve grid."""
     fonts = style.body_fonts()
     buffer = io.BytesIO()
     canvas = Canvas(buffer, pagesize=A4, invariant=1)
@@ -85,6 +88,12 @@ def draw_baseline(drawings: list[Drawing], lines: list[str]) -> bytes:
             canvas.drawString(40, y, piece)
             y = y - 6 if y > 40 else height - 480
     canvas.showPage()
+    if grid:
+        y = height - 40
+        for drawing in grid:
+            y -= drawing.height
+            renderPDF.draw(drawing, canvas, 40, y)
+        canvas.showPage()
     canvas.save()
     return buffer.getvalue()
 
@@ -99,12 +108,13 @@ def main(argv: list[str]) -> None:
     with tempfile.TemporaryDirectory() as folder:
         full = median_ms(lambda: write_report(analysis, Path(folder)))
     pdf = median_ms(lambda: pdf_bytes(analysis))
-    drawings, lines = baseline_content(analysis)
-    base = median_ms(lambda: draw_baseline(drawings, lines))
+    drawings, lines, grid = baseline_content(analysis)
+    base = median_ms(lambda: draw_baseline(drawings, lines, grid))
     standalone = [diagram.bullseye(analysis, spec) for spec in diagram.map_specs(analysis)]
     svg_base = median_ms(lambda: draw_svgs(standalone))
     maps = len(diagram.map_specs(analysis))
-    print(f"study {analysis.study.id}: {maps} maps, median of {RUNS} runs")
+    panels = sum(len(b.panels) for b in curves.curve_blocks(analysis))
+    print(f"study {analysis.study.id}: {maps} maps, {panels} curve panels, median of {RUNS} runs")
     print(f"full report (record + {maps} SVG + PDF): {full:7.1f} ms   target <= 150 ms")
     print(f"PDF alone:                          {pdf:7.1f} ms")
     print(f"reportlab alone, same shapes+text:  {base:7.1f} ms")

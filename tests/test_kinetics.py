@@ -799,10 +799,30 @@ def test_demo_fits_recover_the_documented_parameters_and_lad_pattern() -> None:
     ]
     assert territories[Territory.LAD].count == 6  # the apex (poor fit at peak) left out
     assert territories[Territory.RCA].flags == [] and territories[Territory.LCX].flags == []
+    # segments beyond the mid-LAD stenosis have a low reserve; the proximal LAD ones (1, 2) do not
+    low = [r.number for r in result.reserve if ReserveFlag.LOW_A_BETA_RESERVE in r.flags]
+    assert low == [n for n in gen.STENOSED if ("peak", n) != gen.POOR_CURVE] == [7, 8, 13, 14]
+    # both cross-check directions (Porter TR et al., JASE 2018, bounds from memory): segment 2 is
+    # spared but scored reduced; segment 7 is beyond the stenosis but scored normal
     assert [(n.number, n.kind) for n in result.cross_checks] == [
-        (1, CrossCheckKind.VISUAL_NORMAL_SLOW_REPLENISHMENT),
-        (5, CrossCheckKind.VISUAL_ABNORMAL_NORMAL_REPLENISHMENT),
+        (2, CrossCheckKind.VISUAL_ABNORMAL_NORMAL_REPLENISHMENT),
+        (7, CrossCheckKind.VISUAL_NORMAL_SLOW_REPLENISHMENT),
     ]
+
+
+def test_demo_is_a_single_vessel_lad_pattern() -> None:
+    # every visually reduced segment and every low-reserve territory is in the LAD (standard map)
+    from reporting.analysis import analyze_file
+
+    gen = generator()
+    analysis = analyze_file(DEMO / "DEMO-0006.yaml")
+    assert analysis.conclusion.ischemic_territories == [Territory.LAD]
+    assert not analysis.conclusion.multivessel
+    assert analysis.perfusion.reversible_segments == [2, 8, 13, 14, 17]
+    assert set(analysis.perfusion.reversible_segments) <= set(gen.LAD)
+    assert analysis.kinetics is not None
+    flagged = [t for t, r in analysis.kinetics.territory_reserve.items() if r.flags]
+    assert flagged == [Territory.LAD]
 
 
 # --- import weight --------------------------------------------------------------------------------

@@ -120,8 +120,10 @@ Stress and adequacy
 Treadmill exercise stress echocardiography; 17-segment model.
 Peak heart rate 158 bpm, 95 % of the age-predicted maximum of 166 bpm (220 − age); the target of 141 bpm (85 %) was reached: adequate stress.
 Peak rate–pressure product 27492 bpm·mmHg.
+Exercise time 7.5 min; maximal ST deviation 2 mm; non-limiting angina (angina index 1).
 Duke treadmill score −6.5: intermediate risk (Mark DB et al., NEJM 1991).
 Estimated workload 9.2 METs.
+Heart-rate recovery 18 bpm in the first minute after exercise: normal (Cole CR et al., NEJM 1999).
 
 Wall motion
 Rest: normal wall motion in all 17 segments (WMSI 1.00). LVEF 64 %.
@@ -206,6 +208,50 @@ def test_multivessel_wording() -> None:
         "Positive for inducible ischaemia in the LAD and RCA territories, 3 segments "
         "(moderate–severe extent; multivessel pattern)."
     )
+
+
+@pytest.mark.parametrize(
+    ("recovery", "expected"),
+    [
+        # Cole CR et al., NEJM 1999;341:1351: a fall of 12 bpm or less in the first minute is abnormal
+        (12, ": abnormal, at or below the cut-off (Cole CR et al., NEJM 1999)."),
+        (13, ": normal (Cole CR et al., NEJM 1999)."),
+        (
+            -3,
+            ": abnormal, at or below the cut-off (Cole CR et al., NEJM 1999).",
+        ),  # rate still rising
+    ],
+    ids=["at-cut-off", "above-cut-off", "negative"],
+)
+def test_heart_rate_recovery_wording(recovery: int, expected: str) -> None:
+    data = yaml.safe_load(demo_study_text("DEMO-0004.yaml"))
+    data["exercise"]["hr_recovery_1min_bpm"] = recovery
+    paragraphs = dict(text_blocks(narrative_text(_analysis_of(data))))["Stress and adequacy"]
+    shown = f"{recovery}" if recovery >= 0 else f"−{-recovery}"
+    assert f"Heart-rate recovery {shown} bpm in the first minute after exercise{expected}" in (
+        paragraphs
+    )
+
+
+def test_bicycle_study_states_exercise_details_without_a_duke_score() -> None:
+    # the Duke score was derived on the Bruce treadmill protocol (Mark DB et al., NEJM 1991)
+    data = yaml.safe_load(demo_study_text("DEMO-0004.yaml"))
+    data["protocol"] = "bicycle"
+    data["exercise"] = {"duration_min": 11, "max_st_deviation_mm": 0, "angina_index": 0}
+    paragraphs = dict(text_blocks(narrative_text(_analysis_of(data))))["Stress and adequacy"]
+    assert "Exercise time 11 min; maximal ST deviation 0 mm; no angina (angina index 0)." in (
+        paragraphs
+    )
+    assert not any("Duke" in p or "Heart-rate recovery" in p for p in paragraphs)
+
+
+def test_no_exercise_sentence_without_an_exercise_test() -> None:
+    paragraphs = dict(text_blocks(narrative_text(_analysis("DEMO-0002"))))["Stress and adequacy"]
+    assert not any(p.startswith(("Exercise time", "Heart-rate recovery")) for p in paragraphs)
+
+
+def _analysis_of(data: dict[str, object]) -> Analysis:
+    return analyze(study_from_data(data))
 
 
 def test_sections_without_content_are_left_out() -> None:

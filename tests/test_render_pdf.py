@@ -86,6 +86,31 @@ def test_header_tables_and_sign_off_content() -> None:
         assert expected in text, expected
 
 
+def test_exercise_results_beside_the_haemodynamics_of_an_exercise_study() -> None:
+    # Duke treadmill score: Mark DB et al., NEJM 1991; heart-rate recovery: Cole CR et al., NEJM 1999
+    text = _text(pdf_bytes(_analysis("DEMO-0004")))
+    for expected in (
+        "Exercise time",
+        "7.5 min",
+        "Max ST deviation",
+        "2 mm",
+        "1 – non-limiting",
+        "HR recovery, 1st min",
+        "18 bpm (normal)",
+        "−6.5 (intermediate risk)",
+        "9.2 METs",
+    ):
+        assert expected in text, expected
+    data = _data("DEMO-0004")
+    data["exercise"]["hr_recovery_1min_bpm"] = 9
+    assert "9 bpm (abnormal)" in _text(pdf_bytes(analyze(study_from_data(data))))
+
+
+def test_no_exercise_table_without_an_exercise_test() -> None:
+    text = _text(pdf_bytes(_analysis("DEMO-0002")))
+    assert "Exercise time" not in text and "HR recovery" not in text
+
+
 def test_same_input_gives_the_same_bytes() -> None:
     first = pdf_bytes(_analysis("DEMO-0002"))
     second = pdf_bytes(_analysis("DEMO-0002"))

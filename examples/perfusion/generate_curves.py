@@ -6,22 +6,33 @@ The curves follow the replenishment model y(t) = A(1 − e^(−βt)) + C (Wei K 
 the same on every run. One frame per beat: rest at 64 bpm, peak vasodilator stress at 92 bpm, with
 a 3 % beat-to-beat jitter; three pre-flash frames (negative time) per curve, which are not fitted.
 
+The scenario is a single-vessel pattern: one stenosis in the mid LAD, beyond its first diagonal and
+first septal branches, so the distal LAD segments (mid and apical: 7, 8, 13, 14 and the apex 17)
+replenish slowly at peak stress, while the proximal LAD segments 1 and 2 (basal anterior and basal
+anteroseptal), fed before the stenosis, behave like the RCA and LCx segments.
+
 True parameters (A and C in linear intensity units, β in 1/s, noise σ as a fraction of A):
 
-    segments                              stage   A        β      C     σ / A
-    all 17                                rest    10 × r   0.85   1.5   0.035
-    RCA and LCx: 3–6, 9–12, 15, 16        peak    11.5 × r 2.125  1.5   0.035  (β reserve 2.5)
-    LAD: 1, 2, 7, 8, 13, 14               peak    9 × r    0.9    1.5   0.035  (β reserve 1.06)
-    LAD apex: 17                          peak    9 × r    0.9    1.5   0.45   (a poor fit)
+    segments                                  stage   A        β      C     σ / A
+    all 17                                    rest    10 × r   0.85   1.5   0.035
+    spared: RCA, LCx and LAD 1, 2 (1–6,       peak    11.5 × r 2.125  1.5   0.035  (β reserve 2.5)
+      9–12, 15, 16)
+    beyond the LAD stenosis: 7, 8, 13, 14     peak    9 × r    0.9    1.5   0.035  (β reserve 1.06)
+    LAD apex: 17 (beyond the stenosis)        peak    9 × r    0.9    1.5   0.45   (a poor fit)
 
-r is the ring factor: basal 0.8, mid 1.0, apical and apex 1.1 (weaker basal signal). So LAD
-segments have an A·β reserve of 0.9 × 0.9 / 0.85 ≈ 0.95 and the others 1.15 × 2.5 = 2.875. Time to
-90 % of plateau, ln 10 / β: 2.71 s at rest; at peak 1.08 s outside the LAD and 2.56 s in it.
+r is the ring factor: basal 0.8, mid 1.0, apical and apex 1.1 (weaker basal signal). So segments
+beyond the stenosis have an A·β reserve of 0.9 × 0.9 / 0.85 ≈ 0.95 and the spared ones
+1.15 × 2.5 = 2.875; the LAD territory as a whole (segments 1, 2, 7, 8, 13, 14 with good fits) has a
+reduced reserve. Time to 90 % of plateau, ln 10 / β: 2.71 s at rest; at peak 1.08 s in spared
+segments and 2.56 s beyond the stenosis.
 
-Visual perfusion scores: all normal at rest; at peak the LAD segments are scored reduced (2), except
-segment 1, scored normal (its slow fitted replenishment makes a cross-check note), and segment 5 is
-scored reduced although its replenishment is normal (the converse note, as from an attenuation
-artefact). Run from the repository root::
+Visual perfusion scores: all normal at rest; at peak the segments beyond the stenosis are scored
+reduced (2), except segment 7 (mid anterior), scored normal although its fitted replenishment is
+slow (a cross-check note); and the spared segment 2 (basal anteroseptal) is scored reduced although
+its replenishment is normal (the converse note, as from a basal attenuation artefact). Every
+reduced score lies in the LAD territory, so the conclusion is a single-vessel LAD pattern.
+
+Run from the repository root::
 
     python examples/perfusion/generate_curves.py [--outdir reporting/data/demo]
 """
@@ -37,7 +48,9 @@ import numpy as np
 
 SEED = 20261104
 STUDY_ID = "DEMO-0006"
-LAD = (1, 2, 7, 8, 13, 14, 17)
+LAD = (1, 2, 7, 8, 13, 14, 17)  # the LAD territory under the standard map
+# Segments beyond the mid-LAD stenosis; LAD segments 1 and 2 are fed before it.
+STENOSED = (7, 8, 13, 14, 17)
 RING_FACTOR = {**dict.fromkeys(range(1, 7), 0.8), **dict.fromkeys(range(7, 13), 1.0)}
 RING_FACTOR |= dict.fromkeys(range(13, 18), 1.1)
 HEART_RATE_BPM = {"rest": 64, "peak": 92}
@@ -48,7 +61,9 @@ OFFSET_C = 1.5
 NOISE_FRACTION = 0.035
 POOR_CURVE = ("peak", 17)
 POOR_NOISE_FRACTION = 0.45
-PERFUSION_PEAK = {n: (2 if n in LAD else 1) for n in range(1, 18)} | {1: 1, 5: 2}
+# Visual scores at peak: reduced beyond the stenosis, except segment 7 (scored normal though slow);
+# segment 2 is spared but scored reduced (normal replenishment).
+PERFUSION_PEAK = {n: (2 if n in STENOSED else 1) for n in range(1, 18)} | {7: 1, 2: 2}
 
 
 def true_parameters(stage: str, segment: int) -> tuple[float, float, float]:
@@ -56,7 +71,7 @@ def true_parameters(stage: str, segment: int) -> tuple[float, float, float]:
     r = RING_FACTOR[segment]
     if stage == "rest":
         return 10.0 * r, 0.85, OFFSET_C
-    if segment in LAD:
+    if segment in STENOSED:
         return 9.0 * r, 0.9, OFFSET_C
     return 11.5 * r, 2.125, OFFSET_C
 
@@ -92,7 +107,8 @@ def study_yaml() -> str:
     peak_scores = f"{peak[:6]} {peak[6:12]} {peak[12:16]} {peak[16]}"
     return f"""\
 # Invented scenario (Larkspur Valley Heart Clinic is fictitious): vasodilator contrast perfusion
-# study with quantitative replenishment curves; reduced flow reserve in the LAD territory.
+# study with quantitative replenishment curves; a single-vessel pattern: reduced flow reserve beyond
+# a mid-LAD stenosis.
 # Made by examples/perfusion/generate_curves.py (seed {SEED}); see its docstring for the true
 # curve parameters.
 schema_version: 1

@@ -371,13 +371,48 @@ def stress_paragraphs(analysis: Analysis) -> list[str]:
         paragraphs.append(
             f"Peak rate–pressure product {s.rate_pressure_product[Stage.PEAK]} bpm·mmHg."
         )
+    exercise = exercise_sentence(analysis)
+    if exercise:
+        paragraphs.append(exercise)
     if s.duke_treadmill_score is not None and s.duke_risk is not None:
         paragraphs.append(
             f"Duke treadmill score {signed(s.duke_treadmill_score)}: {s.duke_risk.value} risk (Mark DB et al., NEJM 1991)."
         )
     if s.mets is not None:
         paragraphs.append(f"Estimated workload {s.mets:g} METs.")
+    if s.hr_recovery_1min_bpm is not None:
+        paragraphs.append(
+            f"Heart-rate recovery {signed(s.hr_recovery_1min_bpm)} bpm in the first minute after exercise"
+            f"{HR_RECOVERY_WORDS[s.hr_recovery_abnormal]}."
+        )
     return paragraphs
+
+
+ANGINA_WORDS = {0: "no angina", 1: "non-limiting angina", 2: "exercise-limiting angina"}
+# Cole CR et al., NEJM 1999;341:1351: a fall of 12 bpm or less in the first minute is abnormal (the
+# cut-off is a lab setting, so the sentence names the verdict, not the number).
+HR_RECOVERY_WORDS = {
+    False: ": normal (Cole CR et al., NEJM 1999)",
+    True: ": abnormal, at or below the cut-off (Cole CR et al., NEJM 1999)",
+    None: "",
+}
+
+
+def exercise_sentence(analysis: Analysis) -> str:
+    """``Exercise time 7.5 min; maximal ST deviation 2 mm; non-limiting angina (angina index 1).``"""
+    s = analysis.stress
+    parts = []
+    if s.exercise_duration_min is not None:
+        parts.append(f"exercise time {s.exercise_duration_min:g} min")
+    if s.max_st_deviation_mm is not None:
+        parts.append(f"maximal ST deviation {s.max_st_deviation_mm:g} mm")
+    if s.angina_index is not None:
+        parts.append(f"{ANGINA_WORDS[s.angina_index]} (angina index {s.angina_index})")
+    return _sentence_case("; ".join(parts)) + "." if parts else ""
+
+
+def _sentence_case(text: str) -> str:
+    return text[:1].upper() + text[1:]
 
 
 def signed(value: float) -> str:

@@ -1,9 +1,11 @@
-"""The referring-doctor PDF: header, answer, bull's-eye maps, tables, narrative, cautions, sign-off.
+"""The referring-doctor PDF: header, answer, bull's-eye maps, tables, narrative, curves, sign-off.
 
 Built with reportlab's platypus in invariant mode, so the same Analysis gives the same bytes. Every
 piece of user free text goes through :func:`reporting.render.style.markup_text` (XML-escaped, unknown
 glyphs replaced) before it becomes Paragraph markup, and into table cells as wrapping Paragraphs, so
-hostile or very long text can make the report longer but never breaks it.
+hostile or very long text can make the report longer but never breaks it. With time-intensity
+curves, a grid of the fitted replenishment curves (:mod:`reporting.render.curves`) follows the
+narrative, on a page of its own unless it fits where the narrative ends.
 """
 
 from __future__ import annotations
@@ -22,6 +24,7 @@ from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.pdfgen.canvas import Canvas
 from reportlab.platypus import (
     BaseDocTemplate,
+    CondPageBreak,
     Flowable,
     Frame,
     KeepTogether,
@@ -34,12 +37,12 @@ from reportlab.platypus import (
 
 from reporting.errors import InputError
 from reporting.model import ReportStatus, Stage
-from reporting.render import diagram, narrative, style
+from reporting.render import curves, diagram, narrative, style
 from reporting.render.diagram import MapSpec
 from reporting.render.legend import draw_legend, legend_items
 from reporting.render.scheme import MapKind
 from reporting.render.style import Fonts
-from reporting.render.tables import haemodynamics_table, territory_table
+from reporting.render.tables import exercise_table, haemodynamics_table, territory_table
 from reporting.results import Analysis, DiagnosticStatus
 
 PAPERS = {"A4": A4, "LETTER": LETTER}
@@ -158,20 +161,21 @@ def _story(
     story.append(_section_heading("Territories", st))
     story.append(territory_table(analysis, width, st))
     story.append(_p(f"Territory map: {analysis.territory_map.title}.", st["small"]))
-    story.append(
-        KeepTogether(
-            [
-                _section_heading("Haemodynamics and LV function", st),
-                haemodynamics_table(analysis, width, st),
-            ]
-        )
-    )
+    stress_block: list[Flowable] = [
+        _section_heading("Haemodynamics and LV function", st),
+        haemodynamics_table(analysis, width, st),
+    ]
+    exercise = exercise_table(analysis, width, st)
+    if exercise is not None:
+        stress_block += [Spacer(1, 4), exercise]
+    story.append(KeepTogether(stress_block))
     text = narrative.narrative_text(analysis, templates_dir, include_cautions=False)
     for heading, paragraphs in narrative.text_blocks(text):
         block: list[Flowable] = [_section_heading(heading, st)]
         block += [_p(p, st["para"]) for p in paragraphs]
         story.append(KeepTogether(block[:2]))
         story += block[2:]
+    story += _curves(analysis, width, fonts, st)
     story.append(Spacer(1, 4))
     story.append(
         KeepTogether(
@@ -184,6 +188,21 @@ def _story(
     story.append(Spacer(1, 8))
     story.append(_sign_off(analysis, width, st))
     return story
+
+
+def _curves(
+    analysis: Analysis, width: float, fonts: Fonts, st: dict[str, ParagraphStyle]
+) -> list[Flowable]:
+    """The fitted-curve grid under its heading; nothing without kinetics."""
+    drawings = curves.curve_grid(analysis, width, fonts)
+    if not drawings:
+        return []
+    heading = _section_heading("Fitted replenishment curves", st)
+    intro = _p(curves.caption(analysis, fonts), st["small"])
+    # the whole grid moves to a new page unless it fits below the narrative
+    needed = curves.grid_height(drawings) + 3 * st["h2"].leading + 3 * st["small"].leading
+    first = KeepTogether([heading, intro, Spacer(1, 3), drawings[0], drawings[1]])
+    return [CondPageBreak(needed), first, *drawings[2:]]
 
 
 def _section_heading(text: str, st: dict[str, ParagraphStyle]) -> Paragraph:

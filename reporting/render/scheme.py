@@ -1,9 +1,9 @@
-"""Our colour scheme for the maps: what each score, response and territory looks like.
+"""Our colour scheme for the maps and curves: how each score, response, territory and stage looks.
 
 Built from published colour-blind-safe palettes (see :mod:`reporting.render.style`): ColorBrewer
 sequential "YlOrBr" for wall-motion scores and "Blues" for perfusion scores, Okabe–Ito for response
-categories and territories. Every category also has a digit or letter so greyscale prints stay
-readable.
+categories, territories and the stages of fitted replenishment curves. Every category also has a
+digit, a letter or (for curves) a marker shape and line style, so greyscale prints stay readable.
 """
 
 from __future__ import annotations
@@ -12,6 +12,7 @@ from enum import StrEnum
 
 from reportlab.lib.colors import Color
 
+from reporting.model import Stage
 from reporting.render import style
 from reporting.scoring import WallMotionResponse
 from reporting.segments import Territory
@@ -77,3 +78,13 @@ def wall_motion_fill(score: int) -> Color:
 
 def perfusion_fill(score: int) -> Color:
     return style.hex_color(style.BLUES_3[score - 1])
+
+
+# Fitted replenishment curves: one Okabe–Ito colour per stage; curves.py adds a marker shape and a
+# line style per stage, so rest and peak stay apart in greyscale too.
+CURVE_STAGE_COLOUR: dict[Stage, Color] = {
+    Stage.REST: style.hex_color(style.OKABE_ITO["blue"]),
+    Stage.LOW_DOSE: style.hex_color(style.OKABE_ITO["bluish_green"]),
+    Stage.PEAK: style.hex_color(style.OKABE_ITO["vermillion"]),
+    Stage.RECOVERY: style.hex_color(style.OKABE_ITO["reddish_purple"]),
+}

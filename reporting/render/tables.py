@@ -1,4 +1,5 @@
-"""The PDF's data tables: WMSI and findings per territory, haemodynamics and LV function per stage.
+"""The PDF's data tables: WMSI and findings per territory, haemodynamics and LV function per stage,
+and the exercise-test results of a treadmill or bicycle study.
 
 Cells hold computed text; a cell becomes a wrapping Paragraph only when its text is wider than the
 column, which keeps table layout cheap. Any text that reaches Paragraph markup is escaped first.
@@ -13,7 +14,7 @@ from reportlab.lib.styles import ParagraphStyle
 from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.platypus import Flowable, Paragraph, Table, TableStyle
 
-from reporting.render import diagram, style
+from reporting.render import diagram, narrative, style
 from reporting.results import Analysis
 from reporting.segments import Territory
 
@@ -177,3 +178,38 @@ def haemodynamics_table(analysis: Analysis, width: float, st: dict[str, Paragrap
         rows.append(cells)
     weights = [1.0] + ([2.0] if dose else []) + [1.0, 1.0, 1.0, 1.4] + [0.9] * (lvef + esv)
     return data_table(rows, [w / sum(weights) * width for w in weights], st)
+
+
+def exercise_table(analysis: Analysis, width: float, st: dict[str, ParagraphStyle]) -> Table | None:
+    """One row of exercise-test results (time, ST, angina, heart-rate recovery, Duke score, METs).
+
+    Only the columns with a value; ``None`` when the study recorded no exercise test. Duke treadmill
+    score: Mark DB et al., NEJM 1991;325:849; heart-rate recovery: Cole CR et al., NEJM 1999;341:1351.
+    """
+    s = analysis.stress
+    columns: list[tuple[str, str, float]] = []
+    if s.exercise_duration_min is not None:
+        columns.append(("Exercise time", f"{s.exercise_duration_min:g} min", 1.0))
+    if s.max_st_deviation_mm is not None:
+        columns.append(("Max ST deviation", f"{s.max_st_deviation_mm:g} mm", 1.2))
+    if s.angina_index is not None:
+        columns.append(("Angina index", f"{s.angina_index} – {ANGINA_SHORT[s.angina_index]}", 1.2))
+    if s.hr_recovery_1min_bpm is not None:
+        verdict = {True: " (abnormal)", False: " (normal)", None: ""}[s.hr_recovery_abnormal]
+        value = f"{narrative.signed(s.hr_recovery_1min_bpm)} bpm{verdict}"
+        columns.append(("HR recovery, 1st min", value, 1.5))
+    if s.duke_treadmill_score is not None:
+        risk = f" ({s.duke_risk.value} risk)" if s.duke_risk is not None else ""
+        columns.append(
+            ("Duke treadmill score", f"{narrative.signed(s.duke_treadmill_score)}{risk}", 1.5)
+        )
+    if s.mets is not None:
+        columns.append(("Workload", f"{s.mets:g} METs", 0.9))
+    if not columns:
+        return None
+    total = sum(w for _, _, w in columns)
+    rows = [[head for head, _, _ in columns], [value for _, value, _ in columns]]
+    return data_table(rows, [w / total * width for _, _, w in columns], st)
+
+
+ANGINA_SHORT = {0: "none", 1: "non-limiting", 2: "exercise-limiting"}
