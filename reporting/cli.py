@@ -168,6 +168,42 @@ def report(
 
 @main.command()
 @click.option(
+    "--port",
+    type=click.IntRange(1, 65535),
+    default=8765,
+    show_default=True,
+    help="Port on 127.0.0.1 (the page is served to this computer only).",
+)
+@click.option(
+    "--studies",
+    "studies_dir",
+    type=click.Path(file_okay=False, path_type=Path),
+    default=Path("."),
+    show_default=True,
+    help="Folder of study files, created when missing; drafts go to DIR/.drafts, reports to DIR/reports.",
+)
+@click.option(
+    "--settings",
+    "settings_path",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Lab settings file (YAML) overriding the default thresholds.",
+)
+def serve(port: int, studies_dir: Path, settings_path: Path | None) -> None:
+    """Score entry in the browser: a local page at http://127.0.0.1:PORT/ (Ctrl+C stops)."""
+    from reporting.settings import load_settings
+    from reporting.web import serve as run_server
+
+    with _user_errors():
+        settings = load_settings(settings_path)
+    click.echo(
+        f"Score entry for {studies_dir.resolve()} on http://127.0.0.1:{port}/ (Ctrl+C stops)",
+        err=True,
+    )
+    run_server(studies_dir, port=port, settings=settings)
+
+
+@main.command()
+@click.option(
     "-o",
     "--output",
     "outdir",

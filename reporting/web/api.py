@@ -1,0 +1,117 @@
+"""Shapes of the entry server's JSON answers (they become its OpenAPI description).
+
+Requests are validated by the library's own models: a study body by
+:func:`reporting.load.study_from_data` (the :class:`~reporting.model.Study` model, so the page gets
+the command line's located messages), ids in paths by :data:`reporting.model.SafeId`.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Any
+
+from pydantic import BaseModel, ConfigDict, Field
+
+from reporting.errors import InputError
+from reporting.results import Analysis
+
+
+class _Answer(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class Problem(_Answer):
+    """One located problem, as ``segreport validate`` prints it."""
+
+    location: str = Field(description="Where: the source and the dotted path inside it.")
+    path: str = Field(description="The dotted path alone (empty for the whole study).")
+    problem: str = Field(description="What is wrong.")
+
+
+class ProblemList(_Answer):
+    """A refused request: a one-line summary and every located problem."""
+
+    detail: str = Field(description="Summary of why the request was refused.")
+    problems: list[Problem] = Field(description="Each problem with its location.")
+
+
+class AnalyzeResult(_Answer):
+    """The analysis of a study as the command line computes it, with the draft narrative."""
+
+    record: Analysis = Field(description="The analysis record (what `segreport analyze` writes).")
+    summary: str = Field(
+        description="The one-sentence answer of the study, as the report words it."
+    )
+    narrative_text: str = Field(description="The draft narrative as plain text.")
+    narrative_html: str = Field(description="The draft narrative as an escaped HTML fragment.")
+    territory_boundaries: str = Field(
+        description="SVG path data of the territory boundaries under the map used (map radius 100)."
+    )
+
+
+class StudyListing(_Answer):
+    """A study file in the studies folder."""
+
+    id: str = Field(description="Study id (the file name without its suffix).")
+    file: str = Field(description="File name.")
+    modified: dt.datetime = Field(description="Last modified (UTC).")
+    date: str | None = Field(description="Study date as written in the file.")
+    patient: str | None = Field(description="Patient name as written in the file.")
+    valid: bool = Field(description="The file passes validation.")
+
+
+class DraftListing(_Answer):
+    """An autosaved draft."""
+
+    id: str = Field(description="Draft id (the study id, or 'untitled').")
+    modified: dt.datetime = Field(description="Last autosave (UTC).")
+
+
+class FolderListing(_Answer):
+    """Study files and drafts the page can open."""
+
+    studies: list[StudyListing] = Field(description="Study files, newest first.")
+    drafts: list[DraftListing] = Field(description="Autosaved drafts, newest first.")
+
+
+class OpenedStudy(_Answer):
+    """A study file read for editing: its data and any problems it has."""
+
+    id: str = Field(description="Study id.")
+    file: str = Field(description="File name in the studies folder.")
+    study: dict[str, Any] = Field(description="The study-file data (editable form).")
+    problems: list[Problem] = Field(description="Validation problems of the file, if any.")
+
+
+class Saved(_Answer):
+    """A study file written."""
+
+    id: str = Field(description="Study id.")
+    file: str = Field(description="File name written in the studies folder.")
+
+
+class DraftSaved(_Answer):
+    """A draft written."""
+
+    id: str = Field(description="Draft id.")
+    saved_at: str = Field(description="When (UTC, ISO 8601).")
+
+
+class ReportFiles(_Answer):
+    """Report files written for a saved study."""
+
+    id: str = Field(description="Study id.")
+    pdf: str = Field(description="URL of the PDF.")
+    files: list[str] = Field(description="URLs of every file written (record, maps, PDF).")
+
+
+def problem_of(error: InputError, source: str) -> Problem:
+    """A located problem; ``path`` is the location without its ``source`` prefix."""
+    location = error.location
+    if location == source:
+        path = ""
+    elif location.startswith(f"{source}: "):
+        path = location[len(source) + 2 :]
+    else:
+        path = location
+    return Problem(location=location, path=path, problem=error.problem)

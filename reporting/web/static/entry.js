@@ -1,0 +1,930 @@
+/* segreport score entry: bull's-eye input, live analysis, drafts, save and report.
+ *
+ * Every computed value on this page comes from the server (/api/analyze runs the same code as
+ * `segreport analyze`); this script only collects the form, draws the maps and shows answers.
+ * User text is only ever set with textContent or attribute values, never parsed as markup.
+ */
+(function () {
+  "use strict";
+
+  const SVG = "http://www.w3.org/2000/svg";
+  const STAGES = ["rest", "low_dose", "peak", "recovery"];
+  const KINDS = ["wall_motion", "perfusion"];
+  const STAGE_TITLES = { rest: "Rest", low_dose: "Low dose", peak: "Peak", recovery: "Recovery" };
+  const ID_RULE = /^[A-Za-z0-9._-]{1,64}$/;
+  const LOCAL_PREFIX = "segreport:draft:";
+  const LOCAL_LAST = "segreport:last";
+  const ANALYZE_DELAY_MS = 250;
+  const DRAFT_DELAY_MS = 1200;
+
+  const geometry = readJson("geometry");
+  const palette = geometry.palette;
+
+  const state = {
+    model: "17",
+    scores: { wall_motion: {}, perfusion: {} },
+    quickProblems: {},
+    active: "rest",
+    openedFrom: null,
+    extras: {},
+    dirty: false,
+    draftKey: null,
+    localKey: null,
+    boundaries: null,
+    analysisSeq: 0,
+  };
+  for (const kind of KINDS) for (const stage of STAGES) state.scores[kind][stage] = [];
+
+  // --- small helpers ----------------------------------------------------------------------
+
+  function readJson(id) {
+    const el = document.getElementById(id);
+    return el ? JSON.parse(el.textContent || "null") : null;
+  }
+  function $(selector, root) { return (root || document).querySelector(selector); }
+  function $all(selector, root) { return Array.from((root || document).querySelectorAll(selector)); }
+  function svgEl(name, attrs) {
+    const el = document.createElementNS(SVG, name);
+    for (const [k, v] of Object.entries(attrs || {})) el.setAttribute(k, String(v));
+    return el;
+  }
+  function clone(value) { return value === undefined ? undefined : JSON.parse(JSON.stringify(value)); }
+  function isObject(value) { return value !== null && typeof value === "object" && !Array.isArray(value); }
+  function getPath(obj, path) {
+    let cur = obj;
+    for (const key of path.split(".")) {
+      if (!isObject(cur) || !(key in cur)) return undefined;
+      cur = cur[key];
+    }
+    return cur;
+  }
+  function setPath(obj, path, value) {
+    const keys = path.split(".");
+    let cur = obj;
+    keys.slice(0, -1).forEach((key) => {
+      if (!isObject(cur[key])) cur[key] = {};
+      cur = cur[key];
+    });
+    cur[keys[keys.length - 1]] = value;
+  }
+  function deletePath(obj, path) {
+    const keys = path.split(".");
+    const parent = keys.length > 1 ? getPath(obj, keys.slice(0, -1).join(".")) : obj;
+    if (isObject(parent)) delete parent[keys[keys.length - 1]];
+  }
+  function prune(obj) {
+    for (const [key, value] of Object.entries(obj)) {
+      if (isObject(value)) {
+        prune(value);
+        if (Object.keys(value).length === 0) delete obj[key];
+      }
+    }
+    return obj;
+  }
+  function clock(date) { return (date || new Date()).toLocaleTimeString([], { hour: "2-digit", minute: "2-digit", second: "2-digit" }); }
+  function setStatus(text, kind) {
+    const el = $("#status");
+    el.textContent = text;
+    el.dataset.kind = kind || "info";
+  }
+  function debounce(fn, ms) {
+    let timer = null;
+    const run = (...args) => { clearTimeout(timer); timer = setTimeout(() => fn(...args), ms); };
+    run.flush = () => { clearTimeout(timer); fn(); };
+    return run;
+  }
+  function sectorsOf(model) { return geometry.models[model].sectors; }
+  function segmentCount() { return sectorsOf(state.model).length; }
+  function maxScore(kind) {
+    return kind === "perfusion" ? 3 : Number($("#f-wall_motion_scale").value || "4");
+  }
+
+  // --- scores -------------------------------------------------------------------------------
+
+  function scoresFor(kind, stage) {
+    const list = state.scores[kind][stage];
+    while (list.length < segmentCount()) list.push(null);
+    return list;
+  }
+  function nextScore(kind, value) {
+    if (value === null || value === undefined) return 1;
+    if (value === "x") return 1;
+    return value >= maxScore(kind) ? "x" : value + 1;
+  }
+  function scoreChar(value) { return value === null || value === undefined ? "-" : String(value); }
+
+  function formatScores(kind, stage) {
+    const list = scoresFor(kind, stage);
+    if (list.every((v) => v === null)) return "";
+    const groups = [];
+    let ring = null;
+    list.forEach((value, i) => {
+      const sector = sectorsOf(state.model)[i];
+      const r = sector ? sector.ring : "extra";
+      if (r === ring) groups[groups.length - 1] += scoreChar(value);
+      else { groups.push(scoreChar(value)); ring = r; }
+    });
+    return groups.join(" ");
+  }
+
+  /** Quick-entry text -> scores; characters that are not scores are reported, not guessed. */
+  function parseQuick(text) {
+    const scores = [];
+    const problems = [];
+    let position = 0;
+    for (const char of text) {
+      if (/\s/.test(char)) continue;
+      position += 1;
+      if (/^[0-9]$/.test(char)) scores.push(Number(char));
+      else if (char === "x" || char === "X") scores.push("x");
+      else if (char === "-" || char === "." || char === "_") scores.push(null);
+      else {
+        scores.push(null);
+        problems.push(`character ${position} is '${char}'; use a score digit, x for not visualised or - for not yet scored`);
+      }
+    }
+    return { scores, problems };
+  }
+
+  /** A study-file score set (text, number or mapping) -> list by segment. */
+  function scoresFromDocument(value) {
+    if (value === null || value === undefined) return [];
+    if (typeof value === "number") value = String(value);
+    if (typeof value === "string") return parseQuick(value).scores;
+    if (isObject(value)) {
+      const list = [];
+      for (const [key, score] of Object.entries(value)) {
+        const n = parseInt(key, 10);
+        if (!(n >= 1 && n <= 64)) continue;
+        while (list.length < n) list.push(null);
+        list[n - 1] = score === null || String(score).toLowerCase() === "x" ? "x" : Number(score);
+      }
+      return list;
+    }
+    return [];
+  }
+
+  function scoresToDocument(list) {
+    const out = {};
+    list.forEach((value, i) => { if (value !== null && value !== undefined) out[String(i + 1)] = value; });
+    return out;
+  }
+
+  // --- maps ---------------------------------------------------------------------------------
+
+  function cellLook(kind, value) {
+    if (value === "x") return { fill: "url(#hatch)", ink: palette.not_seen.ink, word: "not visualised", mark: "x" };
+    if (value === null || value === undefined) return null;
+    const entry = palette[kind][String(value)];
+    if (!entry || (kind === "wall_motion" && value > maxScore(kind))) {
+      return { fill: "#ffffff", ink: "#a3161a", word: "not a valid score", mark: String(value), invalid: true };
+    }
+    return { fill: entry.fill, ink: entry.ink, word: entry.word, mark: String(value) };
+  }
+
+  function buildMap(svg) {
+    const kind = svg.dataset.kind;
+    const stage = svg.dataset.stage;
+    svg.replaceChildren();
+    const sectors = svgEl("g", { class: "sectors" });
+    const labels = svgEl("g", { class: "labels", "aria-hidden": "true" });
+    sectorsOf(state.model).forEach((s, i) => {
+      const path = svgEl("path", {
+        d: s.d,
+        class: "sector",
+        "data-segment": s.number,
+        "data-name": s.name,
+        role: "button",
+        tabindex: i === 0 ? 0 : -1,
+      });
+      path.appendChild(svgEl("title"));
+      sectors.appendChild(path);
+      const text = svgEl("text", { x: s.label[0], y: s.label[1], class: "mark", "data-mark": s.number });
+      labels.appendChild(text);
+    });
+    svg.appendChild(sectors);
+    const boundary = svgEl("path", { class: "boundary", d: currentBoundaries() });
+    svg.appendChild(boundary);
+    svg.appendChild(svgEl("circle", { class: "rim", r: geometry.radius }));
+    svg.appendChild(labels);
+    const R = geometry.radius;
+    const words = [["anterior", 0, -1.07 * R, 0], ["inferior", 0, 1.09 * R, 0], ["septal", -1.09 * R, 0, -90], ["lateral", 1.09 * R, 0, 90]];
+    for (const [word, x, y, angle] of words) {
+      const t = svgEl("text", { class: "orientation", x: 0, y: 0, transform: `translate(${x} ${y}) rotate(${angle})`, "aria-hidden": "true" });
+      t.textContent = word;
+      svg.appendChild(t);
+    }
+    svg.appendChild(svgEl("path", { class: "focus-outer", d: "" }));
+    svg.appendChild(svgEl("path", { class: "focus-inner", d: "" }));
+    paintMap(kind, stage);
+  }
+
+  function currentBoundaries() {
+    if (state.boundaries !== null) return state.boundaries;
+    const maps = geometry.models[state.model].boundaries;
+    const chosen = ($("#f-territory_map").value || "standard").trim();
+    return maps[chosen] || maps.standard || "";
+  }
+
+  function mapSvg(kind, stage) { return $(`svg.bullseye[data-kind="${kind}"][data-stage="${stage}"]`); }
+
+  function paintMap(kind, stage) {
+    const svg = mapSvg(kind, stage);
+    if (!svg) return;
+    const list = scoresFor(kind, stage);
+    const what = kind === "wall_motion" ? "wall motion" : "perfusion";
+    for (const path of $all(".sector", svg)) {
+      const n = Number(path.dataset.segment);
+      const look = cellLook(kind, list[n - 1]);
+      const text = $(`[data-mark="${n}"]`, svg);
+      const name = path.dataset.name;
+      let said;
+      if (look) {
+        path.setAttribute("fill", look.fill);
+        path.classList.add("scored");
+        path.classList.toggle("bad-score", Boolean(look.invalid));
+        text.textContent = look.mark;
+        text.setAttribute("fill", look.ink);
+        text.setAttribute("class", "mark score");
+        said = `${look.mark} ${look.word}`;
+      } else {
+        path.setAttribute("fill", "#ffffff");
+        path.classList.remove("scored", "bad-score");
+        text.textContent = String(n);
+        text.setAttribute("fill", "#6b7785");
+        text.setAttribute("class", "mark number");
+        said = "not yet scored";
+      }
+      path.setAttribute("aria-label", `Segment ${n}, ${name}, ${what}: ${said}`);
+      path.firstChild.textContent = `${n} ${name}: ${said}`;
+    }
+  }
+
+  function syncQuick(kind, stage) {
+    const input = $(`.quick-input[data-kind="${kind}"][data-stage="${stage}"]`) || $(`input[data-quick="${kind}"][data-stage="${stage}"]`);
+    if (input && document.activeElement !== input) input.value = formatScores(kind, stage);
+  }
+
+  function setScore(kind, stage, number, value) {
+    const list = scoresFor(kind, stage);
+    list[number - 1] = value;
+    delete state.quickProblems[`${stage}.${kind}`];
+    paintMap(kind, stage);
+    syncQuick(kind, stage);
+    changed();
+  }
+
+  function focusSector(svg, number) {
+    const count = segmentCount();
+    const n = ((number - 1 + count) % count) + 1;
+    const target = $(`.sector[data-segment="${n}"]`, svg);
+    if (!target) return;
+    for (const p of $all(".sector", svg)) p.setAttribute("tabindex", p === target ? "0" : "-1");
+    target.focus();
+  }
+
+  function showFocus(svg, path) {
+    for (const cls of ["focus-outer", "focus-inner"]) $(`.${cls}`, svg).setAttribute("d", path ? path.getAttribute("d") : "");
+  }
+
+  function wireMaps() {
+    for (const svg of $all("svg.bullseye")) {
+      const kind = svg.dataset.kind;
+      const stage = svg.dataset.stage;
+      svg.addEventListener("click", (event) => {
+        const path = event.target.closest(".sector");
+        if (!path) return;
+        const n = Number(path.dataset.segment);
+        setScore(kind, stage, n, nextScore(kind, scoresFor(kind, stage)[n - 1]));
+        focusSector(svg, n);
+      });
+      svg.addEventListener("focusin", (event) => {
+        const path = event.target.closest(".sector");
+        if (path) {
+          for (const p of $all(".sector", svg)) p.setAttribute("tabindex", p === path ? "0" : "-1");
+          showFocus(svg, path);
+        }
+      });
+      svg.addEventListener("focusout", () => showFocus(svg, null));
+      svg.addEventListener("keydown", (event) => {
+        const path = event.target.closest(".sector");
+        if (!path || event.ctrlKey || event.metaKey || event.altKey) return;
+        const n = Number(path.dataset.segment);
+        const key = event.key;
+        let handled = true;
+        if (/^[1-9]$/.test(key) && Number(key) <= maxScore(kind)) {
+          setScore(kind, stage, n, Number(key));
+          focusSector(svg, n + 1);
+        } else if (key === "x" || key === "X") {
+          setScore(kind, stage, n, "x");
+          focusSector(svg, n + 1);
+        } else if (key === "Delete" || key === "-") {
+          setScore(kind, stage, n, null);
+        } else if (key === "Backspace") {
+          setScore(kind, stage, n, null);
+          focusSector(svg, n - 1);
+        } else if (key === " " || key === "Enter") {
+          setScore(kind, stage, n, nextScore(kind, scoresFor(kind, stage)[n - 1]));
+        } else if (key === "ArrowRight" || key === "ArrowDown") {
+          focusSector(svg, n + 1);
+        } else if (key === "ArrowLeft" || key === "ArrowUp") {
+          focusSector(svg, n - 1);
+        } else if (key === "Home") {
+          focusSector(svg, 1);
+        } else if (key === "End") {
+          focusSector(svg, segmentCount());
+        } else {
+          handled = false;
+        }
+        if (handled) event.preventDefault();
+      });
+    }
+    for (const input of $all("input[data-quick]")) {
+      const kind = input.dataset.quick;
+      const stage = input.dataset.stage;
+      input.addEventListener("input", () => {
+        const { scores, problems } = parseQuick(input.value);
+        while (scores.length < segmentCount()) scores.push(null);
+        state.scores[kind][stage] = scores;
+        if (problems.length) state.quickProblems[`${stage}.${kind}`] = problems;
+        else delete state.quickProblems[`${stage}.${kind}`];
+        paintMap(kind, stage);
+        changed();
+      });
+      input.addEventListener("blur", () => {
+        if (!state.quickProblems[`${stage}.${kind}`]) input.value = formatScores(kind, stage);
+      });
+    }
+    for (const button of $all("button[data-action]")) {
+      button.addEventListener("click", () => {
+        const { action, kind, stage } = button.dataset;
+        const list = scoresFor(kind, stage);
+        if (action === "copy-rest") {
+          const rest = scoresFor(kind, "rest");
+          if (rest.every((v) => v === null)) { setStatus("Nothing to copy: rest has no scores yet.", "warn"); return; }
+          state.scores[kind][stage] = rest.slice();
+          setStatus(`Copied the rest ${kind === "wall_motion" ? "wall-motion" : "perfusion"} scores to ${STAGE_TITLES[stage].toLowerCase()}.`);
+        } else if (action === "fill-normal") {
+          state.scores[kind][stage] = list.map((v) => (v === null ? 1 : v));
+        } else if (action === "clear") {
+          state.scores[kind][stage] = [];
+        }
+        delete state.quickProblems[`${stage}.${kind}`];
+        paintMap(kind, stage);
+        syncQuick(kind, stage);
+        changed();
+      });
+    }
+  }
+
+  function rebuildMaps() {
+    for (const svg of $all("svg.bullseye")) buildMap(svg);
+    for (const kind of KINDS) for (const stage of STAGES) syncQuick(kind, stage);
+  }
+
+  // --- stages -------------------------------------------------------------------------------
+
+  function activate(stage, focusTab) {
+    state.active = stage;
+    for (const tab of $all('[role="tab"]')) {
+      const on = tab.dataset.stage === stage;
+      tab.setAttribute("aria-selected", on ? "true" : "false");
+      tab.setAttribute("tabindex", on ? "0" : "-1");
+      if (on && focusTab) tab.focus();
+    }
+    for (const panel of $all(".stage")) panel.hidden = panel.dataset.stage !== stage;
+  }
+
+  function wireTabs() {
+    const tabs = $all('[role="tab"]');
+    tabs.forEach((tab, i) => {
+      tab.addEventListener("click", () => activate(tab.dataset.stage, false));
+      tab.addEventListener("keydown", (event) => {
+        let j = null;
+        if (event.key === "ArrowRight") j = (i + 1) % tabs.length;
+        else if (event.key === "ArrowLeft") j = (i - 1 + tabs.length) % tabs.length;
+        else if (event.key === "Home") j = 0;
+        else if (event.key === "End") j = tabs.length - 1;
+        if (j !== null) { event.preventDefault(); activate(tabs[j].dataset.stage, true); }
+      });
+    });
+  }
+
+  // --- the form <-> study data ------------------------------------------------------------------
+
+  function convert(raw, kind) {
+    if (kind === "int" && /^[-+]?\d+$/.test(raw)) return Number(raw);
+    if (kind === "float") {
+      const text = raw.replace(",", ".");
+      if (/^[-+]?(\d+\.?\d*|\.\d+)$/.test(text)) return Number(text);
+    }
+    return raw;
+  }
+
+  /** The study as the form holds it (possibly incomplete); unknown keys of an opened file kept. */
+  function collect() {
+    const data = clone(state.extras) || {};
+    data.schema_version = 1;
+    for (const el of $all("[data-path]")) {
+      const raw = el.value.trim();
+      if (raw !== "") setPath(data, el.dataset.path, convert(raw, el.dataset.kind));
+    }
+    const stages = isObject(data.stages) ? data.stages : {};
+    for (const stage of STAGES) {
+      for (const kind of KINDS) {
+        const list = state.scores[kind][stage].slice(0, Math.max(segmentCount(), state.scores[kind][stage].length));
+        if (list.some((v) => v !== null && v !== undefined)) {
+          if (!isObject(stages[stage])) stages[stage] = {};
+          stages[stage][kind] = scoresToDocument(list);
+        }
+      }
+    }
+    const ordered = {};
+    for (const stage of STAGES) if (stage in stages) ordered[stage] = stages[stage];
+    for (const stage of Object.keys(stages)) if (!(stage in ordered)) ordered[stage] = stages[stage];
+    data.stages = ordered;
+    return data;
+  }
+
+  function populate(doc) {
+    doc = isObject(doc) ? doc : {};
+    const extras = clone(doc);
+    delete extras.schema_version;
+    for (const el of $all("[data-path]")) {
+      const value = getPath(doc, el.dataset.path);
+      if (el.tagName === "SELECT") {
+        const wanted = value === undefined || value === null ? el.options[0].value : String(value);
+        el.value = wanted;
+        if (el.value !== wanted) {
+          // keep a value the list does not offer, so the server can say what is wrong with it
+          const option = new Option(wanted, wanted);
+          el.add(option);
+          el.value = wanted;
+        }
+      } else {
+        el.value = value === undefined || value === null ? "" : String(value);
+      }
+      deletePath(extras, el.dataset.path);
+    }
+    state.model = geometry.models[$("#f-segment_model").value] ? $("#f-segment_model").value : "17";
+    state.boundaries = null;
+    state.quickProblems = {};
+    for (const kind of KINDS) {
+      for (const stage of STAGES) {
+        state.scores[kind][stage] = scoresFromDocument(getPath(doc, `stages.${stage}.${kind}`));
+        deletePath(extras, `stages.${stage}.${kind}`);
+      }
+    }
+    state.extras = prune(extras);
+    rebuildMaps();
+    updateExercise();
+    const first = STAGES.find((s) => isObject(getPath(doc, `stages.${s}`))) || "rest";
+    activate(first, false);
+  }
+
+  function blankStudy() {
+    const today = new Date();
+    const iso = new Date(today.getTime() - today.getTimezoneOffset() * 60000).toISOString().slice(0, 10);
+    return { schema_version: 1, study: { date: iso }, segment_model: 17 };
+  }
+
+  function updateExercise() {
+    const protocol = $("#f-protocol").value;
+    const filled = $all('#exercise-fields [data-path]').some((el) => el.value.trim() !== "");
+    $("#exercise-fields").hidden = !(protocol === "treadmill" || protocol === "bicycle" || filled);
+  }
+
+  // --- problems -----------------------------------------------------------------------------
+
+  function clearProblems() {
+    for (const slot of $all("[data-error-for]")) { slot.replaceChildren(); slot.hidden = true; }
+    for (const el of $all('[aria-invalid="true"]')) el.removeAttribute("aria-invalid");
+    for (const el of $all(".sector.invalid")) el.classList.remove("invalid");
+    for (const tab of $all('[role="tab"]')) tab.classList.remove("has-problem");
+  }
+
+  function slotFor(path) {
+    const keys = path ? path.split(".") : [];
+    for (let n = keys.length; n > 0; n -= 1) {
+      const prefix = keys.slice(0, n).join(".");
+      const slot = $all("[data-error-for]").find((el) => el.dataset.errorFor === prefix && !el.classList.contains("problems"));
+      if (slot) return { slot, prefix };
+    }
+    return { slot: $("#general-problems"), prefix: "" };
+  }
+
+  function showProblems(problems) {
+    clearProblems();
+    const all = problems.slice();
+    for (const [where, list] of Object.entries(state.quickProblems)) {
+      for (const problem of list) all.push({ location: `stages.${where}`, path: `stages.${where}`, problem });
+    }
+    for (const p of all) {
+      let path = p.path || "";
+      const missing = /^required field '([A-Za-z_]+)' is missing$/.exec(p.problem);
+      if (missing) path = path ? `${path}.${missing[1]}` : missing[1];
+      const { slot, prefix } = slotFor(path);
+      const line = document.createElement("span");
+      line.className = "problem-line";
+      line.textContent = prefix ? p.problem : `${p.location ? p.location + ": " : ""}${p.problem}`;
+      slot.appendChild(line);
+      slot.hidden = false;
+      const control = prefix && ($(`[data-path="${prefix}"]`) || $(`[data-error-path="${prefix}"]`));
+      if (control) control.setAttribute("aria-invalid", "true");
+      const parts = path.split(".");
+      if (parts[0] === "stages" && parts[1]) {
+        const tab = $(`#tab-${parts[1]}`);
+        if (tab) tab.classList.add("has-problem");
+        const segment = /^segment (\d+)/.exec(p.problem);
+        const svg = parts[2] ? mapSvg(parts[2], parts[1]) : null;
+        if (segment && svg) {
+          const sector = $(`.sector[data-segment="${segment[1]}"]`, svg);
+          if (sector) sector.classList.add("invalid");
+        }
+      }
+    }
+    return all.length;
+  }
+
+  // --- live analysis ------------------------------------------------------------------------
+
+  const fixed2 = (v) => (typeof v === "number" ? v.toFixed(2) : "–");
+
+  function scoredCount(kind, stage) {
+    return scoresFor(kind, stage).filter((v) => v !== null && v !== undefined).length;
+  }
+
+  function showStageCounts(record) {
+    for (const stage of STAGES) {
+      const tabText = $(`[data-tab-wmsi="${stage}"]`);
+      const count = scoredCount("wall_motion", stage);
+      const wmsi = record && record.wmsi[stage];
+      tabText.textContent = typeof wmsi === "number" ? `WMSI ${wmsi.toFixed(2)}` : count ? `${count}/${segmentCount()} scored` : "not scored";
+      const out = $(`[data-wmsi="${stage}"]`);
+      out.textContent = typeof wmsi === "number" ? `${wmsi.toFixed(2)} (${record.wmsi_scored_segments[stage]} scored)` : "–";
+      const extent = record && record.perfusion.defect_extent_percent[stage];
+      $(`[data-extent="${stage}"]`).textContent = typeof extent === "number" ? `${Math.round(extent)} %` : "–";
+    }
+  }
+
+  function row(cells) {
+    const tr = document.createElement("tr");
+    cells.forEach((text, i) => {
+      const cell = document.createElement(i === 0 ? "th" : "td");
+      if (i === 0) cell.scope = "row";
+      cell.textContent = text;
+      tr.appendChild(cell);
+    });
+    return tr;
+  }
+
+  function fillList(listId, blockId, items) {
+    const list = $(listId);
+    list.replaceChildren();
+    for (const text of items) {
+      const li = document.createElement("li");
+      li.textContent = text;
+      list.appendChild(li);
+    }
+    $(blockId).hidden = items.length === 0;
+  }
+
+  function showResults(result) {
+    const record = result.record;
+    $("#results").hidden = false;
+    $("#results").classList.remove("stale");
+    const state_ = $("#analysis-state");
+    state_.textContent = `Up to date · ${clock()}`;
+    state_.dataset.kind = "ok";
+    const conclusion = $("#conclusion");
+    conclusion.textContent = result.summary;
+    conclusion.dataset.status = record.conclusion.status;
+    const wmsiBody = $("#wmsi-table tbody");
+    wmsiBody.replaceChildren();
+    for (const stage of record.stages) {
+      const h = record.haemodynamics[stage] || {};
+      wmsiBody.appendChild(row([
+        STAGE_TITLES[stage] || stage,
+        fixed2(record.wmsi[stage]),
+        record.wmsi_scored_segments[stage] === undefined ? "–" : String(record.wmsi_scored_segments[stage]),
+        h.heart_rate_bpm == null ? "–" : String(h.heart_rate_bpm),
+        h.rate_pressure_product == null ? "–" : String(h.rate_pressure_product),
+      ]));
+    }
+    const terrBody = $("#territory-table tbody");
+    terrBody.replaceChildren();
+    for (const [name, t] of Object.entries(record.territories)) {
+      const wm = t.wmsi;
+      terrBody.appendChild(row([
+        name,
+        t.segments.join(", "),
+        `${fixed2(wm.rest)} → ${fixed2(wm.peak)}`,
+        t.ischemic_segments.length ? t.ischemic_segments.join(", ") : "none",
+      ]));
+    }
+    $("#map-used").textContent = `Territory map: ${record.territory_map.title}`;
+    $("#stress-note").textContent = record.stress.adequacy_note;
+    fillList("#findings", "#findings-block", record.conclusion.high_risk_findings.map((f) => f.detail));
+    fillList("#notes", "#notes-block", record.notes.map((n) => n.text));
+    $("#narrative").textContent = result.narrative_text;
+    state.boundaries = result.territory_boundaries;
+    for (const path of $all("svg.bullseye .boundary")) path.setAttribute("d", state.boundaries);
+    showStageCounts(record);
+  }
+
+  function showRefused(count) {
+    const el = $("#analysis-state");
+    el.textContent = `Not computed: ${count} problem${count === 1 ? "" : "s"} to fix (shown beside the fields).`;
+    el.dataset.kind = "problem";
+    $("#results").classList.add("stale");
+    showStageCounts(null);
+  }
+
+  async function runAnalysis() {
+    const seq = ++state.analysisSeq;
+    const body = collect();
+    let response;
+    let answer;
+    try {
+      response = await fetch("/api/analyze", {
+        method: "POST",
+        headers: { "content-type": "application/json" },
+        body: JSON.stringify(body),
+      });
+      answer = await response.json();
+    } catch (error) {
+      if (seq === state.analysisSeq) setStatus(`The server did not answer (${error.message}); your entries are kept in this browser.`, "problem");
+      return;
+    }
+    if (seq !== state.analysisSeq) return;
+    if (response.ok) {
+      const count = showProblems([]);
+      if (count) showRefused(count);
+      else showResults(answer);
+    } else {
+      const problems = answer.problems && answer.problems.length ? answer.problems : [{ location: "", path: "", problem: answer.detail || `error ${response.status}` }];
+      showRefused(showProblems(problems));
+    }
+  }
+  const analyzeSoon = debounce(runAnalysis, ANALYZE_DELAY_MS);
+
+  // --- drafts -------------------------------------------------------------------------------
+
+  function draftKey(data) {
+    const id = data.study && typeof data.study.id === "string" ? data.study.id : "";
+    return ID_RULE.test(id) && id !== "." && id !== ".." ? id : "untitled";
+  }
+
+  function saveLocal(key, draft) {
+    try {
+      localStorage.setItem(LOCAL_PREFIX + key, JSON.stringify(draft));
+      localStorage.setItem(LOCAL_LAST, key);
+    } catch (error) {
+      /* storage full or switched off: the server copy still follows */
+    }
+  }
+  function dropLocal(key) {
+    try {
+      localStorage.removeItem(LOCAL_PREFIX + key);
+      if (localStorage.getItem(LOCAL_LAST) === key) localStorage.removeItem(LOCAL_LAST);
+    } catch (error) { /* nothing to drop */ }
+  }
+
+  async function sendDraft() {
+    if (!state.dirty) return;
+    const draft = { study: collect(), opened_from: state.openedFrom };
+    const key = draftKey(draft.study);
+    const previous = state.draftKey;
+    try {
+      const response = await fetch(`/api/drafts/${encodeURIComponent(key)}`, {
+        method: "PUT",
+        headers: { "content-type": "application/json" },
+        body: JSON.stringify(draft),
+      });
+      if (!response.ok) throw new Error(`status ${response.status}`);
+      state.draftKey = key;
+      if (previous && previous !== key) deleteDraft(previous);
+      setStatus(`Draft autosaved ${clock()} (this browser and the studies folder)`, "ok");
+    } catch (error) {
+      setStatus(`Draft kept in this browser only (${error.message})`, "warn");
+    }
+  }
+  const draftSoon = debounce(sendDraft, DRAFT_DELAY_MS);
+
+  async function deleteDraft(key) {
+    dropLocal(key);
+    try { await fetch(`/api/drafts/${encodeURIComponent(key)}`, { method: "DELETE" }); } catch (error) { /* offline */ }
+  }
+
+  function changed() {
+    state.dirty = true;
+    const draft = { study: collect(), opened_from: state.openedFrom, saved_at: new Date().toISOString() };
+    const key = draftKey(draft.study);
+    // one local draft per study: typing the id letter by letter must not leave a trail of drafts
+    if (state.localKey && state.localKey !== key) dropLocal(state.localKey);
+    state.localKey = key;
+    saveLocal(key, draft);
+    analyzeSoon();
+    draftSoon();
+  }
+
+  // --- files --------------------------------------------------------------------------------
+
+  async function refreshList() {
+    try {
+      const response = await fetch("/api/studies");
+      const listing = await response.json();
+      const studies = $("#open-studies");
+      const drafts = $("#open-drafts");
+      studies.replaceChildren();
+      drafts.replaceChildren();
+      for (const s of listing.studies) {
+        const label = [s.id, s.date, s.patient].filter(Boolean).join(" · ") + (s.valid ? "" : " (has problems)");
+        studies.appendChild(new Option(label, `study:${s.id}`));
+      }
+      for (const d of listing.drafts) drafts.appendChild(new Option(`${d.id} · draft`, `draft:${d.id}`));
+    } catch (error) { /* the list stays as it was */ }
+  }
+
+  function opened(doc, from, problems, message) {
+    populate(doc);
+    state.openedFrom = from;
+    state.dirty = false;
+    state.draftKey = null;
+    state.localKey = null;
+    showProblems(problems || []);
+    setStatus(message, "ok");
+    runAnalysis();
+  }
+
+  async function openSelected() {
+    const value = $("#open-select").value;
+    if (!value) { setStatus("Choose a study file or draft to open.", "warn"); return; }
+    const [what, id] = [value.slice(0, value.indexOf(":")), value.slice(value.indexOf(":") + 1)];
+    const url = what === "study" ? `/api/studies/${encodeURIComponent(id)}` : `/api/drafts/${encodeURIComponent(id)}`;
+    const response = await fetch(url);
+    const answer = await response.json();
+    if (!response.ok) { setStatus(`Cannot open ${id}: ${answer.detail}`, "problem"); showProblems(answer.problems || []); return; }
+    if (what === "study") {
+      opened(answer.study, answer.id, answer.problems, `Opened ${answer.file}${answer.problems.length ? ` — ${answer.problems.length} problem(s) to fix` : ""}`);
+      history.replaceState(null, "", `/?study=${encodeURIComponent(answer.id)}`);
+    } else {
+      const form = answer.form || {};
+      opened(form.study, form.opened_from || null, [], `Opened the draft ${id} (autosaved ${answer.saved_at || "earlier"})`);
+      state.dirty = true;
+      state.draftKey = id;
+      state.localKey = id;
+      history.replaceState(null, "", "/");
+    }
+  }
+
+  async function save(overwrite) {
+    const data = collect();
+    const id = data.study && data.study.id;
+    if (typeof id !== "string" || !id) {
+      showProblems([{ location: "study: study.id", path: "study.id", problem: "enter a study id before saving; it names the file" }]);
+      $("#f-study-id").focus();
+      setStatus("Not saved: the study needs an id.", "problem");
+      return false;
+    }
+    if (!ID_RULE.test(id) || id === "." || id === "..") {
+      await runAnalysis(); // the server words the id rule
+      setStatus("Not saved: the study id cannot name a file.", "problem");
+      return false;
+    }
+    const replace = overwrite || state.openedFrom === id;
+    const response = await fetch(`/api/studies/${encodeURIComponent(id)}?overwrite=${replace}`, {
+      method: "PUT",
+      headers: { "content-type": "application/json" },
+      body: JSON.stringify(data),
+    });
+    const answer = await response.json();
+    if (response.status === 409) {
+      if (window.confirm(`A study file ${id}.yaml already exists in the folder. Replace it?`)) return save(true);
+      setStatus("Not saved: choose another study id or confirm replacing the file.", "warn");
+      return false;
+    }
+    if (!response.ok) {
+      const count = showProblems(answer.problems || []);
+      showRefused(count);
+      setStatus(`Not saved: ${count} problem${count === 1 ? "" : "s"} to fix (shown beside the fields).`, "problem");
+      return false;
+    }
+    const key = state.draftKey;
+    state.openedFrom = id;
+    state.dirty = false;
+    state.draftKey = null;
+    for (const k of new Set([key, id, state.localKey])) if (k) deleteDraft(k);
+    state.localKey = null;
+    setStatus(`Saved ${answer.file} in the studies folder · ${clock()}`, "ok");
+    history.replaceState(null, "", `/?study=${encodeURIComponent(id)}`);
+    refreshList();
+    return true;
+  }
+
+  async function makeReport() {
+    const button = $("#report-button");
+    button.disabled = true;
+    try {
+      if (!(await save(false))) return;
+      const id = state.openedFrom;
+      setStatus(`Writing the report of ${id}…`);
+      const response = await fetch(`/api/studies/${encodeURIComponent(id)}/report`, { method: "POST" });
+      const answer = await response.json();
+      if (!response.ok) {
+        showProblems(answer.problems || []);
+        setStatus(`No report: ${answer.detail}`, "problem");
+        return;
+      }
+      const link = $("#report-link");
+      link.href = answer.pdf;
+      link.textContent = `Open ${id}.pdf`;
+      link.hidden = false;
+      setStatus(`Report written: ${answer.files.length} files in the reports folder · ${clock()}`, "ok");
+      window.open(answer.pdf, "_blank", "noopener");
+    } finally {
+      button.disabled = false;
+    }
+  }
+
+  function startNew() {
+    if (state.dirty && !window.confirm("Start a new study? The current entries stay in the autosaved drafts.")) return;
+    sendDraft();
+    populate(blankStudy());
+    state.openedFrom = null;
+    state.dirty = false;
+    state.draftKey = null;
+    state.localKey = null;
+    showProblems([]);
+    $("#results").hidden = true;
+    $("#analysis-state").textContent = "Enter scores to see the analysis.";
+    $("#report-link").hidden = true;
+    history.replaceState(null, "", "/");
+    setStatus("New study.");
+    $("#f-study-id").focus();
+  }
+
+  // --- start --------------------------------------------------------------------------------
+
+  function wireForm() {
+    for (const el of $all("[data-path]")) {
+      el.addEventListener("input", changed);
+      el.addEventListener("change", changed);
+    }
+    $("#f-segment_model").addEventListener("change", () => {
+      state.model = $("#f-segment_model").value;
+      state.boundaries = null;
+      rebuildMaps();
+    });
+    $("#f-wall_motion_scale").addEventListener("change", () => { for (const stage of STAGES) paintMap("wall_motion", stage); });
+    $("#f-territory_map").addEventListener("change", () => {
+      state.boundaries = null;
+      for (const path of $all("svg.bullseye .boundary")) path.setAttribute("d", currentBoundaries());
+    });
+    $("#f-protocol").addEventListener("change", updateExercise);
+    $("#open-button").addEventListener("click", openSelected);
+    $("#new-button").addEventListener("click", startNew);
+    $("#save-button").addEventListener("click", () => save(false));
+    $("#report-button").addEventListener("click", makeReport);
+    window.addEventListener("beforeunload", () => { if (state.dirty) draftSoon.flush(); });
+    for (const swatch of $all("[data-swatch]")) {
+      const [kind, score] = swatch.dataset.swatch.split(":");
+      const entry = score ? palette[kind][score] : palette[kind];
+      swatch.classList.add(kind === "not_seen" ? "hatched" : "filled");
+      if (kind !== "not_seen") swatch.style.backgroundColor = entry.fill;
+    }
+  }
+
+  function restoreLocal() {
+    try {
+      const key = localStorage.getItem(LOCAL_LAST);
+      const draft = key && JSON.parse(localStorage.getItem(LOCAL_PREFIX + key) || "null");
+      if (draft && isObject(draft.study)) return { key, draft };
+    } catch (error) { /* nothing stored */ }
+    return null;
+  }
+
+  function start() {
+    wireTabs();
+    wireForm();
+    rebuildMaps();
+    wireMaps();
+    const initial = readJson("initial");
+    const initialProblems = readJson("initial-problems") || [];
+    const local = restoreLocal();
+    if (initial) {
+      opened(initial.study, initial.id, initial.problems, `Opened ${initial.file}`);
+    } else if (local) {
+      opened(local.draft.study, local.draft.opened_from || null, [], `Restored your unsaved draft${local.draft.saved_at ? ` from ${clock(new Date(local.draft.saved_at))}` : ""}.`);
+      state.dirty = true;
+      state.draftKey = local.key;
+      state.localKey = local.key;
+    } else {
+      populate(blankStudy());
+      showStageCounts(null);
+    }
+    if (initialProblems.length) showProblems(initialProblems);
+  }
+
+  start();
+})();

@@ -1,0 +1,180 @@
+"""End to end in a real headless Chromium: enter a study by clicks and keys, watch WMSI, save, report.
+
+The app runs under uvicorn on a free loopback port in a background thread; Playwright for Python
+drives Debian's chromium (``/usr/bin/chromium``; CI installs it, and the test skips only when it
+is missing). Nothing leaves 127.0.0.1.
+"""
+
+from __future__ import annotations
+
+import io
+import socket
+import threading
+import time
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+import uvicorn
+from pypdf import PdfReader
+
+from reporting.load import load_study
+from reporting.model import Stage
+from reporting.web import create_app
+
+CHROMIUM = Path("/usr/bin/chromium")
+CHROMIUM_ARGS = [
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+]
+
+pytestmark = pytest.mark.skipif(
+    not CHROMIUM.exists(), reason="Debian chromium is not installed at /usr/bin/chromium"
+)
+
+
+def _free_port() -> int:
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        port: int = sock.getsockname()[1]
+        return port
+
+
+@pytest.fixture
+def server(tmp_path: Path) -> Iterator[tuple[str, Path]]:
+    studies = tmp_path / "studies"
+    config = uvicorn.Config(
+        create_app(studies), host="127.0.0.1", port=_free_port(), log_level="warning"
+    )
+    running = uvicorn.Server(config)
+    thread = threading.Thread(target=running.run, daemon=True)
+    thread.start()
+    deadline = time.monotonic() + 10
+    while not running.started:
+        if time.monotonic() > deadline or not thread.is_alive():
+            pytest.fail("the entry server did not start")
+        time.sleep(0.02)
+    yield f"http://127.0.0.1:{config.port}", studies
+    running.should_exit = True
+    thread.join(10)
+
+
+def _wait_for_file(path: Path, seconds: float = 8) -> None:
+    deadline = time.monotonic() + seconds
+    while not path.exists():
+        if time.monotonic() > deadline:
+            pytest.fail(f"{path.name} was not written")
+        time.sleep(0.05)
+
+
+def test_enter_a_study_by_clicks_and_keys_then_save_and_report(
+    server: tuple[str, Path], tmp_path: Path
+) -> None:
+    from playwright.sync_api import expect, sync_playwright
+
+    base, studies = server
+    with sync_playwright() as pw:
+        browser = pw.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
+        try:
+            context = browser.new_context(viewport={"width": 1500, "height": 1000})
+            context.set_default_timeout(8000)
+            page = context.new_page()
+            errors: list[str] = []
+            page.on("pageerror", lambda exc: errors.append(str(exc)))
+            page.goto(base + "/")
+
+            # header fields
+            page.fill("#f-study-id", "E2E-0001")
+            page.select_option("#f-protocol", "dobutamine")
+            page.fill("#f-patient-age_years", "60")
+            page.fill("#f-study-date", "2026-10-14")
+
+            # rest by the quick-entry line, typed key by key; the diagram follows
+            page.locator("#q-rest-wall_motion").press_sequentially("11111111111111111")
+            rest_map = page.locator('svg.bullseye[data-kind="wall_motion"][data-stage="rest"]')
+            expect(rest_map.locator('.sector[data-segment="17"]')).to_have_attribute(
+                "aria-label", "Segment 17, apex, wall motion: 1 normal"
+            )
+            page.fill("#f-stages-rest-heart_rate_bpm", "70")
+            page.fill("#f-stages-rest-systolic_bp_mmhg", "120")
+            # WMSI = mean of the scores (Lang RM et al., JASE 2015;28:1): all normal -> 1.00
+            expect(page.locator('[data-wmsi="rest"]')).to_have_text("1.00 (17 scored)")
+
+            # peak: copy rest, then change segments on the diagram
+            page.click("#tab-peak")
+            page.click(
+                'button[data-action="copy-rest"][data-kind="wall_motion"][data-stage="peak"]'
+            )
+            peak_map = page.locator('svg.bullseye[data-kind="wall_motion"][data-stage="peak"]')
+            peak_map.locator('.sector[data-segment="7"]').click()  # 1 -> 2 by click
+            peak_map.locator('.sector[data-segment="8"]').click()
+            peak_map.locator('.sector[data-segment="13"]').focus()
+            page.keyboard.press("2")  # 13 = 2, focus moves on to 14
+            page.keyboard.press("3")  # 14 = 3
+            page.keyboard.press("End")  # to the apex
+            page.keyboard.press("3")
+            expect(page.locator("#q-peak-wall_motion")).to_have_value("111111 221111 2311 3")
+            page.fill("#f-stages-peak-heart_rate_bpm", "150")
+            page.fill("#f-stages-peak-systolic_bp_mmhg", "150")
+            # (5 × 1 + 2 + 2 + 1 × 4 + 2 + 3 + 1 + 1 + 3) / 17 = 24 / 17
+            expect(page.locator('[data-wmsi="peak"]')).to_have_text("1.41 (17 scored)")
+            expect(page.locator("#tab-peak .tab-wmsi")).to_have_text("WMSI 1.41")
+            expect(page.locator("#conclusion")).to_contain_text("LAD territory")
+            expect(page.locator("#narrative")).to_contain_text(
+                "Territory WMSI 1.00 at rest, 2.00 at peak"
+            )
+
+            # a located message beside the field, and gone once fixed
+            page.fill("#f-stages-peak-diastolic_bp_mmhg", "low")
+            expect(page.locator("#f-stages-peak-diastolic_bp_mmhg-error")).to_have_text(
+                "'low' is not a number"
+            )
+            expect(page.locator("#f-stages-peak-diastolic_bp_mmhg")).to_have_attribute(
+                "aria-invalid", "true"
+            )
+            page.fill("#f-stages-peak-diastolic_bp_mmhg", "80")
+            expect(page.locator("#f-stages-peak-diastolic_bp_mmhg-error")).to_be_hidden()
+
+            # nothing lost: the draft is in the browser and in the drafts folder
+            _wait_for_file(studies / ".drafts" / "E2E-0001.json")
+            assert "E2E-0001" in page.evaluate("localStorage.getItem('segreport:last')")
+
+            # save: a study file the command line reads
+            page.click("#save-button")
+            expect(page.locator("#status")).to_contain_text("Saved E2E-0001.yaml")
+            study = load_study(studies / "E2E-0001.yaml")
+            assert study.stages[Stage.PEAK].wall_motion == {
+                n: s for n, s in enumerate([1] * 6 + [2, 2] + [1] * 4 + [2, 3, 1, 1, 3], start=1)
+            }
+
+            # report: the PDF is written, served, and carries the WMSI
+            page.click("#report-button")
+            link = page.locator("#report-link")
+            expect(link).to_be_visible()
+            href = link.get_attribute("href")
+            assert href == "/reports/E2E-0001.pdf"
+            pdf = page.request.get(base + href)
+            assert pdf.ok and pdf.headers["content-type"] == "application/pdf"
+            text = "".join(p.extract_text() for p in PdfReader(io.BytesIO(pdf.body())).pages)
+            assert "WMSI 1.41 (17 scored)" in text
+            assert (studies / "reports" / "E2E-0001.pdf").is_file()
+
+            # reopening the saved file brings the scores back onto the diagram
+            page.goto(base + "/?study=E2E-0001")
+            page.click("#tab-peak")
+            expect(page.locator("#q-peak-wall_motion")).to_have_value("111111 221111 2311 3")
+            expect(
+                page.locator(
+                    'svg.bullseye[data-kind="wall_motion"][data-stage="peak"] .sector[data-segment="14"]'
+                )
+            ).to_have_attribute("aria-label", "Segment 14, apical septal, wall motion: 3 akinetic")
+            page.screenshot(path=str(tmp_path / "entry.png"), full_page=True)
+            assert errors == []
+        finally:
+            browser.close()
