@@ -18,7 +18,9 @@ def _pdf_text(path: Path) -> str:
 def test_examples_match_a_fresh_demo(tmp_path: Path) -> None:
     write_demo(tmp_path)
     fresh = sorted(p.name for p in tmp_path.iterdir())
-    assert sorted(p.name for p in EXAMPLES.iterdir()) == fresh, "run `segreport demo -o examples/demo`"
+    assert sorted(p.name for p in EXAMPLES.iterdir()) == fresh, (
+        "run `segreport demo -o examples/demo`"
+    )
     for name in fresh:
         if name.endswith(".pdf"):
             # Compared as text: the layout bytes depend on the fonts a machine has.
