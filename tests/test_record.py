@@ -49,3 +49,13 @@ def test_record_is_stable(tmp_path: Path) -> None:
     first = analyze_file(tmp_path / "DEMO-0002.yaml")
     second = analyze_file(tmp_path / "DEMO-0002.yaml")
     assert record_dict(first) == record_dict(second)
+
+
+def test_record_text_is_plain_json_of_the_record(tmp_path: Path) -> None:
+    from reporting.export.record import record_json
+
+    write_demo(tmp_path, reports=False)
+    for name in demo_study_names():
+        analysis = analyze_file(tmp_path / name)
+        expected = json.dumps(record_dict(analysis), indent=2, ensure_ascii=False) + "\n"
+        assert record_json(analysis) == expected

@@ -24,7 +24,9 @@ def record_dict(analysis: Analysis) -> dict[str, Any]:
 
 def record_json(analysis: Analysis) -> str:
     """The record as indented JSON text ending in a newline."""
-    return json.dumps(record_dict(analysis), indent=2, ensure_ascii=False) + "\n"
+    # pydantic's serializer writes the same text as json.dumps(record_dict(...), indent=2,
+    # ensure_ascii=False), several times faster (tests/test_record.py checks the two agree).
+    return analysis.model_dump_json(indent=2) + "\n"
 
 
 def record_schema() -> dict[str, Any]:
