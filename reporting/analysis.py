@@ -51,17 +51,13 @@ from reporting.segments import (
     segments_of,
 )
 from reporting.settings import Settings, default_settings, load_settings
+from reporting.wording import CAUTIONS
 
 if TYPE_CHECKING:
     from reporting.kinetics.curves import CurveSet
 
 log = logging.getLogger(__name__)
 
-CAUTIONS = (
-    "Decision support for qualified clinicians: this report does not replace the judgement of the reading physician.",
-    "Computed values (indices, responses, targets, risk findings) must be reviewed by the physician before use.",
-    "Follow local protocols, current product labelling for stress and enhancing agents, and licensed practice.",
-)
 
 Scores = Mapping[int, int | None]
 

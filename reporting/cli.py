@@ -20,17 +20,13 @@ import click
 
 from reporting import __version__
 from reporting.errors import ReportingError, problems_of
+from reporting.wording import CAUTION_LINE
 
 F = TypeVar("F", bound=Callable[..., Any])
 
 # segreport uses no pydantic plugins; skipping their entry-point scan saves ~20-30 ms per command.
 # Set PYDANTIC_DISABLE_PLUGINS to an empty string to scan for plugins anyway.
 os.environ.setdefault("PYDANTIC_DISABLE_PLUGINS", "__all__")
-
-CAUTION = (
-    "Decision support for qualified clinicians: computed values need physician review; "
-    "follow local protocols, product labelling and licensed practice."
-)
 
 
 @contextmanager
@@ -60,7 +56,7 @@ def _lab_options(func: F) -> F:
 
 @click.group(
     context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100},
-    epilog=CAUTION,
+    epilog=CAUTION_LINE,
 )
 @click.version_option(__version__, prog_name="segreport")
 def main() -> None:

@@ -21,6 +21,7 @@ from reporting.results import (
 from reporting.scoring import WallMotionResponse
 from reporting.segments import Territory, adjacency
 from reporting.settings import Settings
+from reporting.wording import number_list, stage_words
 
 
 def high_risk_findings(
@@ -69,14 +70,14 @@ def high_risk_findings(
                 context = f" ({', '.join(when)})" if when else ""
                 add(
                     FindingCode.LOW_THRESHOLD_ISCHEMIA,
-                    f"{len(worse)} segments newly abnormal at {stage.value.replace('_', ' ')}{context}: {_nums(worse)}.",
+                    f"{len(worse)} segments newly abnormal at {stage.value.replace('_', ' ')}{context}: {number_list(worse)}.",
                     "low_threshold_abnormal_segments_min",
                 )
                 break
     if len(wm_ischemic) >= settings.extensive_ischemia_segments_min:
         add(
             FindingCode.EXTENSIVE_ISCHEMIA,
-            f"Ischaemia in {len(wm_ischemic)} segments: {_nums(wm_ischemic)}.",
+            f"Ischaemia in {len(wm_ischemic)} segments: {number_list(wm_ischemic)}.",
             "extensive_ischemia_segments_min",
         )
     if len(ischemic_territories) >= settings.multivessel_territories_min:
@@ -151,13 +152,13 @@ def quality_notes(
         notes.append(
             Note(
                 kind=NoteKind.NOT_VISUALISED,
-                text=f"Not visualised at {_stage_text(stage)}: segments {_nums(unseen)}.",
+                text=f"Not visualised at {stage_words(stage)}: segments {number_list(unseen)}.",
                 source=None,
             )
         )
         groups = scoring.connected_groups(unseen, touching)
         if groups and len(groups[0]) >= settings.contrast_suggest_contiguous_not_visualised_min:
-            suggest_at.append(f"{_stage_text(stage)} (segments {_nums(groups[0])})")
+            suggest_at.append(f"{stage_words(stage)} (segments {number_list(groups[0])})")
     if suggest_at and study.contrast is None:
         notes.append(
             Note(
@@ -208,17 +209,9 @@ def quality_notes(
         notes.append(
             Note(
                 kind=NoteKind.VIABILITY,
-                text=f"{len(biphasic)} segments show a biphasic response (segments {_nums(biphasic)}); "
+                text=f"{len(biphasic)} segments show a biphasic response (segments {number_list(biphasic)}); "
                 "recovery of global function after revascularisation is likely.",
                 source=src["viability_biphasic_segments_min"],
             )
         )
     return notes
-
-
-def _stage_text(stage: Stage) -> str:
-    return stage.value.replace("_", " ")
-
-
-def _nums(numbers: list[int]) -> str:
-    return ", ".join(str(n) for n in numbers)

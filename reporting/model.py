@@ -26,6 +26,7 @@ from pydantic import (
 from pydantic_core import InitErrorDetails, PydanticCustomError
 
 from reporting.segments import SegmentModel
+from reporting.wording import number_ranges
 
 STUDY_SCHEMA_VERSION = 1
 NOT_VISUALISED = "x"
@@ -412,7 +413,7 @@ class Study(_Input):
                     problems.append(
                         _problem(
                             where,
-                            f"{len(scores)} scores given; the {count}-segment model needs {count} (none for segment {_listing(missing)}; use x for not visualised)",
+                            f"{len(scores)} scores given; the {count}-segment model needs {count} (none for segment {number_ranges(missing)}; use x for not visualised)",
                             len(scores),
                         )
                     )
@@ -459,14 +460,3 @@ def _problem(loc: tuple[str | int, ...], message: str, value: Any) -> InitErrorD
     return InitErrorDetails(
         type=PydanticCustomError("study", "{message}", {"message": message}), loc=loc, input=value
     )
-
-
-def _listing(numbers: list[int]) -> str:
-    """``[2, 3, 4, 9]`` -> ``"2–4, 9"``."""
-    runs: list[list[int]] = []
-    for n in numbers:
-        if runs and n == runs[-1][-1] + 1:
-            runs[-1].append(n)
-        else:
-            runs.append([n])
-    return ", ".join(f"{r[0]}–{r[-1]}" if len(r) > 2 else ", ".join(map(str, r)) for r in runs)

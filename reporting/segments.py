@@ -20,6 +20,7 @@ from typing import Any
 import yaml
 
 from reporting.errors import InputError, InputErrors
+from reporting.wording import number_ranges
 
 
 class SegmentModel(IntEnum):
@@ -240,7 +241,7 @@ def parse_territory_map(data: Any, *, location: str) -> TerritoryMap:
         missing = [n for n in range(1, model + 1) if n not in seen]
         if missing:
             problems.append(
-                InputError(where, f"segments {_listing(missing)} belong to no territory")
+                InputError(where, f"segments {number_ranges(missing)} belong to no territory")
             )
         assignment[model] = seen
     if problems:
@@ -251,7 +252,3 @@ def parse_territory_map(data: Any, *, location: str) -> TerritoryMap:
         source=str(data.get("source", "lab-defined")),
         assignment=assignment,
     )
-
-
-def _listing(numbers: list[int]) -> str:
-    return ", ".join(str(n) for n in numbers)

@@ -23,6 +23,7 @@ from typing import Any
 from reporting.model import ReportStatus, Sex, Stage
 from reporting.results import Analysis, DiagnosticStatus, SegmentResult
 from reporting.segments import SegmentModel
+from reporting.wording import stage_words
 
 LOINC = "http://loinc.org"
 UCUM = "http://unitsofmeasure.org"
@@ -273,7 +274,7 @@ class _Builder:
                     coding.insert(0, {"system": LOINC, "code": loinc})
                 code = {
                     "coding": coding,
-                    "text": f"Wall motion, segment {seg.number} ({seg.name}), {_stage_text(stage)}",
+                    "text": f"Wall motion, segment {seg.number} ({seg.name}), {stage_words(stage)}",
                 }
                 value = _scored(score, LOCAL_WALL_MOTION_SCORE, WALL_MOTION_SCORE_TEXT)
                 out.append(
@@ -295,7 +296,7 @@ class _Builder:
                             "display": f"Contrast perfusion, segment {seg.number} ({seg.name})",
                         }
                     ],
-                    "text": f"Contrast perfusion, segment {seg.number} ({seg.name}), {_stage_text(stage)}",
+                    "text": f"Contrast perfusion, segment {seg.number} ({seg.name}), {stage_words(stage)}",
                 }
                 value = _scored(seg.perfusion[stage], LOCAL_PERFUSION_SCORE, PERFUSION_SCORE_TEXT)
                 out.append(self.observation(f"perfusion/{stage}/{seg.number}", code, value, stage))
@@ -312,7 +313,7 @@ class _Builder:
                         "display": "Wall motion score index",
                     }
                 ],
-                "text": f"Wall motion score index, {_stage_text(stage)} (local code: no LOINC code confirmed)",
+                "text": f"Wall motion score index, {stage_words(stage)} (local code: no LOINC code confirmed)",
             }
             quantity = {"valueQuantity": {"value": value, "unit": "1", "system": UCUM, "code": "1"}}
             out.append(self.observation(f"wmsi/{stage}", code, quantity, stage))
@@ -325,7 +326,7 @@ class _Builder:
                 continue
             code = {
                 "coding": [{"system": LOINC, "code": LVEF_LOINC}],
-                "text": f"Left ventricular ejection fraction, {_stage_text(stage)}",
+                "text": f"Left ventricular ejection fraction, {stage_words(stage)}",
             }
             quantity = {
                 "valueQuantity": {
@@ -370,10 +371,6 @@ def _stage_component(stage: Stage) -> dict[str, Any]:
             "coding": [{"system": LOCAL_OBSERVATION, "code": "stage", "display": "Stress stage"}]
         },
         "valueCodeableConcept": {
-            "coding": [{"system": LOCAL_STAGE, "code": stage.value, "display": _stage_text(stage)}]
+            "coding": [{"system": LOCAL_STAGE, "code": stage.value, "display": stage_words(stage)}]
         },
     }
-
-
-def _stage_text(stage: Stage) -> str:
-    return stage.value.replace("_", " ")

@@ -27,7 +27,7 @@ from fastapi.responses import FileResponse, HTMLResponse, JSONResponse, Response
 from fastapi.staticfiles import StaticFiles
 
 from reporting import __version__
-from reporting.analysis import CAUTIONS, analyze, resolve_territory_map
+from reporting.analysis import analyze, resolve_territory_map
 from reporting.errors import InputError, InputErrors, ReportingError
 from reporting.export.record import record_dict
 from reporting.load import study_from_data
@@ -49,6 +49,7 @@ from reporting.web.api import (
     problem_of,
 )
 from reporting.web.store import Folder
+from reporting.wording import CAUTIONS
 
 log = logging.getLogger(__name__)
 

@@ -1,0 +1,43 @@
+"""Small pieces of wording shared by the record, the reports, the exports and the command line.
+
+Kept free of heavy imports so the command line can use it for its help text.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+from enum import Enum
+
+CAUTIONS = (
+    "Decision support for qualified clinicians: this report does not replace the judgement of the reading physician.",
+    "Computed values (indices, responses, targets, risk findings) must be reviewed by the physician before use.",
+    "Follow local protocols, current product labelling for stress and enhancing agents, and licensed practice.",
+)
+"""The cautions every report, record and export carries."""
+
+CAUTION_LINE = (
+    "Decision support for qualified clinicians: computed values need physician review; "
+    "follow local protocols, product labelling and licensed practice."
+)
+"""The cautions in one line, for help texts and short outputs."""
+
+
+def stage_words(stage: Enum) -> str:
+    """A stage name as words: ``low_dose`` -> ``low dose``."""
+    return str(stage.value).replace("_", " ")
+
+
+def number_list(numbers: Iterable[int]) -> str:
+    """``[1, 2, 7]`` -> ``"1, 2, 7"``."""
+    return ", ".join(str(n) for n in numbers)
+
+
+def number_ranges(numbers: Iterable[int]) -> str:
+    """Consecutive runs of three or more shortened: ``[2, 3, 4, 9]`` -> ``"2–4, 9"``."""
+    runs: list[list[int]] = []
+    for n in numbers:
+        if runs and n == runs[-1][-1] + 1:
+            runs[-1].append(n)
+        else:
+            runs.append([n])
+    return ", ".join(f"{r[0]}–{r[-1]}" if len(r) > 2 else number_list(r) for r in runs)
