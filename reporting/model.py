@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import datetime as dt
 import re
+from collections.abc import Mapping
 from enum import StrEnum
 from typing import Annotated, Any, Literal
 
@@ -19,11 +20,12 @@ from pydantic import (
     BeforeValidator,
     ConfigDict,
     Field,
+    ModelWrapValidatorHandler,
     ValidationError,
     WithJsonSchema,
     model_validator,
 )
-from pydantic_core import InitErrorDetails, PydanticCustomError
+from pydantic_core import ErrorDetails, InitErrorDetails, PydanticCustomError
 
 from reporting.segments import SegmentModel
 from reporting.wording import number_ranges
@@ -46,6 +48,8 @@ class Stage(StrEnum):
 
 
 STAGE_ORDER: tuple[Stage, ...] = tuple(Stage)
+_STAGE_VALUES: list[str] = [s.value for s in Stage]
+MAX_AGE_YEARS = 120
 STRESS_STAGES: tuple[Stage, ...] = (Stage.LOW_DOSE, Stage.PEAK)
 
 
@@ -101,8 +105,13 @@ _FORBIDDEN_IDS = frozenset({".", ".."})
 
 
 def _check_id(value: Any) -> Any:
-    if isinstance(value, int) and not isinstance(value, bool):
-        value = str(value)
+    if isinstance(value, bool | int | float):
+        # YAML reads 0012 as 10 and 12:30 as 750: an id must be written as text.
+        raise PydanticCustomError(
+            "id_not_text",
+            "id {value} was read as a number; put the id in quotes",
+            {"value": repr(value)},
+        )
     if isinstance(value, str) and (value in _FORBIDDEN_IDS or not _ID_PATTERN.fullmatch(value)):
         raise PydanticCustomError(
             "unsafe_id",
@@ -113,12 +122,26 @@ def _check_id(value: Any) -> Any:
     return value
 
 
-SafeId = Annotated[str, BeforeValidator(_check_id)]
+def _not_boolean(value: Any) -> Any:
+    if isinstance(value, bool):
+        raise PydanticCustomError("boolean", "true/false is not allowed here", {})
+    return value
+
+
+SafeId = Annotated[
+    str,
+    BeforeValidator(_check_id),
+    WithJsonSchema(
+        {"type": "string", "pattern": _ID_PATTERN.pattern, "not": {"enum": sorted(_FORBIDDEN_IDS)}}
+    ),
+]
 
 
 def _parse_scores(value: Any) -> Any:
     """Turn the character form into a mapping; check mapping keys are distinct segment numbers."""
-    if isinstance(value, int) and not isinstance(value, bool):
+    if isinstance(value, bool):
+        raise PydanticCustomError("boolean_scores", "true/false is not a set of scores", {})
+    if isinstance(value, int):
         value = str(value)  # YAML reads an unquoted all-digit score string as an integer
     if isinstance(value, str):
         text = value.replace(" ", "")
@@ -140,6 +163,12 @@ def _parse_scores(value: Any) -> Any:
     if isinstance(value, dict):
         seen: dict[int, Any] = {}
         for key, score in value.items():
+            if isinstance(key, bool) or isinstance(score, bool):
+                raise PydanticCustomError(
+                    "boolean_score",
+                    "{item} uses true/false, which is neither a segment number nor a score",
+                    {"item": repr(f"{key}: {score}")},
+                )
             number = _segment_key(key)
             if number in seen:
                 raise PydanticCustomError(
@@ -216,7 +245,9 @@ PerfusionScores = Annotated[
 
 
 class _Input(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True, str_strip_whitespace=True)
+    model_config = ConfigDict(
+        extra="forbid", frozen=True, str_strip_whitespace=True, allow_inf_nan=False
+    )
 
 
 class StudyInfo(_Input):
@@ -337,10 +368,13 @@ class Study(_Input):
         extra="forbid",
         frozen=True,
         str_strip_whitespace=True,
+        allow_inf_nan=False,
         json_schema_extra={"$id": "https://segreport.invalid/schemas/study-1.schema.json"},
     )
 
-    schema_version: Literal[1] = Field(description="Version of the study-file format.")
+    schema_version: Annotated[Literal[1], BeforeValidator(_not_boolean)] = Field(
+        description="Version of the study-file format."
+    )
     study: StudyInfo = Field(description="Identification of the study.")
     patient: Patient = Field(default_factory=Patient, description="Patient details (all optional).")
     indication: str | None = Field(
@@ -379,54 +413,46 @@ class Study(_Input):
         description="Reader's free-text comments, printed in the report.",
     )
 
+    @model_validator(mode="wrap")
+    @classmethod
+    def _every_problem(cls, data: Any, handler: ModelWrapValidatorHandler[Study]) -> Study:
+        # Field errors stop pydantic before the whole-study checks run; run those checks on the
+        # raw data as well, so a reader sees every problem in one pass.
+        try:
+            return handler(data)
+        except ValidationError as exc:
+            if not isinstance(data, dict):
+                raise
+            known = [tuple(e["loc"]) for e in exc.errors()]
+            extra = [
+                p
+                for p in _raw_study_problems(data)
+                if not any(k[: len(p["loc"])] == p["loc"] for k in known)
+            ]
+            if not extra:
+                raise
+            raise ValidationError.from_exception_data(
+                "Study", [*map(_again, exc.errors()), *extra]
+            ) from None
+
     @model_validator(mode="after")
-    def _scores_fit_model(self) -> Study:
-        problems: list[InitErrorDetails] = []
-        order = [STAGE_ORDER.index(s) for s in self.stages]
-        if order != sorted(order):
-            given = ", ".join(self.stages)
-            problems.append(
-                _problem(
-                    ("stages",),
-                    f"stages must come in protocol order (rest, low_dose, peak, recovery); given {given}",
-                    given,
-                )
-            )
-        count = int(self.segment_model)
-        for stage, data in self.stages.items():
-            for kind in ("wall_motion", "perfusion"):
-                scores: dict[int, int | None] | None = getattr(data, kind)
-                if scores is None:
-                    continue
-                where = ("stages", stage.value, kind)
-                extra = sorted(n for n in scores if n > count)
-                for n in extra:
-                    problems.append(
-                        _problem(
-                            (*where, n),
-                            f"segment {n} does not exist in the {count}-segment model",
-                            scores[n],
-                        )
-                    )
-                missing = [n for n in range(1, count + 1) if n not in scores]
-                if missing:
-                    problems.append(
-                        _problem(
-                            where,
-                            f"{len(scores)} scores given; the {count}-segment model needs {count} (none for segment {number_ranges(missing)}; use x for not visualised)",
-                            len(scores),
-                        )
-                    )
-                if kind == "wall_motion" and self.wall_motion_scale == 4:
-                    for n, score in scores.items():
-                        if score == 5 and n <= count:
-                            problems.append(
-                                _problem(
-                                    (*where, n),
-                                    "score 5 (aneurysmal) needs wall_motion_scale: 5",
-                                    score,
-                                )
-                            )
+    def _whole_study(self) -> Study:
+        stages = {
+            stage.value: {
+                kind: scores
+                for kind in ("wall_motion", "perfusion")
+                if (scores := getattr(data, kind)) is not None
+            }
+            for stage, data in self.stages.items()
+        }
+        problems = _study_problems(
+            int(self.segment_model),
+            self.wall_motion_scale,
+            stages,
+            self.patient.birth_date,
+            self.study.date,
+            self.patient.age_years,
+        )
         if problems:
             raise ValidationError.from_exception_data("Study", problems)
         return self
@@ -436,24 +462,140 @@ class Study(_Input):
         if self.patient.age_years is not None:
             return self.patient.age_years
         born = self.patient.birth_date
-        if born is None:
-            return None
-        on = self.study.date
-        return on.year - born.year - ((on.month, on.day) < (born.month, born.day))
+        return None if born is None else _age_on(born, self.study.date)
 
-    @model_validator(mode="after")
-    def _birth_before_study(self) -> Study:
-        born = self.patient.birth_date
-        if born is not None and born > self.study.date:
-            raise ValidationError.from_exception_data(
-                "Study",
-                [
-                    _problem(
-                        ("patient", "birth_date"), "birth date is after the study date", str(born)
-                    )
-                ],
+
+def _age_on(born: dt.date, on: dt.date) -> int:
+    return on.year - born.year - ((on.month, on.day) < (born.month, born.day))
+
+
+def _study_problems(
+    count: int | None,
+    scale: int,
+    stages: Mapping[str, Mapping[str, Mapping[int, Any]]],
+    born: dt.date | None,
+    on: dt.date | None,
+    age_years: int | None,
+) -> list[InitErrorDetails]:
+    """Checks that need the whole study: stage order, scores against the model, age."""
+    problems: list[InitErrorDetails] = []
+    names = [name for name in stages if name in _STAGE_VALUES]
+    if names != sorted(names, key=_STAGE_VALUES.index):
+        given = ", ".join(names)
+        problems.append(
+            _problem(
+                ("stages",),
+                f"stages must come in protocol order (rest, low_dose, peak, recovery); given {given}",
+                given,
             )
-        return self
+        )
+    for stage, by_kind in stages.items():
+        for kind, scores in by_kind.items():
+            where = ("stages", stage, kind)
+            if count is None:
+                continue
+            for n in sorted(n for n in scores if n > count):
+                problems.append(
+                    _problem(
+                        (*where, n),
+                        f"segment {n} does not exist in the {count}-segment model",
+                        scores[n],
+                    )
+                )
+            missing = [n for n in range(1, count + 1) if n not in scores]
+            if missing:
+                problems.append(
+                    _problem(
+                        where,
+                        f"{len(scores)} scores given; the {count}-segment model needs {count} "
+                        f"(none for segment {number_ranges(missing)}; use x for not visualised)",
+                        len(scores),
+                    )
+                )
+            if kind == "wall_motion" and scale == 4:
+                for n, score in scores.items():
+                    if score == 5 and n <= count:
+                        problems.append(
+                            _problem(
+                                (*where, n),
+                                "score 5 (aneurysmal) needs wall_motion_scale: 5",
+                                score,
+                            )
+                        )
+    if born is not None and on is not None:
+        age = _age_on(born, on)
+        if born > on:
+            problems.append(
+                _problem(("patient", "birth_date"), "birth date is after the study date", str(born))
+            )
+        elif age > MAX_AGE_YEARS:
+            problems.append(
+                _problem(
+                    ("patient", "birth_date"),
+                    f"gives an age of {age} years at the study date",
+                    str(born),
+                )
+            )
+        elif age_years is not None and abs(age - age_years) > 1:
+            problems.append(
+                _problem(
+                    ("patient", "age_years"),
+                    f"{age_years} disagrees with the birth date (age {age} at the study date)",
+                    age_years,
+                )
+            )
+    return problems
+
+
+def _raw_study_problems(data: dict[Any, Any]) -> list[InitErrorDetails]:
+    """:func:`_study_problems` on unvalidated data, using whatever parts of it can be read."""
+    model = data.get("segment_model", int(SegmentModel.SEVENTEEN))
+    count = model if model in (16, 17, 18) and not isinstance(model, bool) else None
+    scale = 5 if data.get("wall_motion_scale") == 5 else 4
+    stages: dict[str, dict[str, dict[int, Any]]] = {}
+    raw_stages = data.get("stages")
+    for name, stage in raw_stages.items() if isinstance(raw_stages, dict) else ():
+        if name not in _STAGE_VALUES or not isinstance(stage, dict):
+            continue
+        stages[name] = {}
+        for kind in ("wall_motion", "perfusion"):
+            try:
+                scores = _parse_scores(stage.get(kind))
+            except PydanticCustomError:
+                continue
+            if isinstance(scores, dict) and all(isinstance(k, int) for k in scores):
+                stages[name][kind] = scores
+    study, patient = data.get("study"), data.get("patient")
+    on = _date_or_none(study.get("date") if isinstance(study, dict) else None)
+    born = _date_or_none(patient.get("birth_date") if isinstance(patient, dict) else None)
+    age = patient.get("age_years") if isinstance(patient, dict) else None
+    return _study_problems(
+        count,
+        scale,
+        stages,
+        born,
+        on,
+        age if isinstance(age, int) and not isinstance(age, bool) else None,
+    )
+
+
+def _date_or_none(value: Any) -> dt.date | None:
+    if isinstance(value, dt.date):
+        return value
+    try:
+        return dt.date.fromisoformat(value) if isinstance(value, str) else None
+    except ValueError:
+        return None
+
+
+def _again(error: ErrorDetails) -> InitErrorDetails:
+    """An error pydantic reported, in the form that can be raised again unchanged."""
+    message = error["msg"].replace("{", "{{").replace("}", "}}")
+    return InitErrorDetails(
+        type=PydanticCustomError(error["type"], message, error.get("ctx")),
+        loc=error["loc"],
+        input=error["input"],
+    )
 
 
 def _problem(loc: tuple[str | int, ...], message: str, value: Any) -> InitErrorDetails:

@@ -19,6 +19,7 @@ from typing import Any
 
 import yaml
 
+from reporting.documents import read_yaml
 from reporting.errors import InputError, InputErrors
 from reporting.wording import number_ranges
 
@@ -184,12 +185,7 @@ def built_in_map(name: str) -> TerritoryMap:
 
 def load_territory_map(path: Path) -> TerritoryMap:
     """A lab-defined map from a YAML file shaped like ``data/territory_maps/standard.yaml``."""
-    try:
-        data = yaml.safe_load(path.read_text(encoding="utf-8"))
-    except OSError as exc:
-        raise InputError(str(path), f"cannot read territory map: {exc.strerror or exc}") from None
-    except (yaml.YAMLError, UnicodeDecodeError) as exc:
-        raise InputError(str(path), f"not a readable YAML territory map ({exc})") from None
+    data = read_yaml(path, what="territory map")
     return parse_territory_map(data, location=str(path))
 
 

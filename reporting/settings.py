@@ -16,6 +16,7 @@ from typing import Any
 import yaml
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
+from reporting.documents import read_yaml
 from reporting.errors import InputError, InputErrors
 from reporting.model import Protocol
 
@@ -175,12 +176,7 @@ def load_settings(path: Path | None) -> Settings:
     """Defaults overridden by the lab settings file at ``path`` (``None``: the defaults)."""
     if path is None:
         return default_settings()
-    try:
-        overrides = yaml.safe_load(path.read_text(encoding="utf-8"))
-    except OSError as exc:
-        raise InputError(str(path), f"cannot read settings: {exc.strerror or exc}") from None
-    except (yaml.YAMLError, UnicodeDecodeError) as exc:
-        raise InputError(str(path), f"not a readable YAML settings file ({exc})") from None
+    overrides = read_yaml(path, what="settings file")
     if overrides is None:
         return default_settings()
     if not isinstance(overrides, dict):

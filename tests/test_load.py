@@ -193,6 +193,96 @@ GALLERY: list[tuple[str, str, str | bytes, str, str]] = [
     ),
     ("no-stages", "s.yaml", _with(["stages"], {}), "stages", "at least one stage is needed"),
     ("wrong-extension", "s.txt", GOOD, "s.txt", "unknown file type"),
+    # Deep nesting would exhaust the parser's stack (a crash, not an error) if it were parsed.
+    (
+        "deep-yaml",
+        "s.yaml",
+        "a: " + "[" * 50_000 + "]" * 50_000 + "\n",
+        "line 1",
+        "nested more than 64 levels deep",
+    ),
+    ("deep-json", "s.json", "[" * 100_000 + "]" * 100_000, "s.json", "nested too deeply"),
+    # YAML accepts the shape of a date but not an impossible one.
+    (
+        "impossible-date",
+        "s.yaml",
+        GOOD.replace("'2026-10-14'", "2026-02-30"),
+        "s.yaml",
+        "day is out of range for month",
+    ),
+    (
+        "unknown-boolean",
+        "s.yaml",
+        GOOD.replace("schema_version: 1", "schema_version: !!bool maybe"),
+        "s.yaml",
+        "invalid YAML value",
+    ),
+    (
+        "huge-integer",
+        "s.json",
+        json.dumps(study_dict()).replace('"schema_version": 1', '"schema_version": ' + "9" * 5000),
+        "s.json",
+        "invalid JSON",
+    ),
+    # YAML reads 0012 as the octal number 10: ids must be text.
+    (
+        "octal-id",
+        "s.yaml",
+        GOOD.replace("id: T-0001", "id: 0012"),
+        "study.id",
+        "read as a number; put the id in quotes",
+    ),
+    (
+        "boolean-score",
+        "s.yaml",
+        _with(["stages", "peak", "wall_motion"], {**{n: 1 for n in range(1, 17)}, 17: True}),
+        "stages.peak.wall_motion",
+        "true/false",
+    ),
+    (
+        "boolean-schema-version",
+        "s.yaml",
+        _with(["schema_version"], True),
+        "schema_version",
+        "true/false is not allowed",
+    ),
+    (
+        "nan-heart-rate",
+        "s.json",
+        json.dumps(study_dict()).replace('"heart_rate_bpm": 70', '"heart_rate_bpm": NaN'),
+        "stages.rest.heart_rate_bpm",
+        "not a",
+    ),
+    (
+        "nan-lvef",
+        "s.json",
+        json.dumps(study_dict()).replace('"heart_rate_bpm": 70', '"lvef_percent": NaN'),
+        "stages.rest.lvef_percent",
+        "not a finite number",
+    ),
+    (
+        "empty-stage",
+        "s.yaml",
+        _with(["stages", "peak"], None),
+        "stages.peak",
+        "expected a mapping of fields",
+    ),
+    # An age from the birth date is checked like a given age.
+    (
+        "age-226",
+        "s.yaml",
+        _with(["patient"], {"birth_date": "1800-01-01"}),
+        "patient.birth_date",
+        "gives an age of 226 years",
+    ),
+    (
+        "age-disagrees",
+        "s.yaml",
+        _with(["patient"], {"birth_date": "1960-01-01", "age_years": 40}),
+        "patient.age_years",
+        "disagrees with the birth date",
+    ),
+    ("folder-named-yaml", "dir.yaml", "", "dir.yaml", "is a folder"),
     (
         "missing-map-file",
         "s.yaml",
@@ -210,7 +300,9 @@ def test_bad_input_is_located_and_writes_nothing(
     tmp_path: Path, name: str, content: str | bytes, location: str, problem: str
 ) -> None:
     study = tmp_path / name
-    if isinstance(content, bytes):
+    if name == "dir.yaml":
+        study.mkdir()
+    elif isinstance(content, bytes):
         study.write_bytes(content)
     else:
         study.write_text(content, encoding="utf-8")
@@ -251,3 +343,20 @@ def test_validate_lists_each_file(tmp_path: Path) -> None:
     assert f"ok: {good}" in result.stdout
     assert f"Error: {bad}: protocol:" in result.stderr
     assert "1 of 2 file(s) have problems." in result.stderr
+
+
+def test_field_errors_do_not_hide_whole_study_problems(tmp_path: Path) -> None:
+    # A field error (heart rate), a model-level error (17 scores in an 18-segment study) and an
+    # age problem are all reported in one run.
+    data = study_dict(segment_model=18, patient={"birth_date": "2030-01-01"})
+    data["stages"]["rest"]["heart_rate_bpm"] = 999
+    data["stages"]["rest"]["wall_motion"] = "111111 111111 111111"
+    study = tmp_path / "s.yaml"
+    study.write_text(_yaml(data))
+    result = CliRunner().invoke(main, ["validate", str(study)])
+    assert result.exit_code == 1
+    text = result.stderr
+    assert "stages.rest.heart_rate_bpm: 999 is above the allowed maximum 260" in text
+    assert "stages.peak.wall_motion: 17 scores given; the 18-segment model needs 18" in text
+    assert "patient.birth_date: birth date is after the study date" in text
+    assert len([line for line in text.splitlines() if line.startswith("Error: ")]) == 3

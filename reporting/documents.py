@@ -1,0 +1,157 @@
+"""Reading YAML and JSON documents safely: the parsing half of every load boundary.
+
+Study files, lab settings and territory maps all come through here, so each gets the same
+protection: a size limit, text checks (empty, binary, not UTF-8), no YAML aliases (an alias bomb
+cannot expand), no duplicate keys, a nesting limit (deep nesting would exhaust the parser's stack),
+and every parser failure — including values such as ``2026-02-30`` that YAML accepts but cannot
+build — reported as an :class:`~reporting.errors.InputError` with the file and, where known, the line.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any
+
+import yaml
+
+from reporting.errors import InputError
+
+MAX_DOCUMENT_BYTES = 1_000_000
+MAX_NESTING = 64
+"""Deepest nesting of mappings and lists accepted; real study files use fewer than ten levels."""
+
+# libyaml's C loader when PyYAML was built with it (about 3x faster), else the pure-Python one.
+_SafeLoader: type[yaml.SafeLoader] = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+_OPENING = (
+    yaml.BlockMappingStartToken,
+    yaml.BlockSequenceStartToken,
+    yaml.FlowMappingStartToken,
+    yaml.FlowSequenceStartToken,
+)
+_CLOSING = (yaml.BlockEndToken, yaml.FlowMappingEndToken, yaml.FlowSequenceEndToken)
+# What building a value can raise besides YAMLError: bad dates (ValueError), unknown booleans
+# (KeyError), digit limits on huge integers (ValueError), deep structures (RecursionError).
+_BUILD_ERRORS = (ValueError, KeyError, TypeError, OverflowError, RecursionError)
+
+
+def read_text(path: Path, *, what: str = "file", max_bytes: int = MAX_DOCUMENT_BYTES) -> str:
+    """The UTF-8 text of ``path``, or an :class:`InputError` saying why it cannot be read."""
+    where = str(path)
+    try:
+        raw = path.read_bytes()
+    except IsADirectoryError:
+        raise InputError(where, f"is a folder, not a {what}") from None
+    except FileNotFoundError:
+        raise InputError(where, f"cannot read {what}: no such file") from None
+    except OSError as exc:
+        raise InputError(where, f"cannot read {what}: {exc.strerror or exc}") from None
+    if len(raw) > max_bytes:
+        raise InputError(where, f"file is {len(raw):,} bytes; a {what} is at most {max_bytes:,}")
+    if not raw.strip():
+        raise InputError(where, "file is empty")
+    if b"\x00" in raw:
+        raise InputError(where, "binary file, not YAML or JSON text")
+    try:
+        return raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise InputError(where, f"not UTF-8 text (byte {exc.start})") from None
+
+
+def parse_json(text: str, where: str) -> Any:
+    """Parse JSON text, refusing duplicate keys."""
+
+    def no_duplicates(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
+        out: dict[str, Any] = {}
+        for key, value in pairs:
+            if key in out:
+                raise InputError(where, f"key {key!r} appears twice in one object")
+            out[key] = value
+        return out
+
+    try:
+        return json.loads(text, object_pairs_hook=no_duplicates)
+    except json.JSONDecodeError as exc:
+        raise InputError(
+            f"{where}: line {exc.lineno}, column {exc.colno}", f"invalid JSON: {exc.msg}"
+        ) from None
+    except RecursionError:
+        raise InputError(where, "invalid JSON: nested too deeply") from None
+    except ValueError as exc:
+        raise InputError(where, f"invalid JSON: {exc}") from None
+
+
+class _StrictLoader(_SafeLoader):  # type: ignore[valid-type, misc]
+    """Safe YAML with duplicate keys refused (aliases and deep nesting are refused before loading)."""
+
+
+def _mapping(loader: yaml.SafeLoader, node: yaml.MappingNode) -> dict[Any, Any]:
+    loader.flatten_mapping(node)
+    out: dict[Any, Any] = {}
+    for key_node, value_node in node.value:
+        key = loader.construct_object(key_node, deep=True)
+        try:
+            hash(key)
+        except TypeError:
+            raise yaml.constructor.ConstructorError(
+                None, None, "a mapping key must be a plain value", key_node.start_mark
+            ) from None
+        if key in out:
+            raise yaml.constructor.ConstructorError(
+                None, None, f"key {key!r} appears twice in one mapping", key_node.start_mark
+            )
+        out[key] = loader.construct_object(value_node, deep=True)
+    return out
+
+
+_StrictLoader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _mapping)
+
+
+def _check_tokens(text: str) -> None:
+    depth = 0
+    for token in yaml.scan(text, Loader=_SafeLoader):
+        if isinstance(token, yaml.AliasToken):
+            raise yaml.composer.ComposerError(
+                None, None, "anchors and aliases are not allowed", token.start_mark
+            )
+        if isinstance(token, _OPENING):
+            depth += 1
+            if depth > MAX_NESTING:
+                raise yaml.composer.ComposerError(
+                    None, None, f"nested more than {MAX_NESTING} levels deep", token.start_mark
+                )
+        elif isinstance(token, _CLOSING):
+            depth -= 1
+
+
+def parse_yaml(text: str, where: str) -> Any:
+    """Parse YAML text safely: no aliases, no duplicate keys, bounded nesting."""
+    try:
+        _check_tokens(text)
+        return yaml.load(text, Loader=_StrictLoader)
+    except yaml.MarkedYAMLError as exc:
+        mark = exc.problem_mark or exc.context_mark
+        at = f"{where}: line {mark.line + 1}, column {mark.column + 1}" if mark else where
+        raise InputError(at, f"invalid YAML: {exc.problem or exc.context}") from None
+    except yaml.YAMLError as exc:
+        raise InputError(where, f"invalid YAML: {exc}") from None
+    except _BUILD_ERRORS as exc:
+        raise InputError(where, f"invalid YAML value: {exc}") from None
+
+
+def read_yaml(path: Path, *, what: str) -> Any:
+    """Read and parse a YAML file (lab settings, territory maps) with the same protections."""
+    return parse_yaml(read_text(path, what=what), str(path))
+
+
+def read_document(
+    path: Path, *, what: str = "study file", suffixes: tuple[str, ...] = (".yaml", ".yml", ".json")
+) -> Any:
+    """Read and parse a YAML or JSON file, chosen by its suffix."""
+    suffix = path.suffix.lower()
+    if suffix not in suffixes:
+        raise InputError(
+            str(path), f"unknown file type {path.suffix or '(none)'!r}; use {', '.join(suffixes)}"
+        )
+    text = read_text(path, what=what)
+    return parse_json(text, str(path)) if suffix == ".json" else parse_yaml(text, str(path))
