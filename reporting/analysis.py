@@ -77,7 +77,7 @@ def analyze_file(
         from reporting.kinetics import load_curves  # numpy loads only for studies with curves
 
         curves = load_curves(
-            path.parent / study.perfusion_curves,
+            inside_folder(path.parent, study.perfusion_curves, f"{path}: perfusion_curves"),
             segment_model=study.segment_model,
             settings=settings,
         )
@@ -98,8 +98,23 @@ def resolve_territory_map(
         return built_in_map("standard")
     if str(choice) in BUILT_IN_MAPS:
         return built_in_map(str(choice))
-    where = base_dir / choice if override is None else Path(choice)
+    if override is None:
+        return load_territory_map(inside_folder(base_dir, str(choice), "territory_map"))
+    where = Path(choice)
+    if not where.exists() and not where.suffix:
+        raise InputError(
+            "--territory-map",
+            f"{str(choice)!r} is neither a built-in map ({', '.join(BUILT_IN_MAPS)}) nor a file",
+        )
     return load_territory_map(where)
+
+
+def inside_folder(folder: Path, relative: str, location: str) -> Path:
+    """``folder / relative``, refusing a path that leaves ``folder`` (a study names files beside itself)."""
+    candidate = (folder / relative).resolve()
+    if Path(relative).is_absolute() or not candidate.is_relative_to(folder.resolve()):
+        raise InputError(location, f"{relative!r} must be a path inside the study's folder")
+    return candidate
 
 
 def analyze(
@@ -280,6 +295,9 @@ def _territory_result(
         wmsi=wmsi,
         scored_segments=counts,
         reversible_perfusion_segments=reversible,
+        partially_reversible_perfusion_segments=[
+            s.number for s in mine if s.perfusion_response is PerfusionResponse.PARTIALLY_REVERSIBLE
+        ],
         fixed_perfusion_segments=[
             s.number for s in mine if s.perfusion_response is PerfusionResponse.FIXED
         ],
@@ -315,7 +333,6 @@ def _perfusion_result(
 
 def _stress_result(study: Study, settings: Settings) -> tuple[StressResult, list[Note]]:
     notes: list[Note] = []
-    sources = Settings.sources()
     age = study.age_years()
     predicted = (
         stress.age_predicted_max_hr(age, settings.heart_rate_formula) if age is not None else None
@@ -337,6 +354,9 @@ def _stress_result(study: Study, settings: Settings) -> tuple[StressResult, list
             if adequate
             else "No peak stage was recorded."
         )
+    elif Stage.PEAK not in study.stages:
+        adequate = False
+        why = "No peak stage was recorded, so adequacy is not established."
     elif age is None:
         adequate = False
         why = (
@@ -372,7 +392,7 @@ def _stress_result(study: Study, settings: Settings) -> tuple[StressResult, list
                 Note(
                     kind=NoteKind.DUKE_NOT_APPLICABLE,
                     text=f"The Duke treadmill score is not computed for {study.protocol.value} stress; it was derived on the Bruce treadmill protocol.",
-                    source=sources["duke_protocols"],
+                    source=settings.cited("duke_protocols"),
                 )
             )
     recovery = ex.hr_recovery_1min_bpm if ex else None

@@ -233,9 +233,10 @@ def schema(outdir: Path | None) -> None:
     if outdir is None:
         click.echo(schema_text(record_schema()), nl=False)
         return
-    for name, build in SCHEMAS.items():
-        write_atomic(outdir / name, schema_text(build()))
-        click.echo(f"Wrote {outdir / name}")
+    with _user_errors():
+        for name, build in SCHEMAS.items():
+            write_atomic(outdir / name, schema_text(build()))
+            click.echo(f"Wrote {outdir / name}")
 
 
 @main.command()

@@ -9,7 +9,7 @@ fixes a file in one pass instead of one error at a time.
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Sequence
+from collections.abc import Sequence
 
 
 class ReportingError(Exception):
@@ -37,8 +37,20 @@ class InputErrors(ReportingError, ValueError):
     def prefixed(self, prefix: str) -> InputErrors:
         """The same problems with ``prefix`` (usually a file name) put before each location."""
         return InputErrors(
-            [InputError(_join(prefix, p.location), p.problem) for p in self.problems]
+            [
+                InputError(f"{prefix}: {p.location}" if p.location else prefix, p.problem)
+                for p in self.problems
+            ]
         )
+
+
+class OutputError(ReportingError, OSError):
+    """An output file or folder could not be written."""
+
+    def __init__(self, location: str, problem: str) -> None:
+        self.location = location
+        self.problem = problem
+        super().__init__(f"{location}: {problem}")
 
 
 def problems_of(error: ReportingError) -> tuple[InputError, ...] | tuple[ReportingError, ...]:
@@ -46,14 +58,3 @@ def problems_of(error: ReportingError) -> tuple[InputError, ...] | tuple[Reporti
     if isinstance(error, InputErrors):
         return error.problems
     return (error,)
-
-
-def raise_all(problems: Iterable[InputError]) -> None:
-    """Raise :class:`InputErrors` when ``problems`` holds anything."""
-    found = list(problems)
-    if found:
-        raise InputErrors(found)
-
-
-def _join(prefix: str, location: str) -> str:
-    return f"{prefix}: {location}" if location else prefix

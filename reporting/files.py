@@ -1,4 +1,8 @@
-"""Writing output files atomically, so an interrupted run never leaves a half-written file."""
+"""Writing output files atomically, so an interrupted run never leaves a half-written file.
+
+A file that cannot be written (no such folder, no permission, a folder in the way) raises
+:class:`~reporting.errors.OutputError` naming the path, never a bare ``OSError``.
+"""
 
 from __future__ import annotations
 
@@ -8,20 +12,35 @@ import tempfile
 from collections.abc import Iterator
 from pathlib import Path
 
+from reporting.errors import OutputError
+
 
 def write_atomic(path: Path, data: bytes | str) -> None:
     """Write ``data`` to ``path`` through a temporary file in the same folder, then rename."""
     payload = data.encode("utf-8") if isinstance(data, str) else data
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, temp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, temp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    except OSError as exc:
+        raise OutputError(str(path), f"cannot write: {exc.strerror or exc}") from None
+    try:
+        # mkstemp creates the file readable by its owner only; give it the usual permissions.
+        os.fchmod(fd, 0o666 & ~_umask())
         with os.fdopen(fd, "wb") as handle:
             handle.write(payload)
         os.replace(temp, path)
-    except BaseException:
+    except BaseException as exc:
         with contextlib.suppress(FileNotFoundError):
             os.unlink(temp)
+        if isinstance(exc, OSError):
+            raise OutputError(str(path), f"cannot write: {exc.strerror or exc}") from None
         raise
+
+
+def _umask() -> int:
+    current = os.umask(0)
+    os.umask(current)
+    return current
 
 
 @contextlib.contextmanager

@@ -18,7 +18,7 @@ from reporting.results import (
     SegmentResult,
     StressResult,
 )
-from reporting.scoring import WallMotionResponse
+from reporting.scoring import PerfusionResponse, WallMotionResponse
 from reporting.segments import Territory, adjacency
 from reporting.settings import Settings
 from reporting.wording import number_list, stage_words
@@ -34,11 +34,10 @@ def high_risk_findings(
     stress_result: StressResult,
 ) -> list[HighRiskFinding]:
     """Every high-risk finding the study shows, each with its evidence and source."""
-    src = Settings.sources()
     found: list[HighRiskFinding] = []
 
     def add(code: FindingCode, detail: str, setting: str) -> None:
-        found.append(HighRiskFinding(code=code, detail=detail, source=src[setting]))
+        found.append(HighRiskFinding(code=code, detail=detail, source=settings.cited(setting)))
 
     rest = wall.get(Stage.REST)
     if rest is not None:
@@ -141,7 +140,6 @@ def quality_notes(
     perf: dict[Stage, dict[int, int | None]],
 ) -> list[Note]:
     """Notes on unseen segments, contrast use, imaging settings and viability."""
-    src = Settings.sources()
     notes: list[Note] = []
     touching = adjacency(study.segment_model)
     suggest_at: list[str] = []
@@ -166,7 +164,7 @@ def quality_notes(
                 text="Contiguous segments were not visualised at "
                 + "; ".join(suggest_at)
                 + ": an ultrasound-enhancing agent is suggested for border definition.",
-                source=src["contrast_suggest_contiguous_not_visualised_min"],
+                source=settings.cited("contrast_suggest_contiguous_not_visualised_min"),
             )
         )
     if perf and study.contrast is None:
@@ -188,7 +186,7 @@ def quality_notes(
                 kind=NoteKind.HIGH_MI_PERFUSION,
                 text=f"Perfusion was imaged at mechanical index {study.contrast.imaging_mi:g}, above the low-MI range "
                 f"(≤ {settings.low_mi_max:g}); microbubble destruction may mimic perfusion defects.",
-                source=src["low_mi_max"],
+                source=settings.cited("low_mi_max"),
             )
         )
     if (
@@ -204,6 +202,18 @@ def quality_notes(
                 source="Wei K et al., Circulation 1998;97:473 (model requires constant infusion) [C]",
             )
         )
+    worsening = [
+        s.number for s in segments if s.perfusion_response is PerfusionResponse.PARTIALLY_REVERSIBLE
+    ]
+    if worsening:
+        notes.append(
+            Note(
+                kind=NoteKind.WORSENING_DEFECT,
+                text=f"Perfusion defects present at rest worsened at peak in segments {number_list(worsening)}: "
+                "possible ischaemia beside a scar; not counted as reversible defects; review the images.",
+                source=None,
+            )
+        )
     biphasic = [s.number for s in segments if s.response is WallMotionResponse.BIPHASIC]
     if len(biphasic) >= settings.viability_biphasic_segments_min:
         notes.append(
@@ -211,7 +221,7 @@ def quality_notes(
                 kind=NoteKind.VIABILITY,
                 text=f"{len(biphasic)} segments show a biphasic response (segments {number_list(biphasic)}); "
                 "recovery of global function after revascularisation is likely.",
-                source=src["viability_biphasic_segments_min"],
+                source=settings.cited("viability_biphasic_segments_min"),
             )
         )
     return notes

@@ -167,7 +167,11 @@ class TerritoryResult(_Result):
     )
     scored_segments: dict[Stage, int] = Field(description="Segments scored per stage.")
     reversible_perfusion_segments: list[int] = Field(
-        description="Reversible or partially reversible perfusion defects."
+        description="Reversible perfusion defects (normal at rest, abnormal at peak)."
+    )
+    partially_reversible_perfusion_segments: list[int] = Field(
+        default_factory=list,
+        description="Defects present at rest that worsen at peak (flagged for review).",
     )
     fixed_perfusion_segments: list[int] = Field(description="Fixed perfusion defects.")
     ischemic: bool = Field(description="Ischaemia by wall motion or reversible perfusion defect.")
@@ -299,6 +303,8 @@ class NoteKind(StrEnum):
     """Exercise data given for a protocol on which the Duke score is not validated."""
     AGE_UNKNOWN = "age_unknown"
     """No age, so heart-rate targets cannot be computed."""
+    WORSENING_DEFECT = "worsening_defect"
+    """A perfusion defect present at rest that worsens at peak."""
     VIABILITY = "viability"
     """Enough biphasic segments to predict recovery of global function."""
 

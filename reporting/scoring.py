@@ -48,7 +48,8 @@ class PerfusionResponse(StrEnum):
     REVERSIBLE = "reversible"
     """Normal at rest, abnormal at peak: inducible ischaemia."""
     PARTIALLY_REVERSIBLE = "partially_reversible"
-    """Abnormal at rest and worse at peak: scar with inducible ischaemia around it."""
+    """Abnormal at rest and worse at peak: possible ischaemia beside a scar; flagged for review,
+    not counted as a reversible defect."""
     FIXED = "fixed"
     """Abnormal at rest and unchanged at peak: infarct."""
     BETTER_AT_STRESS = "better_at_stress"
@@ -57,9 +58,11 @@ class PerfusionResponse(StrEnum):
     """Not scored at rest or at peak."""
 
 
-ISCHEMIC_PERFUSION = frozenset(
-    {PerfusionResponse.REVERSIBLE, PerfusionResponse.PARTIALLY_REVERSIBLE}
-)
+ISCHEMIC_PERFUSION = frozenset({PerfusionResponse.REVERSIBLE})
+"""Perfusion responses that make a study ischaemic (CONTRACT.md: normal at rest, abnormal at peak).
+
+A defect that worsens from rest to peak is reported as partially reversible with a note for the
+reader, but does not by itself call the study ischaemic."""
 
 
 class IschemiaExtent(StrEnum):
@@ -105,9 +108,11 @@ def wall_motion_response(
             if peak > low_dose
             else WallMotionResponse.SUSTAINED_IMPROVEMENT
         )
-    if peak > rest and rest >= AKINETIC_SCORE:
+    worse_at_stress = peak > rest or (low_dose is not None and low_dose > rest)
+    if worse_at_stress and rest >= AKINETIC_SCORE:
+        # An akinetic (or dyskinetic) wall bulging more at stress is not ischaemia (Elhendy 1996).
         return WallMotionResponse.AKINETIC_TO_DYSKINETIC
-    if peak > rest or (low_dose is not None and low_dose > rest):
+    if worse_at_stress:
         return WallMotionResponse.ISCHEMIC
     if peak < rest:
         return WallMotionResponse.SUSTAINED_IMPROVEMENT

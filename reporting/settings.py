@@ -151,10 +151,26 @@ class Settings(BaseModel):
             raise ValueError("kinetics_beta_min_per_s must be below kinetics_beta_max_per_s")
         return self
 
+    def cited(self, name: str) -> str:
+        """The source of setting ``name``; a lab's own value says so and keeps the default's source."""
+        source = self.sources()[name]
+        value, default = getattr(self, name), getattr(default_settings(), name)
+        if value == default:
+            return source
+        return (
+            f"Lab setting {name} = {_shown(value)} (published default {_shown(default)}: {source})"
+        )
+
     @staticmethod
     def sources() -> dict[str, str]:
         """The published source of each default, by setting name."""
         return {name: entry["source"] for name, entry in _defaults_file().items()}
+
+
+def _shown(value: Any) -> str:
+    if isinstance(value, tuple | list):
+        return ", ".join(str(v) for v in value)
+    return str(value)
 
 
 @cache

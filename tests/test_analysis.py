@@ -311,3 +311,70 @@ def test_heart_rate_recovery(recovery: int | None, abnormal: bool | None) -> Non
     a = analysed(protocol="treadmill", exercise=exercise)
     assert a.stress.hr_recovery_abnormal is abnormal
     assert a.stress.exercise_duration_min == 9 and a.stress.angina_index == 0
+
+
+def test_worsening_rest_defect_is_flagged_not_called_ischaemia() -> None:
+    # CONTRACT.md: reversible = normal at rest, abnormal at peak; a worsening fixed defect is noted.
+    s = stages(rest=NORMAL_17, peak=NORMAL_17)
+    s["rest"]["perfusion"] = "211111 111111 1111 1"
+    s["peak"]["perfusion"] = "311111 111111 1111 1"
+    a = analysed(stages=s, contrast={"administration": "infusion", "imaging_mi": 0.12})
+    assert a.perfusion.partially_reversible_segments == [1]
+    assert a.perfusion.reversible_segments == []
+    assert not a.conclusion.ischemia
+    assert a.territories[Territory.LAD].partially_reversible_perfusion_segments == [1]
+    assert NoteKind.WORSENING_DEFECT in {n.kind for n in a.notes}
+
+
+def test_no_peak_stage_is_not_adequate() -> None:
+    s = stages(rest=NORMAL_17, low_dose=NORMAL_17)
+    s["low_dose"]["heart_rate_bpm"] = 150
+    a = analysed(stages=s)
+    assert not a.stress.adequate
+    assert "No peak stage" in a.stress.adequacy_note
+    assert a.conclusion.status is DiagnosticStatus.NON_DIAGNOSTIC
+
+
+def test_esv_rise_and_ef_fall_are_high_risk() -> None:
+    # Turakhia MP et al., Eur Heart J 2009 (ESV rise); fall in EF with stress (from memory).
+    s = stages(rest=NORMAL_17, peak=NORMAL_17)
+    s["rest"].update(lvef_percent=60, lv_esv_ml=40)
+    s["peak"].update(lvef_percent=50, lv_esv_ml=48)
+    codes = {f.code for f in analysed(stages=s).conclusion.high_risk_findings}
+    assert {FindingCode.ESV_RISE, FindingCode.EF_FALL} <= codes
+    s["peak"].update(lvef_percent=70, lv_esv_ml=30)
+    codes = {f.code for f in analysed(stages=s).conclusion.high_risk_findings}
+    assert not {FindingCode.ESV_RISE, FindingCode.EF_FALL} & codes
+
+
+def test_lab_threshold_is_cited_as_a_lab_setting() -> None:
+    study = study_from_data(study_dict(stages=stages(rest=NORMAL_17, peak="221111 111111 1111 1")))
+    lab = Settings.model_validate(
+        default_settings().model_dump() | {"peak_wmsi_high_risk_above": 1.05}
+    )
+    finding = next(
+        f
+        for f in analyze(study, settings=lab).conclusion.high_risk_findings
+        if f.code is FindingCode.HIGH_PEAK_WMSI
+    )
+    assert finding.source.startswith(
+        "Lab setting peak_wmsi_high_risk_above = 1.05 (published default 1.7: Yao"
+    )
+
+
+@pytest.mark.parametrize("path", ["../outside.csv", "/etc/passwd"], ids=["parent", "absolute"])
+def test_curve_file_must_stay_beside_the_study(tmp_path: Path, path: str) -> None:
+    from reporting.errors import InputError
+
+    data = study_dict(perfusion_curves=path, contrast={"administration": "infusion"})
+    (tmp_path / "s.json").write_text(json.dumps(data))
+    with pytest.raises(InputError, match="must be a path inside the study's folder"):
+        analyze_file(tmp_path / "s.json")
+
+
+def test_unknown_territory_map_option_lists_built_ins(tmp_path: Path) -> None:
+    from reporting.errors import InputError
+
+    (tmp_path / "s.json").write_text(json.dumps(study_dict()))
+    with pytest.raises(InputError, match="neither a built-in map"):
+        analyze_file(tmp_path / "s.json", territory_map="bogus")

@@ -85,3 +85,16 @@ def test_settings_file_overrides_and_is_checked(tmp_path: Path) -> None:
 def test_usage_error_exits_2() -> None:
     result = CliRunner().invoke(main, ["analyze"])
     assert result.exit_code == 2
+
+
+def test_unwritable_output_is_one_error_line(tmp_path: Path) -> None:
+    CliRunner().invoke(main, ["demo", "-o", str(tmp_path)])
+    (tmp_path / "blocker").write_text("x")
+    result = CliRunner().invoke(
+        main,
+        ["analyze", str(tmp_path / "DEMO-0001.yaml"), "-o", str(tmp_path / "blocker" / "r.json")],
+    )
+    assert result.exit_code == 1
+    assert result.stderr.startswith("Error: ") and "cannot write" in result.stderr
+    schema = CliRunner().invoke(main, ["schema", "-o", str(tmp_path / "blocker" / "s")])
+    assert schema.exit_code == 1 and "cannot write" in schema.stderr

@@ -46,6 +46,12 @@ RESPONSE_CASES = [
     ((3, None, 4), R.AKINETIC_TO_DYSKINETIC, "akinetic to dyskinetic"),
     ((3, 3, 4), R.AKINETIC_TO_DYSKINETIC, "akinetic, unchanged at low dose, dyskinetic at peak"),
     ((4, None, 5), R.AKINETIC_TO_DYSKINETIC, "dyskinetic to aneurysmal (5-point scale)"),
+    ((3, 4, 3), R.AKINETIC_TO_DYSKINETIC, "akinetic, dyskinetic at low dose only"),
+    (
+        (4, 5, 4),
+        R.AKINETIC_TO_DYSKINETIC,
+        "dyskinetic, aneurysmal at low dose only (5-point scale)",
+    ),
     ((None, None, 1), R.NOT_ASSESSABLE, "not seen at rest"),
     ((1, 1, None), R.NOT_ASSESSABLE, "not seen at peak"),
 ]
@@ -69,7 +75,7 @@ PERFUSION_CASES = [
     ((1, 3), P.REVERSIBLE),
     ((2, 2), P.FIXED),
     ((3, 3), P.FIXED),
-    ((2, 3), P.PARTIALLY_REVERSIBLE),
+    ((2, 3), P.PARTIALLY_REVERSIBLE),  # reported for review, not counted as ischaemia
     ((3, 2), P.BETTER_AT_STRESS),
     ((None, 2), P.NOT_ASSESSABLE),
     ((1, None), P.NOT_ASSESSABLE),
@@ -148,3 +154,12 @@ def test_every_score_triple_has_one_response(
         assert response is (R.ISCHEMIC if peak > 1 else R.NORMAL)
     if response is R.AKINETIC_TO_DYSKINETIC:
         assert rest is not None and rest >= 3
+    if (
+        rest is not None
+        and rest >= 3
+        and low in (None, rest, 4)
+        and peak is not None
+        and peak >= rest
+    ):
+        # Elhendy 1996; Sozzi 2007: an akinetic wall turning dyskinetic is never ischaemia.
+        assert response is not R.ISCHEMIC

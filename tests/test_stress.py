@@ -31,6 +31,7 @@ def test_tanaka_formula() -> None:
 
 
 def test_rate_pressure_product() -> None:
+    # Rate-pressure product = heart rate x systolic pressure (FACTS.md section 3, secondary source).
     assert rate_pressure_product(150, 160) == 24_000
 
 

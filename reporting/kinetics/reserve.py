@@ -80,7 +80,6 @@ def analyze_kinetics(
         )
         for t in Territory
     }
-    sources = Settings.sources()
     log.debug(
         "kinetics of %s: %d of %d fits ok, %d unassigned curves",
         curves.source,
@@ -100,7 +99,7 @@ def analyze_kinetics(
         fits_ok=sum(f.status is FitStatus.OK for f in fits),
         fits_total=len(fits),
         criteria=[
-            Criterion(name=name, value=float(getattr(settings, name)), source=sources[name])
+            Criterion(name=name, value=float(getattr(settings, name)), source=settings.cited(name))
             for name in _CRITERIA
         ],
     )
@@ -193,7 +192,6 @@ def cross_checks(
     settings: Settings,
 ) -> list[CrossCheckNote]:
     """Good fits whose replenishment time disagrees with the visual score of the same stage."""
-    sources = Settings.sources()
     bounds = {
         Stage.REST: (
             "kinetics_rest_replenishment_max_s",
@@ -240,7 +238,7 @@ def cross_checks(
                 time_to_90_percent_s=seconds,
                 bound_s=bound,
                 text=text,
-                source=sources[setting],
+                source=settings.cited(setting),
             )
         )
     return notes
