@@ -240,7 +240,10 @@ WallMotionScores = Annotated[
 PerfusionScores = Annotated[
     dict[SegmentNumber, PerfusionScore | None],
     BeforeValidator(_parse_scores),
-    _scores_input_schema(3, "Perfusion scores: 1 normal, 2 reduced or delayed, 3 absent."),
+    _scores_input_schema(
+        3,
+        "Perfusion scores: 1 normal, 2 reduced or delayed, 3 absent (Porter TR et al., JASE 2018; scale from memory).",
+    ),
 ]
 
 
