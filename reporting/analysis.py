@@ -51,7 +51,7 @@ from reporting.segments import (
     segments_of,
 )
 from reporting.settings import Settings, default_settings, load_settings
-from reporting.wording import CAUTIONS
+from reporting.wording import CAUTIONS, shown_target_bpm
 
 if TYPE_CHECKING:
     from reporting.kinetics.curves import CurveSet
@@ -370,8 +370,8 @@ def _stress_result(study: Study, settings: Settings) -> tuple[StressResult, list
         adequate = peak_hr >= target
         verb = "reached" if adequate else "did not reach"
         why = (
-            f"Peak heart rate {peak_hr} bpm {verb} the target of {target:.0f} bpm "
-            f"({100 * settings.target_heart_rate_fraction:.0f} % of the age-predicted maximum {predicted:.0f} bpm)."
+            f"Peak heart rate {peak_hr} bpm {verb} the target of {shown_target_bpm(target)} bpm "
+            f"({100 * settings.target_heart_rate_fraction:g} % of the age-predicted maximum {predicted:g} bpm)."
         )
 
     rpp = {

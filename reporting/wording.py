@@ -5,6 +5,7 @@ Kept free of heavy imports so the command line can use it for its help text.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Iterable
 from enum import Enum
 
@@ -41,3 +42,13 @@ def number_ranges(numbers: Iterable[int]) -> str:
         else:
             runs.append([n])
     return ", ".join(f"{r[0]}–{r[-1]}" if len(r) > 2 else number_list(r) for r in runs)
+
+
+def shown_target_bpm(target_bpm: float) -> int:
+    """The target heart rate as printed: rounded up, since a whole-bpm peak must reach all of it."""
+    return math.ceil(target_bpm)
+
+
+def shown_percent(percent: float) -> int:
+    """A heart rate as % of the predicted maximum, as printed: rounded down, never overstated."""
+    return math.floor(percent)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import datetime as dt
 import io
 import json
+import logging
 from pathlib import Path
 from typing import Any
 
@@ -571,6 +572,22 @@ def test_pdf_escapes_free_text_and_stays_within_two_pages() -> None:
     assert pages <= 2
     assert "Dr <b>Bold</b> & Sons" in text
     assert "and 42 more in the review JSON" in text
+
+
+def test_pdf_names_a_reader_field_the_font_cannot_show(caplog: pytest.LogCaptureFixture) -> None:
+    # A reader name in a script the body font lacks (CJK) prints as replacement marks: the field is
+    # named in one warning (not the name itself), and the PDF still renders within two pages.
+    records = [
+        record("K-1", ischemic=(Territory.RCA,), reader="Dr 佐藤 Vell"),  # invented
+        record("K-2", reader="Dr Tomas Quellenberg"),
+    ]
+    review = build_review(records, {r.study.id: angio(r.study.id) for r in records})
+    with caplog.at_level(logging.WARNING, logger="reporting"):
+        pages, text = _pdf_text(review_pdf_bytes(review))
+    assert pages <= 2 and "Vell" in text
+    lost = [r.getMessage() for r in caplog.records if r.levelno == logging.WARNING]
+    assert len(lost) == 1, lost
+    assert "study.reader" in lost[0] and "2 characters" in lost[0] and "佐藤" not in lost[0]
 
 
 def test_pdf_with_agreement_figures(lab_records: list[Analysis]) -> None:

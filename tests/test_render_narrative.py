@@ -92,7 +92,7 @@ Territories follow the map 'Standard coronary territories (right-dominant)'; seg
 
 Stress and adequacy
 Dobutamine stress echocardiography to 40 μg/kg/min with atropine 1 mg; 17-segment model.
-Peak heart rate 128 bpm, 86 % of the age-predicted maximum of 149 bpm (220 − age); the target of 127 bpm (85 %) was reached: adequate stress.
+Peak heart rate 128 bpm, 85 % of the age-predicted maximum of 149 bpm (220 − age); the target of 127 bpm (85 %) was reached: adequate stress.
 Peak rate–pressure product 16128 bpm·mmHg.
 
 Wall motion
@@ -118,7 +118,7 @@ Territories follow the map 'Standard coronary territories (right-dominant)'; seg
 
 Stress and adequacy
 Treadmill exercise stress echocardiography; 17-segment model.
-Peak heart rate 158 bpm, 95 % of the age-predicted maximum of 166 bpm (220 − age); the target of 141 bpm (85 %) was reached: adequate stress.
+Peak heart rate 158 bpm, 95 % of the age-predicted maximum of 166 bpm (220 − age); the target of 142 bpm (85 %) was reached: adequate stress.
 Peak rate–pressure product 27492 bpm·mmHg.
 Exercise time 7.5 min; maximal ST deviation 2 mm; non-limiting angina (angina index 1).
 Duke treadmill score −6.5: intermediate risk (Mark DB et al., NEJM 1991).
@@ -134,7 +134,7 @@ None identified.
 """,
     "DEMO-0005": """\
 Impression
-Non-diagnostic for ischaemia: no ischaemia was shown, but the target heart rate was not reached (peak 112 bpm, 71 % of the age-predicted maximum; target 133 bpm), so ischaemia is not excluded.
+Non-diagnostic for ischaemia: no ischaemia was shown, but the target heart rate was not reached (peak 112 bpm, 71 % of the age-predicted maximum; target 134 bpm), so ischaemia is not excluded.
 LAD (segments 1, 2, 7, 8, 13, 14 and 17): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
 LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality in the segments assessed; segments 5, 6 and 12 not assessable. Territory WMSI 1.00 at rest, 1.00 at peak.
 RCA (segments 3, 4, 9, 10 and 15): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
@@ -142,7 +142,7 @@ Territories follow the map 'Standard coronary territories (right-dominant)'; seg
 
 Stress and adequacy
 Dobutamine stress echocardiography to 40 μg/kg/min with atropine 1 mg; 17-segment model.
-Peak heart rate 112 bpm, 71 % of the age-predicted maximum of 157 bpm (220 − age); the target of 133 bpm (85 %) was not reached: submaximal stress, so a study without ischaemia is non-diagnostic.
+Peak heart rate 112 bpm, 71 % of the age-predicted maximum of 157 bpm (220 − age); the target of 134 bpm (85 %) was not reached: submaximal stress, so a study without ischaemia is non-diagnostic.
 Peak rate–pressure product 16800 bpm·mmHg.
 
 Wall motion
@@ -291,3 +291,53 @@ def test_packaged_templates_only_substitute_and_loop() -> None:
         text = folder.joinpath(name).read_text(encoding="utf-8")
         tags = re.findall(r"{%-?\s*(\w+)", text)
         assert set(tags) <= {"for", "endfor"}, name
+
+
+def _heart_rate_case(age: int, peak_hr: int) -> Analysis:
+    """DEMO-0001 (dobutamine, 220 − age) with the given age and peak heart rate."""
+    data = yaml.safe_load(demo_study_text("DEMO-0001.yaml"))
+    data["patient"]["age_years"] = age
+    data["stages"]["peak"]["heart_rate_bpm"] = peak_hr
+    return _analysis_of(data)
+
+
+def test_target_just_missed_never_reads_as_reached() -> None:
+    # Age 55, 220 − age: maximum 165 bpm, target 0.85 × 165 = 140.25 bpm, so a peak of 140 bpm
+    # (84.8 %) misses it. Printed as "target 140 bpm" and "85 %" the words would contradict the
+    # decision; the target is rounded up and the percentage down (Ballal RS et al., 1997).
+    analysis = _heart_rate_case(55, 140)
+    assert analysis.stress.target_hr_bpm == pytest.approx(140.25)
+    assert not analysis.stress.adequate
+    assert summary(analysis) == (
+        "Non-diagnostic for ischaemia: no ischaemia was shown, but the target heart rate was not "
+        "reached (peak 140 bpm, 84 % of the age-predicted maximum; target 141 bpm), so ischaemia "
+        "is not excluded."
+    )
+    stress = dict(text_blocks(narrative_text(analysis)))["Stress and adequacy"]
+    assert stress[1] == (
+        "Peak heart rate 140 bpm, 84 % of the age-predicted maximum of 165 bpm (220 − age); the "
+        "target of 141 bpm (85 %) was not reached: submaximal stress, so a study without "
+        "ischaemia is non-diagnostic."
+    )
+    text = narrative_text(analysis)
+    assert "target 140 bpm" not in text and "85 % of the age-predicted" not in text
+
+
+@pytest.mark.parametrize(
+    ("age", "peak_hr"),
+    [(55, 140), (55, 141), (20, 170), (20, 169), (63, 133), (64, 133), (47, 147), (88, 112)],
+    ids=lambda v: str(v),
+)
+def test_printed_heart_rate_figures_agree_with_the_decision(age: int, peak_hr: int) -> None:
+    # whatever the rounding, "reached" goes with peak ≥ printed target and ≥ 85 %, and vice versa
+    analysis = _heart_rate_case(age, peak_hr)
+    line = dict(text_blocks(narrative_text(analysis)))["Stress and adequacy"][1]
+    found = re.search(
+        r"bpm, (\d+) % of .* the target of (\d+) bpm \((\d+) %\) was (not )?reached", line
+    )
+    assert found is not None, line
+    percent, target, fraction = (int(found.group(i)) for i in (1, 2, 3))
+    reached = found.group(4) is None
+    assert reached is analysis.stress.adequate
+    assert (peak_hr >= target) is reached
+    assert (percent >= fraction) is reached

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import io
 import json
+import logging
 import xml.etree.ElementTree as ET
 from pathlib import Path
 from typing import Any
@@ -359,3 +360,40 @@ def test_kinetic_reserve_map_table_and_narrative(tmp_path: Path) -> None:
     lad = analysis.kinetics.territory_reserve[Territory.LAD]
     assert lad.A_beta_reserve is not None
     assert f"LAD: A·β (flow) reserve {lad.A_beta_reserve:.2f}" in text
+
+
+def test_pdf_heart_rate_figures_agree_with_a_just_missed_target() -> None:
+    # Age 55, 220 − age: target 0.85 × 165 = 140.25 bpm; a peak of 140 bpm (84.8 %) misses it, so
+    # the answer box, the haemodynamics table and the narrative print 84 % and a target of 141 bpm.
+    data = _data("DEMO-0001")
+    data["patient"]["age_years"] = 55
+    data["stages"]["peak"]["heart_rate_bpm"] = 140
+    analysis = analyze(study_from_data(data))
+    assert not analysis.stress.adequate
+    text = _text(pdf_bytes(analysis))
+    assert "peak heart rate 140 bpm, 84 % of predicted; stress not adequate" in text
+    assert "140 84 %" in text  # the peak row of the haemodynamics table
+    assert "target 141 bpm" in text and "the target of 141 bpm (85 %) was not reached" in text
+    assert "target 140 bpm" not in text and "85 % of predicted" not in text
+
+
+def test_text_the_font_cannot_show_is_named_in_a_warning(caplog: pytest.LogCaptureFixture) -> None:
+    # The body font has no CJK glyphs: the name prints as replacement marks, so the loss is logged
+    # (naming the field, not the text, which identifies the patient) and the report still renders.
+    data = _data("DEMO-0002")
+    data["patient"]["name"] = "Quillon 山田花子"  # invented
+    analysis = analyze(study_from_data(data))
+    with caplog.at_level(logging.WARNING, logger="reporting.render"):
+        text = _text(pdf_bytes(analysis))
+    assert summary(analysis) in text and "Quillon" in text
+    lost = [r for r in caplog.records if r.levelno == logging.WARNING]
+    assert len(lost) == 1, [r.getMessage() for r in lost]
+    message = lost[0].getMessage()
+    assert "patient.name" in message and "4 characters" in message
+    assert "山田花子" not in message
+
+
+def test_no_warning_when_every_character_can_be_shown(caplog: pytest.LogCaptureFixture) -> None:
+    with caplog.at_level(logging.WARNING, logger="reporting.render"):
+        pdf_bytes(_analysis("DEMO-0002"))
+    assert not [r for r in caplog.records if r.levelno >= logging.WARNING]

@@ -49,6 +49,7 @@ from reporting.render.scheme import (
 from reporting.render.style import MAP_FONTS, Fonts
 from reporting.results import Analysis, SegmentResult
 from reporting.scoring import WallMotionResponse
+from reporting.wording import stage_words
 
 HATCH_SPACING_PT = 2.6
 
@@ -80,12 +81,8 @@ class MapSpec:
 
 
 def stage_title(stage: Stage) -> str:
-    return {
-        Stage.REST: "rest",
-        Stage.LOW_DOSE: "low dose",
-        Stage.PEAK: "peak",
-        Stage.RECOVERY: "recovery",
-    }[stage]
+    """``low dose``: the stage as words (:func:`reporting.wording.stage_words`)."""
+    return stage_words(stage)
 
 
 def map_specs(analysis: Analysis) -> list[MapSpec]:

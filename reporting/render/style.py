@@ -9,12 +9,15 @@ so a map stays readable when printed in greyscale.
 Free text from users passes through :func:`markup_text` before it reaches reportlab paragraph markup:
 XML special characters are escaped, control characters dropped, and characters the body font has no
 glyph for are replaced by U+FFFD (or ``?``), so hostile text never breaks the layout or the parser.
+:func:`warn_lost_characters` logs a warning naming each free-text field that loses characters that
+way (a name in a script the font lacks), so a blank or garbled field never goes unnoticed.
 """
 
 from __future__ import annotations
 
 import logging
 import re
+from collections.abc import Iterable
 from dataclasses import dataclass
 from functools import cache
 from pathlib import Path
@@ -159,14 +162,56 @@ _WINANSI = frozenset(range(0x20, 0x7F)) | frozenset(range(0xA0, 0x100))
 REPLACEMENT = "\ufffd"
 
 
+def _known(font_name: str) -> frozenset[int]:
+    """Code points ``font_name`` can show (a built-in font: WinAnsi and a few typographic marks)."""
+    known = _glyphs(font_name)
+    return known if known is not None else _WINANSI | frozenset(map(ord, "–—‘’“”•…€™"))
+
+
+def _clean(text: str) -> str:
+    return _CONTROL.sub("", text.replace("\r\n", "\n").replace("\t", " "))
+
+
 def printable(text: str, font_name: str) -> str:
     """``text`` with control characters removed and unknown glyphs replaced."""
-    text = _CONTROL.sub("", text.replace("\r\n", "\n").replace("\t", " "))
-    known = _glyphs(font_name)
-    if known is None:
-        known = _WINANSI | frozenset(map(ord, "–—‘’“”•…€™"))
+    known = _known(font_name)
     fallback = REPLACEMENT if ord(REPLACEMENT) in known else "?"
-    return "".join(c if ord(c) in known or c == "\n" else fallback for c in text)
+    return "".join(c if ord(c) in known or c == "\n" else fallback for c in _clean(text))
+
+
+def lost_characters(text: str, font_name: str) -> int:
+    """How many characters of ``text`` ``font_name`` cannot show (they print as U+FFFD or ``?``).
+
+    Control characters are not counted: they are dropped on purpose and show nothing anyway.
+    """
+    known = _known(font_name)
+    return sum(1 for c in _clean(text) if ord(c) not in known and c != "\n")
+
+
+def warn_lost_characters(
+    fields: Iterable[tuple[str, str | None]], font_name: str, document: str
+) -> list[str]:
+    """Log a warning for each free-text field of which ``font_name`` cannot show every character.
+
+    ``fields`` are (name, text) pairs, named by their place in the input (``patient.name``). The
+    warning names the field and the count, never the text itself, which may identify a patient.
+    Returns the names of the fields that lose characters; rendering goes on with replacement marks.
+    """
+    losing = []
+    for name, text in fields:
+        lost = lost_characters(text, font_name) if text else 0
+        if lost:
+            losing.append(name)
+            log.warning(
+                "%s: %d character%s of %s cannot be shown in the font %s and print as "
+                "replacement marks",
+                document,
+                lost,
+                "s" if lost != 1 else "",
+                name,
+                font_name,
+            )
+    return losing
 
 
 def markup_text(text: str, font_name: str) -> str:

@@ -3,28 +3,22 @@ and the exercise-test results of a treadmill or bicycle study.
 
 Cells hold computed text; a cell becomes a wrapping Paragraph only when its text is wider than the
 column, which keeps table layout cheap. Any text that reaches Paragraph markup is escaped first.
+Heart rates as % of the predicted maximum are printed rounded down, as in the narrative.
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
 from typing import Any
 
 from reportlab.lib.styles import ParagraphStyle
 from reportlab.pdfbase.pdfmetrics import stringWidth
-from reportlab.platypus import Flowable, Paragraph, Table, TableStyle
+from reportlab.platypus import Flowable, Table, TableStyle
 
 from reporting.render import diagram, narrative, style
+from reporting.render.pdf.styles import dash, paragraph
 from reporting.results import Analysis
 from reporting.segments import Territory
-
-
-def _p(text: str, st: ParagraphStyle) -> Paragraph:
-    return Paragraph(style.markup_text(text, st.fontName), st)
-
-
-def _dash(value: Any) -> str:
-    return "–" if value is None or value == "" else str(value)
+from reporting.wording import number_list
 
 
 def data_table(
@@ -46,7 +40,7 @@ def data_table(
             if stringWidth(text, ps.fontName, ps.fontSize) <= widths[c] - 2 * padding:
                 out.append(text)
             else:
-                out.append(_p(text, ps))
+                out.append(paragraph(text, ps))
         cells.append(out)
     table = Table(cells, colWidths=widths, repeatRows=1, hAlign="LEFT")
     commands: list[tuple[Any, ...]] = [
@@ -87,15 +81,15 @@ def territory_table(analysis: Analysis, width: float, st: dict[str, ParagraphSty
     rows: list[list[str]] = [head]
     for territory in Territory:
         t = analysis.territories[territory]
-        cells = [territory.value, _nums(t.segments) or "none under this map"]
+        cells = [territory.value, number_list(t.segments) or "none under this map"]
         cells += [_fmt(t.wmsi.get(s)) for s in stages]
-        cells.append(_nums(t.ischemic_segments) or "none")
+        cells.append(number_list(t.ischemic_segments) or "none")
         if perfusion:
             parts = []
             if t.reversible_perfusion_segments:
-                parts.append(f"reversible {_nums(t.reversible_perfusion_segments)}")
+                parts.append(f"reversible {number_list(t.reversible_perfusion_segments)}")
             if t.fixed_perfusion_segments:
-                parts.append(f"fixed {_nums(t.fixed_perfusion_segments)}")
+                parts.append(f"fixed {number_list(t.fixed_perfusion_segments)}")
             cells.append("; ".join(parts) or "none")
         if kinetics is not None:
             reserve = kinetics.get(territory)
@@ -131,10 +125,6 @@ def _fmt(value: float | None) -> str:
     return "–" if value is None else f"{value:.2f}"
 
 
-def _nums(values: Sequence[int]) -> str:
-    return ", ".join(str(v) for v in values)
-
-
 def haemodynamics_table(analysis: Analysis, width: float, st: dict[str, ParagraphStyle]) -> Table:
     h = analysis.haemodynamics
     stages = [s for s in analysis.stages if s in h]
@@ -163,13 +153,15 @@ def haemodynamics_table(analysis: Analysis, width: float, st: dict[str, Paragrap
         bp = (
             f"{d.systolic_bp_mmhg}/{d.diastolic_bp_mmhg}"
             if d.systolic_bp_mmhg is not None and d.diastolic_bp_mmhg is not None
-            else _dash(d.systolic_bp_mmhg)
+            else dash(d.systolic_bp_mmhg)
         )
         cells += [
-            _dash(d.heart_rate_bpm),
-            "–" if d.hr_percent_of_predicted is None else f"{d.hr_percent_of_predicted:.0f} %",
+            dash(d.heart_rate_bpm),
+            "–"
+            if d.hr_percent_of_predicted is None
+            else f"{narrative.shown_percent(d.hr_percent_of_predicted)} %",
             bp,
-            _dash(d.rate_pressure_product),
+            dash(d.rate_pressure_product),
         ]
         if lvef:
             cells.append("–" if d.lvef_percent is None else f"{d.lvef_percent:g}")

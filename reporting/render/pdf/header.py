@@ -1,0 +1,147 @@
+"""The top of the referring-doctor PDF: the lab and title, the patient and study grid, indication
+and protocol, and the answer box (the one-sentence summary and the key figures, edged in the colour
+of the conclusion).
+
+The heart-rate percentage is printed rounded down, as in the narrative, so the box never shows 85 %
+beside "stress not adequate".
+"""
+
+from __future__ import annotations
+
+from reportlab.lib.styles import ParagraphStyle
+from reportlab.platypus import Flowable, Spacer, Table, TableStyle
+
+from reporting.model import Stage
+from reporting.render import narrative, style
+from reporting.render.pdf.styles import Styles, dash, labelled, paragraph, sentence
+from reporting.results import Analysis, DiagnosticStatus
+
+STATUS_COLOURS = {
+    DiagnosticStatus.ISCHEMIA: style.OKABE_ITO["vermillion"],
+    DiagnosticStatus.NO_ISCHEMIA: style.OKABE_ITO["bluish_green"],
+    DiagnosticStatus.NON_DIAGNOSTIC: style.OKABE_ITO["orange"],
+}
+
+
+def report_title(analysis: Analysis) -> str:
+    return f"Stress echocardiography report {analysis.study.id}"
+
+
+def header(analysis: Analysis, width: float, st: Styles) -> list[Flowable]:
+    study, patient = analysis.study, analysis.patient
+    lab_cell: list[Flowable] = [paragraph(study.lab or "Echocardiography laboratory", st["lab"])]
+    if study.lab_address:
+        lab_cell.append(paragraph(study.lab_address, st["small"]))
+    status = study.report_status
+    status_style = ParagraphStyle(
+        "status", parent=st["title"], fontSize=8, leading=10, textColor=style.MUTED
+    )
+    title_cell = [
+        paragraph("Stress echocardiography report", st["title"]),
+        paragraph(f"Report status: {status.value.upper()}", status_style),
+    ]
+    top = Table([[lab_cell, title_cell]], colWidths=[width * 0.6, width * 0.4])
+    top.setStyle(
+        TableStyle(
+            [
+                ("VALIGN", (0, 0), (-1, -1), "TOP"),
+                ("LEFTPADDING", (0, 0), (-1, -1), 0),
+                ("RIGHTPADDING", (0, 0), (-1, -1), 0),
+                ("LINEBELOW", (0, 0), (-1, 0), 1.2, style.INK),
+                ("BOTTOMPADDING", (0, 0), (-1, -1), 5),
+            ]
+        )
+    )
+    age = f"{patient.age_years} y" if patient.age_years is not None else patient.age_group
+    age_sex = " ".join(x for x in (age, patient.sex.value if patient.sex else None) if x)
+    pairs = [
+        ("Patient", patient.name),
+        ("Patient ID", patient.id),
+        ("Study ID", study.id),
+        ("Age, sex", age_sex or None),
+        ("Date of birth", patient.birth_date.isoformat() if patient.birth_date else None),
+        ("Study date", study.date.isoformat() if study.date else str(study.year)),
+        ("Referring", study.referring_physician),
+        ("Reader", study.reader),
+        ("Sonographer", study.sonographer),
+    ]
+    rows = []
+    for i in range(0, len(pairs), 3):
+        row: list[Flowable] = []
+        for label, value in pairs[i : i + 3]:
+            row += [paragraph(label, st["label"]), paragraph(dash(value), st["cell"])]
+        rows.append(row)
+    label_w, value_w = width * 0.105, width * (1 / 3 - 0.105)
+    grid = Table(rows, colWidths=[label_w, value_w] * 3)
+    grid.setStyle(
+        TableStyle(
+            [
+                ("VALIGN", (0, 0), (-1, -1), "TOP"),
+                ("LEFTPADDING", (0, 0), (-1, -1), 0),
+                ("RIGHTPADDING", (0, 0), (-1, -1), 4),
+                ("TOPPADDING", (0, 0), (-1, -1), 1.5),
+                ("BOTTOMPADDING", (0, 0), (-1, -1), 1.5),
+            ]
+        )
+    )
+    protocol = narrative.stress_paragraphs(analysis)[0]
+    lines = [
+        top,
+        Spacer(1, 4),
+        grid,
+        Spacer(1, 3),
+        labelled("Indication", analysis.study.indication or "not given", st),
+        labelled("Protocol", protocol, st),
+    ]
+    if study.deidentified:
+        lines.append(
+            labelled("Record", "de-identified (names, record numbers and exact dates removed)", st)
+        )
+    if analysis.contrast_used:
+        lines.append(
+            labelled("Enhancing agent", analysis.contrast_agent or "used (agent not named)", st)
+        )
+    return lines
+
+
+def answer_box(analysis: Analysis, width: float, st: Styles) -> Table:
+    c = analysis.conclusion
+    facts = []
+    if Stage.PEAK in analysis.wmsi:
+        facts.append(f"peak WMSI {analysis.wmsi[Stage.PEAK]:.2f}")
+    s = analysis.stress
+    if s.peak_hr_bpm is not None:
+        pct = (
+            f", {narrative.shown_percent(s.peak_hr_percent_of_predicted)} % of predicted"
+            if s.peak_hr_percent_of_predicted is not None
+            else ""
+        )
+        facts.append(f"peak heart rate {s.peak_hr_bpm} bpm{pct}")
+    facts.append("adequate stress" if s.adequate else "stress not adequate")
+    count = len(c.high_risk_findings)
+    facts.append(
+        f"{count} high-risk finding{'s' if count != 1 else ''}" if count else "no high-risk finding"
+    )
+    box = Table(
+        [
+            [
+                [
+                    paragraph(narrative.summary(analysis), st["summary"]),
+                    paragraph(sentence("; ".join(facts)), st["body"]),
+                ]
+            ]
+        ],
+        colWidths=[width],
+    )
+    box.setStyle(
+        TableStyle(
+            [
+                ("BACKGROUND", (0, 0), (-1, -1), style.PANEL),
+                ("LINEBEFORE", (0, 0), (0, -1), 4, style.hex_color(STATUS_COLOURS[c.status])),
+                ("LEFTPADDING", (0, 0), (-1, -1), 9),
+                ("TOPPADDING", (0, 0), (-1, -1), 5),
+                ("BOTTOMPADDING", (0, 0), (-1, -1), 6),
+            ]
+        )
+    )
+    return box
