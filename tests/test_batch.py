@@ -16,6 +16,7 @@ import yaml
 
 from reporting import batch
 from reporting.batch import BatchInterrupted, BatchOptions, Status, find_studies, run_batch
+from reporting.batch import study as batch_study
 from reporting.errors import ReportingError
 from reporting.export import tables
 
@@ -299,7 +300,7 @@ def test_changed_options_are_not_skipped(folder: Path, tmp_path: Path) -> None:
 
 
 def _interrupting(at: str, action: Callable[[], None]) -> Callable[..., Any]:
-    original = batch._analyse
+    original = batch_study._analyse
 
     def analyse(path: Path, options: BatchOptions) -> Any:
         if path.name == at:
@@ -328,7 +329,7 @@ def test_interrupted_run_leaves_no_partial_files_and_rerun_completes(
     def stop() -> None:
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(batch, "_analyse", _interrupting("study-0100.yaml", stop))
+    monkeypatch.setattr(batch_study, "_analyse", _interrupting("study-0100.yaml", stop))
     with pytest.raises(KeyboardInterrupt):
         run_batch(folder, BatchOptions(outdir=out, pdf=False), jobs=1)
     _assert_clean(out)
@@ -358,7 +359,7 @@ def test_killed_worker_interrupts_cleanly_and_rerun_completes(
     def kill() -> None:
         os.kill(os.getpid(), signal.SIGKILL)
 
-    monkeypatch.setattr(batch, "_analyse", _interrupting("study-0120.yaml", kill))
+    monkeypatch.setattr(batch_study, "_analyse", _interrupting("study-0120.yaml", kill))
     with pytest.raises(BatchInterrupted, match="worker process stopped"):
         run_batch(folder, BatchOptions(outdir=out, pdf=False), jobs=2)
     _assert_clean(out)
@@ -376,25 +377,12 @@ def test_a_crash_in_one_study_does_not_stop_the_others(
     def bug() -> None:
         raise RuntimeError("renderer exploded")
 
-    monkeypatch.setattr(batch, "_analyse", _interrupting("study-0010.yaml", bug))
+    monkeypatch.setattr(batch_study, "_analyse", _interrupting("study-0010.yaml", bug))
     summary = run_batch(folder, BatchOptions(outdir=tmp_path, pdf=False), jobs=1)
     assert (summary.done, summary.failed) == (VALID - 1, len(BROKEN) + 1)
     assert (
         "internal error: RuntimeError: renderer exploded" in (tmp_path / "failures.csv").read_text()
     )
-
-
-def test_duplicate_study_ids_fail_the_later_file(tmp_path: Path) -> None:
-    rng = random.Random(1)
-    indir = tmp_path / "in"
-    indir.mkdir()
-    study = make_study(3, rng)
-    (indir / "a.json").write_text(json.dumps(study))
-    (indir / "b.json").write_text(json.dumps(study))
-    summary = run_batch(indir, BatchOptions(outdir=tmp_path / "out", pdf=False))
-    assert (summary.done, summary.failed) == (1, 1)
-    text = (tmp_path / "out" / "failures.csv").read_text()
-    assert "b.json,study.id," in text and "also used by a.json" in text
 
 
 def test_progress_called_once_per_study_in_order(folder: Path, tmp_path: Path) -> None:
@@ -435,7 +423,7 @@ def test_pdf_path_calls_the_report_writer(tmp_path: Path, monkeypatch: pytest.Mo
         svg.write_text("<svg/>")
         return [pdf, svg]
 
-    monkeypatch.setattr(batch, "_report_writer", lambda: fake_write_report)
+    monkeypatch.setattr(batch_study, "_report_writer", lambda: fake_write_report)
     indir = write_folder(tmp_path, valid=3, broken=False)
     out = tmp_path / "out"
     summary = run_batch(indir, BatchOptions(outdir=out, fhir=True, paper="Letter"))
@@ -487,3 +475,277 @@ def test_output_folder_inside_the_input_folder_is_not_read_back(tmp_path: Path) 
         first = run_batch(indir, BatchOptions(outdir=out, pdf=False, fhir=True))
         again = run_batch(indir, BatchOptions(outdir=out, pdf=False, fhir=True))
         assert (first.total, again.total, again.skipped) == (4, 4, 4)
+
+
+# --- duplicate ids, stale outputs, write errors -----------------------------------------------------
+
+
+def fake_report_writer(log: Path) -> Callable[..., list[Path]]:
+    """Stands in for reporting.render.write_report (the record, one map and a PDF, all invented).
+
+    Each call appends the study id to ``log``: a file, so calls made in worker processes count too.
+    """
+
+    def write_report(
+        analysis: Any, outdir: Path, *, paper: str = "A4", templates_dir: Path | None = None
+    ) -> list[Path]:
+        from reporting.export.record import record_json
+
+        sid = analysis.study.id
+        with log.open("a") as handle:
+            handle.write(sid + "\n")
+        paths = [outdir / f"{sid}.record.json", outdir / f"{sid}.peak.svg", outdir / f"{sid}.pdf"]
+        paths[0].write_text(record_json(analysis))
+        paths[1].write_text(f"<svg><!-- {analysis.wmsi} --></svg>")
+        paths[2].write_bytes(f"%PDF-1.7 invented {analysis.wmsi}".encode())
+        return paths
+
+    return write_report
+
+
+def patch_report_writer(monkeypatch: pytest.MonkeyPatch, log: Path, jobs: int) -> None:
+    import multiprocessing
+
+    if jobs > 1 and multiprocessing.get_start_method() != "fork":
+        pytest.skip("the patched function reaches the workers only when they are forked")
+    monkeypatch.setattr(batch_study, "_report_writer", lambda: fake_report_writer(log))
+
+
+def failure_rows(out: Path) -> list[list[str]]:
+    import csv
+
+    with (out / "failures.csv").open(newline="") as handle:
+        return list(csv.reader(handle))[1:]
+
+
+def write_study(folder: Path, name: str, study_id: str, seed: int) -> dict[str, Any]:
+    """An invented study with its own scores (the seed) under the given id."""
+    study = make_study(seed, random.Random(seed))
+    study["study"]["id"] = study_id
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / name).write_text(json.dumps(study), encoding="utf-8")
+    return study
+
+
+def record_of(out: Path, study_id: str) -> dict[str, Any]:
+    data: dict[str, Any] = json.loads((out / f"{study_id}.record.json").read_text())
+    return data
+
+
+def wall_motion_of(study: dict[str, Any]) -> str:
+    return str(study["stages"]["peak"]["wall_motion"])
+
+
+def peak_scores(record: dict[str, Any]) -> str:
+    return "".join(
+        "x" if s["wall_motion"]["peak"] is None else str(s["wall_motion"]["peak"])
+        for s in record["segments"]
+    )
+
+
+@pytest.mark.parametrize("jobs", [1, 2], ids=["one-job", "two-jobs"])
+def test_duplicate_study_id_refuses_the_later_file_before_writing(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, jobs: int
+) -> None:
+    calls = tmp_path / "calls.txt"
+    patch_report_writer(monkeypatch, calls, jobs)
+    indir = tmp_path / "in"
+    first = write_study(indir, "a.yaml", "T-1", seed=3)
+    second = write_study(indir, "b.yaml", "T-1", seed=8)
+    assert wall_motion_of(first) != wall_motion_of(second)  # different scores under one id
+    for i in range(10):  # enough studies to spread over several worker tasks
+        write_study(indir, f"c{i}.json", f"U-{i}", seed=20 + i)
+    out = tmp_path / "out"
+    options = BatchOptions(outdir=out, fhir=True)
+    summary = run_batch(indir, options, jobs=jobs)
+    assert (summary.done, summary.failed) == (11, 1)
+    assert calls.read_text().split().count("T-1") == 1  # the later file was never written
+    assert peak_scores(record_of(out, "T-1")) == wall_motion_of(first)
+    assert b"%PDF" in (out / "T-1.pdf").read_bytes()
+    assert failure_rows(out) == [
+        [
+            "b.yaml",
+            "study.id",
+            "study id 'T-1' is also used by a.yaml, which comes first; each study needs its own id "
+            "(nothing was written for this file)",
+        ]
+    ]
+
+    again = run_batch(indir, options, jobs=jobs)  # a.yaml is skipped: its record is its own
+    assert (again.done, again.skipped, again.failed) == (0, 11, 1)
+    registry = [json.loads(line) for line in (out / "registry.ndjson").open()]
+    t1 = [r for r in registry if r["study"]["id"] == "T-1"]
+    assert len(t1) == 1 and peak_scores(t1[0]) == wall_motion_of(first)
+    studies = tables.read_studies_csv(out / "studies.csv")
+    assert list(studies["study_id"]).count("T-1") == 1
+
+
+def test_duplicate_ids_give_the_same_files_for_any_number_of_jobs(tmp_path: Path) -> None:
+    indir = tmp_path / "in"
+    for i in range(40):  # every fifth file repeats an earlier id
+        write_study(indir, f"s{i:02d}.json", f"D-{i - 3 if i % 5 == 4 else i}", seed=i)
+    one = run_batch(indir, BatchOptions(outdir=tmp_path / "one", pdf=False), jobs=1)
+    two = run_batch(indir, BatchOptions(outdir=tmp_path / "two", pdf=False), jobs=2)
+    assert one.line() == two.line() == "40 studies: 32 done, 0 skipped, 8 failed"
+    assert tree(tmp_path / "one") == tree(tmp_path / "two")
+
+
+def test_ids_differing_only_in_case_are_duplicates(tmp_path: Path) -> None:
+    # T-1.pdf and t-1.pdf are one file on case-insensitive file systems
+    indir = tmp_path / "in"
+    write_study(indir, "a.json", "T-1", seed=1)
+    write_study(indir, "b.json", "t-1", seed=2)
+    summary = run_batch(indir, BatchOptions(outdir=tmp_path / "out", pdf=False))
+    assert (summary.done, summary.failed) == (1, 1)
+    assert (
+        "the same in file names as 'T-1', used by a.json"
+        in (tmp_path / "out" / "failures.csv").read_text()
+    )
+
+
+def test_duplicate_ids_when_deidentifying_name_no_file_or_id(tmp_path: Path) -> None:
+    indir = tmp_path / "in"
+    write_study(indir, "Orla_Quillon.json", "WH-1", seed=1)  # file names may carry identifiers
+    write_study(indir, "Tamsin_Marlowe.json", "WH-1", seed=2)
+    key = b"an invented key for tests only, 32+ bytes"
+    out = tmp_path / "out"
+    options = BatchOptions(outdir=out, deidentify=True, deid_key=key)
+    summary = run_batch(indir, options, jobs=2)
+    assert (summary.done, summary.failed) == (1, 1)
+    [(label, location, message)] = failure_rows(out)
+    assert label == options.file_label("Tamsin_Marlowe.json") and location == "study.id"
+    assert f"also used by {options.file_label('Orla_Quillon.json')}" in message
+    text = (out / "failures.csv").read_text()
+    assert "WH-1" not in text and "Orla" not in text and "Tamsin" not in text
+
+
+def test_a_record_written_over_by_another_file_is_not_reused(tmp_path: Path) -> None:
+    # What an earlier version left behind: b.json's record under a.json's stamp.
+    indir = tmp_path / "in"
+    first = write_study(indir, "a.json", "T-1", seed=3)
+    out = tmp_path / "out"
+    options = BatchOptions(outdir=out, pdf=False)
+    run_batch(indir, options)
+    other = tmp_path / "other"
+    write_study(other, "b.json", "T-1", seed=8)
+    run_batch(other, BatchOptions(outdir=tmp_path / "out-b", pdf=False))
+    (out / "T-1.record.json").write_bytes((tmp_path / "out-b" / "T-1.record.json").read_bytes())
+    again = run_batch(indir, options)
+    assert (again.done, again.skipped) == (1, 0)
+    assert peak_scores(record_of(out, "T-1")) == wall_motion_of(first)
+
+
+@pytest.mark.parametrize("jobs", [1, 2], ids=["one-job", "two-jobs"])
+def test_a_study_that_fails_later_leaves_no_outputs(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, jobs: int
+) -> None:
+    patch_report_writer(monkeypatch, tmp_path / "calls.txt", jobs)
+    indir = tmp_path / "in"
+    study = write_study(indir, "a.json", "T-1", seed=3)
+    write_study(indir, "b.json", "T-2", seed=4)
+    out = tmp_path / "out"
+    options = BatchOptions(outdir=out, fhir=True)
+    run_batch(indir, options, jobs=jobs)
+    t1 = {"T-1.record.json", "T-1.peak.svg", "T-1.pdf", "T-1.fhir.json"}
+    assert t1 <= {p.name for p in out.iterdir()}
+    stamps_before = set((out / ".segreport-batch").iterdir())
+
+    study["stages"]["peak"]["wall_motion"] = "9" * 17  # now off the scale: the study fails
+    (indir / "a.json").write_text(json.dumps(study))
+    later = run_batch(indir, options, jobs=jobs)
+    assert (later.done, later.skipped, later.failed) == (0, 1, 1)
+    names = {p.name for p in out.iterdir()}
+    assert not names & t1, "the failed study's earlier files are still there"
+    assert {"T-2.record.json", "T-2.pdf"} <= names
+    assert len(set((out / ".segreport-batch").iterdir())) == len(stamps_before) - 1
+    registry = (out / "registry.ndjson").read_text()
+    assert '"T-1"' not in registry and '"T-2"' in registry
+
+
+def test_a_study_whose_id_changed_leaves_no_files_under_the_old_id(tmp_path: Path) -> None:
+    indir = tmp_path / "in"
+    study = write_study(indir, "a.json", "T-1", seed=3)
+    out = tmp_path / "out"
+    options = BatchOptions(outdir=out, pdf=False, fhir=True)
+    run_batch(indir, options)
+    study["study"]["id"] = "T-9"
+    (indir / "a.json").write_text(json.dumps(study))
+    assert run_batch(indir, options).done == 1
+    assert sorted(p.name for p in out.glob("T-*")) == ["T-9.fhir.json", "T-9.record.json"]
+
+
+def test_stale_files_of_an_id_now_owned_by_an_earlier_file_are_kept(tmp_path: Path) -> None:
+    # b.json wrote T-1 alone; then a.json (earlier in order) arrives with T-1 and owns it.
+    indir = tmp_path / "in"
+    write_study(indir, "b.json", "T-1", seed=8)
+    out = tmp_path / "out"
+    options = BatchOptions(outdir=out, pdf=False)
+    run_batch(indir, options)
+    first = write_study(indir, "a.json", "T-1", seed=3)
+    summary = run_batch(indir, options, jobs=2)
+    assert (summary.done, summary.failed) == (1, 1)
+    assert peak_scores(record_of(out, "T-1")) == wall_motion_of(first)
+    again = run_batch(indir, options)
+    assert (again.skipped, again.failed) == (1, 1)
+    assert peak_scores(record_of(out, "T-1")) == wall_motion_of(first)
+
+
+def test_write_errors_fail_only_their_study(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from reporting.files import write_atomic
+
+    def failing(path: Path, data: bytes | str) -> None:
+        if path.name == "U-1.record.json":  # what reporting.files raises for a write error
+            raise ReportingError(f"{path}: cannot write: No space left on device")
+        if path.name == "U-2.fhir.json":  # a plain OSError must not escape either
+            raise OSError(28, "No space left on device", str(path))
+        write_atomic(path, data)
+
+    monkeypatch.setattr(batch_study, "write_atomic", failing)
+    indir = tmp_path / "in"
+    for i in range(4):
+        write_study(indir, f"s{i}.json", f"U-{i}", seed=i)
+    out = tmp_path / "out"
+    summary = run_batch(indir, BatchOptions(outdir=out, pdf=False, fhir=True))
+    assert (summary.done, summary.failed) == (2, 2)
+    assert failure_rows(out) == [
+        ["s1.json", "", "U-1.record.json: cannot write: No space left on device"],
+        ["s2.json", "", "cannot write U-2.fhir.json: No space left on device"],
+    ]
+    assert sorted(p.name for p in out.glob("U-*")) == [
+        "U-0.fhir.json",
+        "U-0.record.json",
+        "U-3.fhir.json",
+        "U-3.record.json",
+    ]
+
+
+def test_an_unusable_output_folder_is_one_clean_error(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import tempfile
+
+    from click.testing import CliRunner
+
+    from reporting.cli import main
+
+    indir = tmp_path / "in"
+    write_study(indir, "a.json", "T-1", seed=1)
+    blocker = tmp_path / "file"
+    blocker.write_text("a file, not a folder")
+    for outdir, message in [(blocker, "not a folder"), (blocker / "out", "cannot create")]:
+        with pytest.raises(ReportingError, match=message):
+            run_batch(indir, BatchOptions(outdir=outdir, pdf=False))
+        result = CliRunner().invoke(main, ["batch", str(indir), "-o", str(outdir), "--no-pdf"])
+        assert result.exit_code in (1, 2) and isinstance(result.exception, SystemExit)
+        assert "Traceback" not in result.output and "Error: " in result.output
+
+    def refuse(*args: Any, **kwargs: Any) -> Any:  # a folder without write permission
+        raise PermissionError(13, "Permission denied", str(kwargs.get("dir")))
+
+    monkeypatch.setattr(tempfile, "mkstemp", refuse)
+    out = tmp_path / "out"
+    with pytest.raises(ReportingError, match="cannot write the output folder: Permission denied"):
+        run_batch(indir, BatchOptions(outdir=out, pdf=False))
+    assert not list(out.glob("T-1.*")), "no study was processed"

@@ -12,9 +12,9 @@ import jsonschema  # type: ignore[import-untyped, unused-ignore]
 import pytest
 from pydantic import BaseModel
 
-from reporting import batch
 from reporting.analysis import analyze_file
 from reporting.batch import BatchOptions, run_batch
+from reporting.batch import study as batch_study
 from reporting.deidentify import (
     KEY_ENV,
     DeidentificationKeyError,
@@ -315,7 +315,7 @@ def test_pdf_writer_is_never_called_when_deidentifying(
     def refuse() -> Any:
         raise AssertionError("a PDF shows identifiers: never written in de-identified mode")
 
-    monkeypatch.setattr(batch, "_report_writer", refuse)
+    monkeypatch.setattr(batch_study, "_report_writer", refuse)
     indir = tmp_path / "in"
     indir.mkdir()
     (indir / "a.json").write_text(json.dumps(study(PEOPLE[2])))

@@ -18,6 +18,7 @@ from reporting.export import fhir
 from reporting.load import study_from_data
 from reporting.model import Stage
 from reporting.results import Analysis
+from reporting.wording import CAUTIONS
 
 DEMO = Path(__file__).parent.parent / "reporting" / "data" / "demo"
 KEY = b"an invented key for tests only, 32+ bytes"
@@ -195,3 +196,19 @@ def test_deidentified_bundle_has_year_only_and_a_pseudonymous_subject(
         original.study.date.isoformat(),
     ):
         assert identifier and identifier not in text
+
+
+@pytest.mark.parametrize("deidentified", [False, True], ids=["identified", "deidentified"])
+def test_report_carries_the_cautions_after_the_conclusion(
+    analyses: list[Analysis], deidentified: bool
+) -> None:
+    for analysis in analyses:
+        a = deidentify(analysis, KEY) if deidentified else analysis
+        data = fhir.bundle(a)
+        Bundle.model_validate(data)  # still valid R4 (fhir.resources R4B models)
+        report = resources(data, "DiagnosticReport")[0]
+        conclusion, cautions = report["conclusion"].split("\n\n")
+        assert conclusion == fhir.conclusion_text(a)
+        assert cautions.splitlines() == list(CAUTIONS)
+    for words in ("qualified clinicians", "reviewed by the physician", "product labelling"):
+        assert any(words in caution for caution in CAUTIONS)  # what the cautions must say

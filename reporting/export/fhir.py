@@ -1,10 +1,11 @@
 """HL7 FHIR R4 export: an :class:`~reporting.results.Analysis` as a ``collection`` Bundle.
 
-The Bundle holds a DiagnosticReport (status, conclusion text, the conclusion as a code of a local
-code system, and the PDF as ``presentedForm`` when one was written), one Observation per segment and
-stage for wall motion (coded with the per-segment LOINC codes of the HL7 Europe imaging report guide,
-FACTS.md §8) and for perfusion, the WMSI per stage, the LVEF per stage (LOINC 10230-1) when given, and
-the Patient unless the analysis is de-identified (then only a pseudonymous identifier is referenced).
+The Bundle holds a DiagnosticReport (status, conclusion text followed by the cautions every export
+carries, the conclusion as a code of a local code system, and the PDF as ``presentedForm`` when one
+was written), one Observation per segment and stage for wall motion (coded with the per-segment
+LOINC codes of the HL7 Europe imaging report guide, FACTS.md §8) and for perfusion, the WMSI per
+stage, the LVEF per stage (LOINC 10230-1) when given, and the Patient unless the analysis is
+de-identified (then only a pseudonymous identifier is referenced).
 
 Scores, stages, WMSI and the report code have no confirmed open code, so they use **local code
 systems** under ``https://segreport.invalid/fhir/CodeSystem/`` (the ``.invalid`` domain says they
@@ -23,7 +24,7 @@ from typing import Any
 from reporting.model import ReportStatus, Sex, Stage
 from reporting.results import Analysis, DiagnosticStatus, SegmentResult
 from reporting.segments import SegmentModel
-from reporting.wording import stage_words
+from reporting.wording import CAUTIONS, stage_words
 
 LOINC = "http://loinc.org"
 UCUM = "http://unitsofmeasure.org"
@@ -192,7 +193,9 @@ class _Builder:
             resource["subject"] = self.subject
         resource["effectiveDateTime"] = self.effective
         resource["result"] = [{"reference": obs_url} for obs_url, _ in observations]
-        resource["conclusion"] = conclusion_text(self.a)
+        # The conclusion is the text a receiving system shows, so the cautions go there too
+        # (DiagnosticReport has no note element in R4).
+        resource["conclusion"] = "\n\n".join([conclusion_text(self.a), "\n".join(CAUTIONS)])
         resource["conclusionCode"] = [
             {
                 "coding": [

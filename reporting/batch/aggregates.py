@@ -1,0 +1,85 @@
+"""``registry.ndjson`` and ``failures.csv``: streamed into temporary files, renamed at the end.
+
+Nothing appears under its final name before :meth:`Aggregates.commit`, so an interrupted batch
+leaves no half-written aggregate. When de-identifying, failures name files by a keyed hash and the
+quoted input values in their messages are blanked out (a value may be an identifier).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import csv
+import os
+import re
+import tempfile
+from collections.abc import Callable
+from pathlib import Path
+from typing import IO
+
+from reporting.batch.results import StudyResult
+
+REGISTRY = "registry.ndjson"
+FAILURES = "failures.csv"
+FAILURE_COLUMNS = ("file", "location", "message")
+
+_QUOTED = re.compile(r"'[^']*'|\"[^\"]*\"")
+
+
+class Aggregates:
+    """The registry and the failure list of one batch run."""
+
+    def __init__(self, outdir: Path, label: Callable[[str], str], *, redact: bool) -> None:
+        self.outdir = outdir
+        self.label = label
+        self.redact = redact
+        self.targets: list[tuple[Path, Path]] = []
+        self.handles: list[IO[str]] = []
+        try:
+            self.registry = self._open(REGISTRY)
+            self.failures = self._open(FAILURES)
+        except BaseException:
+            self.abort()
+            raise
+        self.failure_writer = csv.writer(self.failures, lineterminator="\n")
+        self.failure_writer.writerow(FAILURE_COLUMNS)
+
+    def _open(self, name: str) -> IO[str]:
+        fd, temp = tempfile.mkstemp(prefix=f".{name}.", suffix=".part", dir=self.outdir)
+        self.targets.append((Path(temp), self.outdir / name))
+        handle = os.fdopen(fd, "w", encoding="utf-8", newline="")
+        self.handles.append(handle)
+        return handle
+
+    def record(self, line: str) -> None:
+        """Add one study's record line to the registry."""
+        self.registry.write(line + "\n")
+
+    def failure(self, result: StudyResult) -> None:
+        """Add one row per problem of a failed study."""
+        for problem in result.problems:
+            location, message = problem.location, problem.message
+            if self.redact:
+                location, message = _redacted(location), _redacted(message)
+            self.failure_writer.writerow((self.label(result.source), location, message))
+
+    def commit(self) -> list[Path]:
+        """Close the files and move them to their final names; return those names."""
+        for handle in self.handles:
+            handle.close()
+        for temp, final in self.targets:
+            os.replace(temp, final)
+        return [final for _, final in self.targets]
+
+    def abort(self) -> None:
+        """Close and delete the temporary files."""
+        for handle in self.handles:
+            with contextlib.suppress(Exception):
+                handle.close()
+        for temp, _ in self.targets:
+            with contextlib.suppress(FileNotFoundError):
+                temp.unlink()
+
+
+def _redacted(text: str) -> str:
+    # Problem messages quote input values, which may be identifiers.
+    return _QUOTED.sub("'…'", text)

@@ -1,0 +1,109 @@
+"""What a batch reports: one :class:`StudyResult` per study and a :class:`BatchSummary` at the end.
+
+Results are plain frozen dataclasses so they cross process boundaries cheaply; :func:`describe`
+turns a failed study's problems into the lines the command line shows.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+from enum import StrEnum
+from pathlib import Path
+
+from reporting.errors import ReportingError
+from reporting.export import tables
+
+
+class Status(StrEnum):
+    """Outcome of one study in a batch."""
+
+    DONE = "done"
+    """Analysed and its outputs written."""
+    SKIPPED = "skipped"
+    """Outputs newer than the input and made with the same options: not redone."""
+    FAILED = "failed"
+    """The study could not be analysed or written; see the problems."""
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One problem of a failed study: where in the file and what."""
+
+    location: str
+    message: str
+
+
+@dataclass(frozen=True)
+class StaleOutputs:
+    """Files an earlier run wrote for a source that this run did not write again.
+
+    Set when the study failed (all of its earlier files) or now has another id (the files under
+    the old id). The driver removes them at the end of the batch unless another study of the batch
+    now owns that id, so the output folder never holds a study the registry leaves out.
+    """
+
+    study_id: str
+    outputs: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class StudyResult:
+    """What :func:`~reporting.batch.process_study` reports for one study (plain data, cheap to pickle)."""
+
+    source: str
+    """Path of the study file relative to the input folder (POSIX form)."""
+    status: Status
+    study_id: str | None = None
+    outputs: tuple[str, ...] = ()
+    """Names of the study's files in the output folder."""
+    record_line: str | None = None
+    """The record as one line of compact JSON (for ``registry.ndjson``)."""
+    study_row: tables.Row | None = None
+    segment_rows: tuple[tables.Row, ...] = ()
+    problems: tuple[Problem, ...] = ()
+    stale: StaleOutputs | None = None
+    """Files of an earlier run this run did not write again (see :class:`StaleOutputs`)."""
+
+
+@dataclass(frozen=True)
+class BatchSummary:
+    """Counts of a finished batch and the aggregate files written."""
+
+    total: int
+    done: int
+    skipped: int
+    failed: int
+    written: tuple[Path, ...]
+
+    @property
+    def ok(self) -> bool:
+        """True when no study failed."""
+        return self.failed == 0
+
+    def line(self) -> str:
+        """``"210 studies: 200 done, 0 skipped, 10 failed"``."""
+        return (
+            f"{self.total} stud{'y' if self.total == 1 else 'ies'}: {self.done} done, "
+            f"{self.skipped} skipped, {self.failed} failed"
+        )
+
+
+class BatchInterrupted(ReportingError):
+    """The batch stopped before the end (a worker process died); re-run to complete it."""
+
+
+ProgressCallback = Callable[[StudyResult], None]
+
+
+def describe(result: StudyResult, indir: Path | None = None) -> list[str]:
+    """One ``<file>: <location>: <problem>`` line per problem of a failed study.
+
+    The file is given relative to the input folder, or under ``indir`` when it is passed. These
+    lines name the file and quote values in full even when de-identifying: they are for the
+    operator's screen, not for the extract.
+    """
+    name = (indir / result.source).as_posix() if indir is not None else result.source
+    return [
+        ": ".join(part for part in (name, p.location, p.message) if part) for p in result.problems
+    ]

@@ -1,0 +1,185 @@
+"""One study of a batch: analyse it, write its files, report a plain :class:`StudyResult`.
+
+:func:`process_study` is the pure per-study step: a study path and :class:`BatchOptions` in, the
+study's files written atomically and a picklable result out, so a batch can be spread over worker
+processes (or machines) by any scheduler. It never raises for a bad study: input problems, write
+errors and bugs alike come back as a ``FAILED`` result naming the problems.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+import os
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+from reporting.batch import stamps
+from reporting.batch.claims import Claim, duplicate_problem
+from reporting.batch.options import BatchOptions
+from reporting.batch.results import Problem, StaleOutputs, Status, StudyResult
+from reporting.batch.sources import source_name
+from reporting.errors import ReportingError, problems_of
+from reporting.export import tables
+from reporting.export.record import record_dict
+from reporting.files import all_or_nothing, write_atomic
+from reporting.results import Analysis
+
+log = logging.getLogger(__name__)
+
+
+def process_study(
+    path: Path, options: BatchOptions, *, indir: Path, claim: Claim | None = None
+) -> StudyResult:
+    """Analyse one study and write its outputs; never raises for a bad study (returns ``FAILED``).
+
+    Outputs: ``<id>.record.json``, the report files (SVGs and ``<id>.pdf``) when PDFs are wanted,
+    ``<id>.fhir.json`` with ``fhir``; with ``deidentify`` the id is the keyed hash and no PDF is made.
+    ``claim`` is what the batch's first pass found (see :mod:`reporting.batch.claims`): a study
+    whose id an earlier file owns is refused before anything is written.
+    """
+    source = source_name(path, indir)
+    stamp: Path | None = None
+    try:
+        stamp = stamps.stamp_path(options, source)
+        if claim is not None and claim.owner is not None:
+            return _failed(source, (duplicate_problem(claim, options),), stamp)
+        expected = claim.study_id if claim is not None else None
+        if not options.force and (claim is None or expected is not None):
+            reused = stamps.reuse(path, source, stamp, options, expected_id=expected)
+            if reused is not None:
+                return _result(source, Status.SKIPPED, *reused)
+        analysis = _analyse(Path(path), options)
+        if claim is not None and analysis.study.id != expected:
+            # The first pass read another id (or none): the file changed while the batch ran.
+            problem = Problem("study.id", "the file changed while the batch ran; run it again")
+            return _failed(source, (problem,), stamp)
+        data = record_dict(analysis)
+        stale = stamps.stale_outputs(stamp, keep_id=analysis.study.id)
+        written = _write_outputs(analysis, data, options)
+        stamps.write_stamp(stamp, source, analysis, written, options)
+        return _result(source, Status.DONE, analysis, tuple(written), data, stale=stale)
+    except ReportingError as exc:
+        # Input problems, and output write errors (reporting.files raises them as ReportingError).
+        problems = tuple(_problem(p, path, options.outdir) for p in problems_of(exc))
+        return _failed(source, problems, stamp)
+    except OSError as exc:
+        return _failed(source, (_os_problem(exc, options.outdir),), stamp)
+    except Exception as exc:  # a bug must not stop the other studies
+        # Reported as this study's failure; the traceback only when debugging (the CLI shows no tracebacks).
+        log.debug("internal error on %s", source, exc_info=True)
+        problem = Problem("", f"internal error: {type(exc).__name__}: {exc}")
+        return _failed(source, (problem,), stamp)
+
+
+def _analyse(path: Path, options: BatchOptions) -> Analysis:
+    from reporting.analysis import analyze_file
+
+    analysis = analyze_file(
+        path, settings_path=options.settings_path, territory_map=options.territory_map
+    )
+    if options.deidentify:
+        from reporting.deidentify import deidentify
+
+        assert options.deid_key is not None
+        analysis = deidentify(analysis, options.deid_key, keep_text=options.keep_text)
+    return analysis
+
+
+def record_text(data: dict[str, Any]) -> str:
+    """The record file's text from :func:`~reporting.export.record.record_dict` data.
+
+    Byte-identical to :func:`~reporting.export.record.record_json` (a test checks it); taking the
+    data lets a batch dump the model once for both the record file and the registry line.
+    """
+    return json.dumps(data, indent=2, ensure_ascii=False) + "\n"
+
+
+def registry_line(data: dict[str, Any]) -> str:
+    """The record as one line of compact JSON (no newline)."""
+    return json.dumps(data, ensure_ascii=False, separators=(",", ":"))
+
+
+def _write_outputs(
+    analysis: Analysis, data: dict[str, Any], options: BatchOptions
+) -> dict[str, str]:
+    """Write the study's files; return their names (in writing order) with their digests."""
+    outdir = options.outdir
+    sid = analysis.study.id
+    record = outdir / f"{sid}.record.json"
+    pdf_path = outdir / f"{sid}.pdf"
+    fhir_path = outdir / f"{sid}.fhir.json"
+    written: dict[Path, bytes] = {}
+    with all_or_nothing([record, pdf_path, fhir_path]):
+        if options.writes_pdf:
+            # The report writer writes the record, the SVG maps and the PDF (all or none).
+            paths = _report_writer()(
+                analysis, outdir, paper=options.paper, templates_dir=options.templates_dir
+            )
+            written.update((Path(p), Path(p).read_bytes()) for p in paths)
+        if record not in written:
+            text = record_text(data).encode()
+            write_atomic(record, text)
+            written = {record: text, **written}
+        if options.fhir:
+            from reporting.export.fhir import bundle_json
+
+            bundle = bundle_json(analysis, pdf=written.get(pdf_path)).encode()
+            write_atomic(fhir_path, bundle)
+            written[fhir_path] = bundle
+    return {p.relative_to(outdir).as_posix(): stamps.digest(b) for p, b in written.items()}
+
+
+def _report_writer() -> Any:
+    # Imported only when PDFs are wanted: the renderer pulls in reportlab and the templates.
+    import importlib
+
+    return importlib.import_module("reporting.render").write_report
+
+
+def _result(
+    source: str,
+    status: Status,
+    analysis: Analysis,
+    outputs: Sequence[str],
+    data: dict[str, Any] | None = None,
+    *,
+    stale: StaleOutputs | None = None,
+) -> StudyResult:
+    return StudyResult(
+        source=source,
+        status=status,
+        study_id=analysis.study.id,
+        outputs=tuple(outputs),
+        record_line=registry_line(record_dict(analysis) if data is None else data),
+        study_row=tables.study_row(analysis),
+        segment_rows=tuple(tables.segment_rows(analysis)),
+        stale=stale,
+    )
+
+
+def _failed(source: str, problems: tuple[Problem, ...], stamp: Path | None) -> StudyResult:
+    # An earlier run's files of a failed study must not stay behind: the driver removes them.
+    stale = stamps.stale_outputs(stamp) if stamp is not None else None
+    return StudyResult(source=source, status=Status.FAILED, problems=problems, stale=stale)
+
+
+def _problem(problem: ReportingError, path: Path, outdir: Path) -> Problem:
+    location = getattr(problem, "location", "")
+    message = getattr(problem, "problem", str(problem))
+    prefix = str(path)
+    if location.startswith(prefix):
+        location = location[len(prefix) :].lstrip(":").strip()
+    # Output files are named relative to the output folder, as in the rest of the batch's outputs.
+    folder = f"{outdir}{os.sep}"
+    return Problem(location.replace(folder, ""), message.replace(folder, ""))
+
+
+def _os_problem(exc: OSError, outdir: Path) -> Problem:
+    # Names the file relative to the output folder: the folder itself is the operator's choice.
+    where = ""
+    if exc.filename is not None:
+        name = Path(str(exc.filename))
+        where = name.relative_to(outdir).as_posix() if name.is_relative_to(outdir) else str(name)
+    return Problem("", f"cannot write {where or 'the outputs'}: {exc.strerror or exc}")
