@@ -155,3 +155,43 @@ def read_document(
         )
     text = read_text(path, what=what)
     return parse_json(text, str(path)) if suffix == ".json" else parse_yaml(text, str(path))
+
+
+def peek_yaml_text(text: str, keys: tuple[str, ...]) -> str | None:
+    """The text value at ``keys`` (e.g. ``("study", "id")``) read from parser events alone.
+
+    Much cheaper than loading the document: it stops as soon as the value is found. Returns ``None``
+    when the value is missing, is not plain text (a number, a list…), or the text is not YAML this
+    module would accept; loading the whole document then reports the problem.
+    """
+    resolver = yaml.resolver.Resolver()
+    # One entry per open container: [is_mapping, waiting_for_a_key, current_key].
+    levels: list[list[Any]] = []
+
+    def value_done() -> None:
+        if levels and levels[-1][0]:
+            levels[-1][1] = True
+
+    try:
+        for event in yaml.parse(text, Loader=_SafeLoader):
+            if isinstance(event, yaml.AliasEvent):
+                return None
+            if isinstance(event, yaml.MappingStartEvent | yaml.SequenceStartEvent):
+                if len(levels) >= MAX_NESTING:
+                    return None
+                levels.append([isinstance(event, yaml.MappingStartEvent), True, None])
+            elif isinstance(event, yaml.MappingEndEvent | yaml.SequenceEndEvent):
+                levels.pop()
+                value_done()
+            elif isinstance(event, yaml.ScalarEvent) and levels:
+                level = levels[-1]
+                if level[0] and level[1]:
+                    level[1], level[2] = False, event.value
+                    continue
+                if all(lv[0] for lv in levels) and tuple(lv[2] for lv in levels) == keys:
+                    tag = resolver.resolve(yaml.ScalarNode, event.value, event.implicit)  # type: ignore[no-untyped-call]
+                    return event.value if tag == "tag:yaml.org,2002:str" else None
+                value_done()
+    except yaml.YAMLError:
+        return None
+    return None

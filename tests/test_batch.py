@@ -447,8 +447,10 @@ def test_record_text_is_byte_identical_to_record_json() -> None:
     for name in demo_study_names():
         analysis = analyze_file(demo / name)
         data = record_dict(analysis)
-        assert batch.record_text(data) == record_json(analysis)
-        assert json.loads(batch.registry_line(data)) == data
+        assert batch.record_text(analysis) == record_json(analysis)
+        line = batch.registry_line(analysis)
+        assert json.loads(line) == data
+        assert line == json.dumps(data, ensure_ascii=False, separators=(",", ":"))
 
 
 def test_rerun_redoes_a_study_whose_curve_file_changed(tmp_path: Path) -> None:

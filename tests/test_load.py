@@ -362,3 +362,23 @@ def test_field_errors_do_not_hide_whole_study_problems(tmp_path: Path) -> None:
     assert "stages.peak.wall_motion: 17 scores given; the 18-segment model needs 18" in text
     assert "patient.birth_date: birth date is after the study date" in text
     assert len([line for line in text.splitlines() if line.startswith("Error: ")]) == 3
+
+
+PEEK_CASES = [
+    ("schema_version: 1\nstudy: {id: T-1, date: 2026-01-01}\n", "T-1"),
+    ("study:\n  date: 2026-01-01\n  id: 'ABC'\n", "ABC"),
+    ("study:\n  id: 0012\n", None),  # a number to YAML, refused on loading
+    ("patient: {id: P-1}\nstudy: {id: S-9}\n", "S-9"),
+    ("study:\n  nested: {id: no}\n  list: [{id: no}]\n  id: yes-1\n", "yes-1"),
+    ("study: [a, id, T-1]\n", None),
+    ("a: &x T-2\nstudy: {id: *x}\n", None),
+    ("study: {id: [a]}\n", None),
+    ("study: {id: T-3\n", None),  # broken YAML
+]
+
+
+@pytest.mark.parametrize("text,expected", PEEK_CASES, ids=[str(i) for i in range(len(PEEK_CASES))])
+def test_peeking_at_the_id_agrees_with_loading(text: str, expected: str | None) -> None:
+    from reporting.documents import peek_yaml_text
+
+    assert peek_yaml_text(text, ("study", "id")) == expected

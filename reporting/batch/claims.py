@@ -16,8 +16,9 @@ from pathlib import Path
 
 from reporting.batch.options import BatchOptions
 from reporting.batch.results import Problem
+from reporting.documents import parse_json, peek_yaml_text, read_text
 from reporting.errors import ReportingError
-from reporting.load import STUDY_SUFFIXES, read_document
+from reporting.load import STUDY_SUFFIXES
 
 
 @dataclass(frozen=True)
@@ -42,12 +43,18 @@ def read_output_id(path: Path, options: BatchOptions) -> str | None:
 
     ``None`` when the file cannot be read or holds no text id; analysing it then fails on its own.
     """
+    if path.suffix.lower() not in STUDY_SUFFIXES:
+        return None
     try:
-        data = read_document(path, what="study file", suffixes=STUDY_SUFFIXES)
+        text = read_text(path, what="study file")
+        if path.suffix.lower() == ".json":
+            data = parse_json(text, str(path))
+            study = data.get("study") if isinstance(data, dict) else None
+            study_id = study.get("id") if isinstance(study, dict) else None
+        else:  # YAML: read only as far as the id, from parser events (much cheaper than a load)
+            study_id = peek_yaml_text(text, ("study", "id"))
     except ReportingError:
         return None
-    study = data.get("study") if isinstance(data, dict) else None
-    study_id = study.get("id") if isinstance(study, dict) else None
     return options.output_id(study_id) if isinstance(study_id, str) else None
 
 

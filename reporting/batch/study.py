@@ -8,7 +8,6 @@ errors and bugs alike come back as a ``FAILED`` result naming the problems.
 
 from __future__ import annotations
 
-import json
 import logging
 import os
 from collections.abc import Sequence
@@ -22,7 +21,7 @@ from reporting.batch.results import Problem, StaleOutputs, Status, StudyResult
 from reporting.batch.sources import source_name
 from reporting.errors import ReportingError, problems_of
 from reporting.export import tables
-from reporting.export.record import record_dict
+from reporting.export.record import record_json
 from reporting.files import all_or_nothing, write_atomic
 from reporting.results import Analysis
 
@@ -55,11 +54,10 @@ def process_study(
             # The first pass read another id (or none): the file changed while the batch ran.
             problem = Problem("study.id", "the file changed while the batch ran; run it again")
             return _failed(source, (problem,), stamp)
-        data = record_dict(analysis)
         stale = stamps.stale_outputs(stamp, keep_id=analysis.study.id)
-        written = _write_outputs(analysis, data, options)
+        written = _write_outputs(analysis, options)
         stamps.write_stamp(stamp, source, analysis, written, options)
-        return _result(source, Status.DONE, analysis, tuple(written), data, stale=stale)
+        return _result(source, Status.DONE, analysis, tuple(written), stale=stale)
     except ReportingError as exc:
         # Input problems, and output write errors (reporting.files raises them as ReportingError).
         problems = tuple(_problem(p, path, options.outdir) for p in problems_of(exc))
@@ -87,23 +85,17 @@ def _analyse(path: Path, options: BatchOptions) -> Analysis:
     return analysis
 
 
-def record_text(data: dict[str, Any]) -> str:
-    """The record file's text from :func:`~reporting.export.record.record_dict` data.
-
-    Byte-identical to :func:`~reporting.export.record.record_json` (a test checks it); taking the
-    data lets a batch dump the model once for both the record file and the registry line.
-    """
-    return json.dumps(data, indent=2, ensure_ascii=False) + "\n"
+def record_text(analysis: Analysis) -> str:
+    """The record file's text: the same as :func:`~reporting.export.record.record_json`."""
+    return record_json(analysis)
 
 
-def registry_line(data: dict[str, Any]) -> str:
-    """The record as one line of compact JSON (no newline)."""
-    return json.dumps(data, ensure_ascii=False, separators=(",", ":"))
+def registry_line(analysis: Analysis) -> str:
+    """The record as one line of compact JSON (no newline), from pydantic's fast serializer."""
+    return analysis.model_dump_json()
 
 
-def _write_outputs(
-    analysis: Analysis, data: dict[str, Any], options: BatchOptions
-) -> dict[str, str]:
+def _write_outputs(analysis: Analysis, options: BatchOptions) -> dict[str, str]:
     """Write the study's files; return their names (in writing order) with their digests."""
     outdir = options.outdir
     sid = analysis.study.id
@@ -119,7 +111,7 @@ def _write_outputs(
             )
             written.update((Path(p), Path(p).read_bytes()) for p in paths)
         if record not in written:
-            text = record_text(data).encode()
+            text = record_text(analysis).encode()
             write_atomic(record, text)
             written = {record: text, **written}
         if options.fhir:
@@ -143,7 +135,6 @@ def _result(
     status: Status,
     analysis: Analysis,
     outputs: Sequence[str],
-    data: dict[str, Any] | None = None,
     *,
     stale: StaleOutputs | None = None,
 ) -> StudyResult:
@@ -152,7 +143,7 @@ def _result(
         status=status,
         study_id=analysis.study.id,
         outputs=tuple(outputs),
-        record_line=registry_line(record_dict(analysis) if data is None else data),
+        record_line=registry_line(analysis),
         study_row=tables.study_row(analysis),
         segment_rows=tuple(tables.segment_rows(analysis)),
         stale=stale,
