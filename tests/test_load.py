@@ -373,7 +373,7 @@ PEEK_CASES = [
     ("study: [a, id, T-1]\n", None),
     ("a: &x T-2\nstudy: {id: *x}\n", None),
     ("study: {id: [a]}\n", None),
-    ("study: {id: T-3\n", None),  # broken YAML
+    ("study: {id: T-3\n", "T-3"),  # stops at the id: a later syntax error is found on loading
 ]
 
 
