@@ -39,6 +39,17 @@ def _user_errors() -> Iterator[None]:
         sys.exit(1)
 
 
+def _emit(text: str, output: Path | None) -> None:
+    """Print ``text``, or write it atomically to ``output`` and say so on stderr."""
+    from reporting.files import write_atomic
+
+    if output is None:
+        click.echo(text, nl=False)
+    else:
+        write_atomic(output, text)
+        click.echo(f"Wrote {output}", err=True)
+
+
 def _lab_options(func: F) -> F:
     func = click.option(
         "--settings",
@@ -83,17 +94,12 @@ def analyze(
     """Validate STUDY and write its analysis record (JSON)."""
     from reporting.analysis import analyze_file
     from reporting.export.record import record_json
-    from reporting.files import write_atomic
 
     with _user_errors():
         text = record_json(
             analyze_file(study, settings_path=settings_path, territory_map=territory_map)
         )
-        if output is None:
-            click.echo(text, nl=False)
-        else:
-            write_atomic(output, text)
-            click.echo(f"Wrote {output}", err=True)
+        _emit(text, output)
 
 
 @main.command()
@@ -345,16 +351,11 @@ def qa(
 )
 def agreement(records_a: Path, records_b: Path, output: Path | None) -> None:
     """Agreement of two readers: RECORDS_A and RECORDS_B matched by study id (Cohen's kappa)."""
-    from reporting.files import write_atomic
     from reporting.qa import agreement_json, run_agreement
 
     with _user_errors():
         text = agreement_json(run_agreement(records_a, records_b))
-        if output is None:
-            click.echo(text, nl=False)
-        else:
-            write_atomic(output, text)
-            click.echo(f"Wrote {output}", err=True)
+        _emit(text, output)
 
 
 @main.command()
@@ -380,7 +381,6 @@ def curves(
     curves_file: Path, output: Path | None, segment_model: str | None, settings_path: Path | None
 ) -> None:
     """Fit every time-intensity curve in CURVES (CSV) and write one row per fit."""
-    from reporting.files import write_atomic
     from reporting.kinetics import fit_curve_file, fits_csv_text
     from reporting.settings import load_settings
 
@@ -391,11 +391,7 @@ def curves(
             settings=load_settings(settings_path),
         )
         text = fits_csv_text(rows)
-        if output is None:
-            click.echo(text, nl=False)
-        else:
-            write_atomic(output, text)
-            click.echo(f"Wrote {output}", err=True)
+        _emit(text, output)
 
 
 @main.command()
@@ -513,14 +509,9 @@ def fhir_bundle(
     """Write STUDY as an HL7 FHIR R4 Bundle (JSON): report, observations and patient."""
     from reporting.analysis import analyze_file
     from reporting.export.fhir import bundle_json
-    from reporting.files import write_atomic
 
     with _user_errors():
         text = bundle_json(
             analyze_file(study, settings_path=settings_path, territory_map=territory_map)
         )
-        if output is None:
-            click.echo(text, nl=False)
-        else:
-            write_atomic(output, text)
-            click.echo(f"Wrote {output}", err=True)
+        _emit(text, output)
