@@ -124,10 +124,24 @@ def _check_tokens(text: str) -> None:
             depth -= 1
 
 
+def _needs_token_check(text: str) -> bool:
+    """Whether ``text`` could hold an alias or nest beyond :data:`MAX_NESTING` (cheap, conservative).
+
+    An alias needs ``*`` (and its anchor ``&``); every further level of nesting needs a flow bracket,
+    a ``-`` or ``?`` indicator or a deeper indentation, so counting those bounds the depth.
+    """
+    if "*" in text or "&" in text:
+        return True
+    indent = max((len(line) - len(line.lstrip(" ")) for line in text.splitlines()), default=0)
+    bound = 1 + indent + sum(text.count(c) for c in "[{-?")
+    return bound > MAX_NESTING
+
+
 def parse_yaml(text: str, where: str) -> Any:
     """Parse YAML text safely: no aliases, no duplicate keys, bounded nesting."""
     try:
-        _check_tokens(text)
+        if _needs_token_check(text):
+            _check_tokens(text)
         return yaml.load(text, Loader=_StrictLoader)
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark

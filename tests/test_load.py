@@ -382,3 +382,22 @@ def test_peeking_at_the_id_agrees_with_loading(text: str, expected: str | None) 
     from reporting.documents import peek_yaml_text
 
     assert peek_yaml_text(text, ("study", "id")) == expected
+
+
+def _nested(depth: int, mapping: bool) -> object:
+    value: object = "x"
+    for level in range(depth):
+        value = {f"k{level}": value} if mapping and level % 2 else [value]
+    return value
+
+
+@pytest.mark.parametrize("depth", [10, 63, 64, 65, 90])
+@pytest.mark.parametrize("flow", [True, False], ids=["flow", "block"])
+@pytest.mark.parametrize("mapping", [True, False], ids=["mixed", "lists"])
+def test_cheap_depth_bound_never_misses_deep_nesting(depth: int, flow: bool, mapping: bool) -> None:
+    # The pre-check may only skip the token scan when nesting cannot exceed the limit.
+    from reporting.documents import MAX_NESTING, _needs_token_check
+
+    text = yaml.safe_dump({"a": _nested(depth, mapping)}, default_flow_style=flow, width=10_000)
+    if depth + 1 > MAX_NESTING:
+        assert _needs_token_check(text)
