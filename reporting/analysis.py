@@ -84,13 +84,13 @@ def analyze_file(
     return analyze(
         study,
         settings=settings,
-        territory_map=resolve_territory_map(study, path.parent, territory_map),
+        territory_map=resolve_territory_map(study, path.parent, territory_map, source=str(path)),
         curves=curves,
     )
 
 
 def resolve_territory_map(
-    study: Study, base_dir: Path, override: str | Path | None = None
+    study: Study, base_dir: Path, override: str | Path | None = None, *, source: str = "study"
 ) -> TerritoryMap:
     """The map named by ``override`` or by the study: a built-in name or a YAML file path."""
     choice = override if override is not None else study.territory_map
@@ -99,7 +99,7 @@ def resolve_territory_map(
     if str(choice) in BUILT_IN_MAPS:
         return built_in_map(str(choice))
     if override is None:
-        return load_territory_map(inside_folder(base_dir, str(choice), "territory_map"))
+        return load_territory_map(inside_folder(base_dir, str(choice), f"{source}: territory_map"))
     where = Path(choice)
     if not where.exists() and not where.suffix:
         raise InputError(
@@ -111,8 +111,12 @@ def resolve_territory_map(
 
 def inside_folder(folder: Path, relative: str, location: str) -> Path:
     """``folder / relative``, refusing a path that leaves ``folder`` (a study names files beside itself)."""
-    candidate = (folder / relative).resolve()
-    if Path(relative).is_absolute() or not candidate.is_relative_to(folder.resolve()):
+    try:
+        candidate = (folder / relative).resolve()
+        inside = candidate.is_relative_to(folder.resolve())
+    except (OSError, RuntimeError, ValueError) as exc:  # symlink loop, NUL byte, …
+        raise InputError(location, f"{relative!r} is not a usable path ({exc})") from None
+    if Path(relative).is_absolute() or not inside:
         raise InputError(location, f"{relative!r} must be a path inside the study's folder")
     return candidate
 

@@ -107,41 +107,52 @@ def _mapping(loader: yaml.SafeLoader, node: yaml.MappingNode) -> dict[Any, Any]:
 _StrictLoader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _mapping)
 
 
-def _check_tokens(text: str) -> None:
+def _check_events(text: str) -> None:
+    # Parser events give the true nesting (a flow pair like [k: v] or an indentless "- k:" ladder
+    # opens two levels with one token), so depth is counted from events, not tokens.
     depth = 0
-    for token in yaml.scan(text, Loader=_SafeLoader):
-        if isinstance(token, yaml.AliasToken):
+    for event in yaml.parse(text, Loader=_SafeLoader):
+        if isinstance(event, yaml.AliasEvent):
             raise yaml.composer.ComposerError(
-                None, None, "anchors and aliases are not allowed", token.start_mark
+                None,
+                None,
+                "anchors and aliases are not allowed",
+                event.start_mark,  # type: ignore[arg-type]
             )
-        if isinstance(token, _OPENING):
+        if isinstance(event, yaml.MappingStartEvent | yaml.SequenceStartEvent):
             depth += 1
             if depth > MAX_NESTING:
                 raise yaml.composer.ComposerError(
-                    None, None, f"nested more than {MAX_NESTING} levels deep", token.start_mark
+                    None,
+                    None,
+                    f"nested more than {MAX_NESTING} levels deep",
+                    event.start_mark,  # type: ignore[arg-type]
                 )
-        elif isinstance(token, _CLOSING):
+        elif isinstance(event, yaml.MappingEndEvent | yaml.SequenceEndEvent):
             depth -= 1
 
 
-def _needs_token_check(text: str) -> bool:
+def _needs_event_check(text: str) -> bool:
     """Whether ``text`` could hold an alias or nest beyond :data:`MAX_NESTING` (cheap, conservative).
 
-    An alias needs ``*`` (and its anchor ``&``); every further level of nesting needs a flow bracket,
-    a ``-`` or ``?`` indicator or a deeper indentation, so counting those bounds the depth.
+    An alias needs ``*``. Every new level needs a flow bracket, a ``-`` or ``?`` indicator or a
+    deeper indentation, and one indicator can open at most two levels (a sequence and
+    the mapping of its first entry), so twice their count plus the indentation bounds the depth.
+    A byte-order mark inside the text makes libyaml skip it at a line start, so such text is
+    always checked.
     """
-    if "*" in text or "&" in text:
+    if "*" in text or "\ufeff" in text:
         return True
     indent = max((len(line) - len(line.lstrip(" ")) for line in text.splitlines()), default=0)
-    bound = 1 + indent + sum(text.count(c) for c in "[{-?")
+    bound = 1 + indent + 2 * sum(text.count(c) for c in "[{-?")
     return bound > MAX_NESTING
 
 
 def parse_yaml(text: str, where: str) -> Any:
     """Parse YAML text safely: no aliases, no duplicate keys, bounded nesting."""
     try:
-        if _needs_token_check(text):
-            _check_tokens(text)
+        if _needs_event_check(text):
+            _check_events(text)
         return yaml.load(text, Loader=_StrictLoader)
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark

@@ -15,17 +15,31 @@ from pathlib import Path
 from reporting.errors import OutputError
 
 
+def temporary_beside(target: Path) -> tuple[int, Path]:
+    """A new hidden ``.part`` file in ``target``'s folder (descriptor, path), with the usual permissions.
+
+    Renaming it over ``target`` once complete makes the write atomic.
+    """
+    fd, temp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    try:
+        # mkstemp makes the file readable by its owner only; give it what a new file would get.
+        os.fchmod(fd, FILE_MODE)
+    except OSError:
+        os.close(fd)
+        os.unlink(temp)
+        raise
+    return fd, Path(temp)
+
+
 def write_atomic(path: Path, data: bytes | str) -> None:
     """Write ``data`` to ``path`` through a temporary file in the same folder, then rename."""
     payload = data.encode("utf-8") if isinstance(data, str) else data
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
-        fd, temp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+        fd, temp = temporary_beside(path)
     except OSError as exc:
         raise OutputError(str(path), f"cannot write: {exc.strerror or exc}") from None
     try:
-        # mkstemp creates the file readable by its owner only; give it the usual permissions.
-        os.fchmod(fd, 0o666 & ~_umask())
         with os.fdopen(fd, "wb") as handle:
             handle.write(payload)
         os.replace(temp, path)
@@ -37,10 +51,16 @@ def write_atomic(path: Path, data: bytes | str) -> None:
         raise
 
 
-def _umask() -> int:
+def _read_umask() -> int:
+    # Read once, at import (single-threaded): os.umask can only be read by setting it, which is
+    # not safe while other threads (the local web server's) create files.
     current = os.umask(0)
     os.umask(current)
     return current
+
+
+FILE_MODE = 0o666 & ~_read_umask()
+"""Permissions of the files segreport writes: what the process umask gives a new file."""
 
 
 @contextlib.contextmanager

@@ -67,19 +67,19 @@ def _located(error: dict[str, Any], source: str) -> InputError:
         and segment is not None
     ):
         name = _SCORE_KINDS[str(loc[2])]
-        problem = f"{name} score {error['input']!r} is out of range ({_score_range(str(loc[2]))})"
-    elif kind.startswith("int_") and segment is not None:
         problem = (
-            f"score {error['input']!r} is not a whole number ({_score_range(str(loc[2]))}, or x)"
+            f"{name} score {_shown(error['input'])} is out of range ({_score_range(str(loc[2]))})"
         )
+    elif kind.startswith("int_") and segment is not None:
+        problem = f"score {_shown(error['input'])} is not a whole number ({_score_range(str(loc[2]))}, or x)"
     elif kind in ("less_than_equal", "less_than"):
         limit = error.get("ctx", {}).get("le", error.get("ctx", {}).get("lt"))
-        problem = f"{error['input']!r} is above the allowed maximum {limit}"
+        problem = f"{_shown(error['input'])} is above the allowed maximum {limit}"
     elif kind in ("greater_than_equal", "greater_than"):
         limit = error.get("ctx", {}).get("ge", error.get("ctx", {}).get("gt"))
-        problem = f"{error['input']!r} is below the allowed minimum {limit}"
+        problem = f"{_shown(error['input'])} is below the allowed minimum {limit}"
     elif kind == "finite_number":
-        problem = f"{error['input']!r} is not a finite number"
+        problem = f"{_shown(error['input'])} is not a finite number"
     elif kind in ("model_type", "dict_type", "model_attributes_type"):
         problem = f"expected a mapping of fields, got {_kind_of(error['input'])}"
     elif kind == "too_short" and loc == ["stages"]:
@@ -87,13 +87,13 @@ def _located(error: dict[str, Any], source: str) -> InputError:
     elif kind == "string_too_long":
         problem = f"text is longer than {error.get('ctx', {}).get('max_length')} characters"
     elif kind in ("int_parsing", "float_parsing", "int_type", "float_type"):
-        problem = f"{error['input']!r} is not a number"
+        problem = f"{_shown(error['input'])} is not a number"
     elif kind == "int_from_float":
-        problem = f"{error['input']!r} is not a whole number"
+        problem = f"{_shown(error['input'])} is not a whole number"
     elif kind in ("date_from_datetime_parsing", "date_parsing", "date_type"):
-        problem = f"{error['input']!r} is not a date (use YYYY-MM-DD)"
+        problem = f"{_shown(error['input'])} is not a date (use YYYY-MM-DD)"
     elif kind == "enum" or kind == "literal_error":
-        problem = f"{error['input']!r} is not allowed; {problem[0].lower()}{problem[1:]}"
+        problem = f"{_shown(error['input'])} is not allowed; {problem[0].lower()}{problem[1:]}"
     if segment is not None and not problem.startswith("segment"):
         problem = f"segment {segment}: {problem}"
     path = ".".join(str(p) for p in loc if p != "[key]")
@@ -107,6 +107,12 @@ def _key_problem(loc: list[Any], message: str) -> str:
     if i == 4 and loc[0] == "stages" and loc[2] in _SCORE_KINDS:
         return "not a segment number"
     return f"bad key: {message}"
+
+
+def _shown(value: Any, limit: int = 60) -> str:
+    """A user's value as quoted in a message, cut short so a huge value cannot flood the output."""
+    text = repr(value)
+    return text if len(text) <= limit else f"{text[: limit - 1]}…"
 
 
 def _kind_of(value: Any) -> str:

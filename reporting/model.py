@@ -184,7 +184,7 @@ def _parse_scores(value: Any) -> Any:
 
 
 def _segment_key(key: Any) -> Any:
-    if isinstance(key, str) and key.strip().isdigit():
+    if isinstance(key, str) and key.strip().isascii() and key.strip().isdecimal():
         return int(key.strip())
     return key
 
@@ -430,7 +430,7 @@ class Study(_Input):
             extra = [
                 p
                 for p in _raw_study_problems(data)
-                if not any(k[: len(p["loc"])] == p["loc"] for k in known)
+                if not any(tuple(p["loc"][: len(k)]) == k for k in known)
             ]
             if not extra:
                 raise
@@ -552,8 +552,7 @@ def _study_problems(
 
 def _raw_study_problems(data: dict[Any, Any]) -> list[InitErrorDetails]:
     """:func:`_study_problems` on unvalidated data, using whatever parts of it can be read."""
-    model = data.get("segment_model", int(SegmentModel.SEVENTEEN))
-    count = model if model in (16, 17, 18) and not isinstance(model, bool) else None
+    count = _segment_count(data.get("segment_model", int(SegmentModel.SEVENTEEN)))
     scale = 5 if data.get("wall_motion_scale") == 5 else 4
     stages: dict[str, dict[str, dict[int, Any]]] = {}
     raw_stages = data.get("stages")
@@ -564,7 +563,7 @@ def _raw_study_problems(data: dict[Any, Any]) -> list[InitErrorDetails]:
         for kind in ("wall_motion", "perfusion"):
             try:
                 scores = _parse_scores(stage.get(kind))
-            except PydanticCustomError:
+            except (PydanticCustomError, ValueError):
                 continue
             if isinstance(scores, dict) and all(isinstance(k, int) for k in scores):
                 stages[name][kind] = scores
@@ -582,7 +581,20 @@ def _raw_study_problems(data: dict[Any, Any]) -> list[InitErrorDetails]:
     )
 
 
+def _segment_count(value: Any) -> int | None:
+    """The segment model as pydantic would read it (17, 17.0 or "17"), else ``None``."""
+    if isinstance(value, bool):
+        return None
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return None
+    return int(number) if number in (16, 17, 18) else None
+
+
 def _date_or_none(value: Any) -> dt.date | None:
+    if isinstance(value, dt.datetime):
+        return value.date()
     if isinstance(value, dt.date):
         return value
     try:
@@ -593,7 +605,7 @@ def _date_or_none(value: Any) -> dt.date | None:
 
 def _again(error: ErrorDetails) -> InitErrorDetails:
     """An error pydantic reported, in the form that can be raised again unchanged."""
-    message = error["msg"].replace("{", "{{").replace("}", "}}")
+    message = error["msg"]  # pydantic substitutes only {context keys}, so braces pass through
     return InitErrorDetails(
         type=PydanticCustomError(error["type"], message, error.get("ctx")),
         loc=error["loc"],

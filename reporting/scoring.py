@@ -103,11 +103,12 @@ def wall_motion_response(
             WallMotionResponse.ISCHEMIC if max(stress_scores) > rest else WallMotionResponse.NORMAL
         )
     if low_dose is not None and low_dose < rest:
-        return (
-            WallMotionResponse.BIPHASIC
-            if peak > low_dose
-            else WallMotionResponse.SUSTAINED_IMPROVEMENT
-        )
+        if peak <= low_dose:
+            return WallMotionResponse.SUSTAINED_IMPROVEMENT
+        if low_dose >= AKINETIC_SCORE:
+            # Still akinetic at low dose and bulging again at peak: not ischaemia (Elhendy 1996).
+            return WallMotionResponse.AKINETIC_TO_DYSKINETIC
+        return WallMotionResponse.BIPHASIC
     worse_at_stress = peak > rest or (low_dose is not None and low_dose > rest)
     if worse_at_stress and rest >= AKINETIC_SCORE:
         # An akinetic (or dyskinetic) wall bulging more at stress is not ischaemia (Elhendy 1996).

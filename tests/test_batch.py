@@ -751,3 +751,16 @@ def test_an_unusable_output_folder_is_one_clean_error(
     with pytest.raises(ReportingError, match="cannot write the output folder: Permission denied"):
         run_batch(indir, BatchOptions(outdir=out, pdf=False))
     assert not list(out.glob("T-1.*")), "no study was processed"
+
+
+def test_aggregate_files_have_the_usual_permissions(
+    one_job: tuple[Path, batch.BatchSummary],
+) -> None:
+    import stat
+
+    from reporting.files import FILE_MODE
+
+    out, _ = one_job
+    for name in ("registry.ndjson", "studies.csv", "segments.csv", "failures.csv"):
+        if (out / name).exists():
+            assert stat.S_IMODE((out / name).stat().st_mode) == FILE_MODE, name

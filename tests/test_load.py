@@ -12,6 +12,7 @@ from click.testing import CliRunner
 from conftest import NORMAL_17, stages, study_dict
 
 from reporting.cli import main
+from reporting.errors import InputError
 
 
 def _yaml(data: dict[str, Any]) -> str:
@@ -285,6 +286,37 @@ GALLERY: list[tuple[str, str, str | bytes, str, str]] = [
         "disagrees with the birth date",
     ),
     ("folder-named-yaml", "dir.yaml", "", "dir.yaml", "is a folder"),
+    # Second-review cases: raw checks must not crash on values pydantic rejects.
+    (
+        "birth-datetime",
+        "s.yaml",
+        _with(["patient"], {"birth_date": "1960-01-01 08:00:00"}),
+        "patient.birth_date",
+        "",
+    ),
+    (
+        "float-model-with-error",
+        "s.yaml",
+        _yaml(
+            study_dict(
+                segment_model=17.0,
+                stages={
+                    **stages(rest=NORMAL_17, peak=NORMAL_17),
+                    "rest": {"heart_rate_bpm": 5, "wall_motion": NORMAL_17},
+                },
+            )
+        ),
+        "stages.rest.heart_rate_bpm",
+        "below the allowed minimum",
+    ),
+    (
+        "superscript-key",
+        "s.yaml",
+        _with(["stages", "peak", "perfusion"], {"\u00b2": 1}),
+        "stages.peak.perfusion",
+        "",
+    ),
+    ("huge-literal", "s.yaml", _with(["schema_version"], "[" * 3000), "schema_version", "…"),
     (
         "missing-map-file",
         "s.yaml",
@@ -396,8 +428,49 @@ def _nested(depth: int, mapping: bool) -> object:
 @pytest.mark.parametrize("mapping", [True, False], ids=["mixed", "lists"])
 def test_cheap_depth_bound_never_misses_deep_nesting(depth: int, flow: bool, mapping: bool) -> None:
     # The pre-check may only skip the token scan when nesting cannot exceed the limit.
-    from reporting.documents import MAX_NESTING, _needs_token_check
+    from reporting.documents import MAX_NESTING, _needs_event_check
 
     text = yaml.safe_dump({"a": _nested(depth, mapping)}, default_flow_style=flow, width=10_000)
     if depth + 1 > MAX_NESTING:
-        assert _needs_token_check(text)
+        assert _needs_event_check(text)
+
+
+@pytest.mark.parametrize(
+    "text",
+    [
+        "a:\n"
+        + "".join("\ufeff" + " " * i + "k:\n" for i in range(1, 100)),  # a BOM at each line start
+        "a: " + "[k: " * 40 + "x" + "]" * 40 + "\n",  # each flow pair opens two levels
+        "a:\n" + "".join(" " * (2 * i) + "- k:\n" for i in range(40)),  # indentless ladder
+    ],
+    ids=["bom-indent", "flow-pairs", "ladder"],
+)
+def test_nesting_limit_cannot_be_dodged(text: str) -> None:
+    # Second-review cases: each nests deeper than the limit in fewer tokens than levels.
+    from reporting.documents import parse_yaml
+
+    with pytest.raises(InputError, match="nested more than 64 levels deep"):
+        parse_yaml(text, "s.yaml")
+
+
+def test_order_problem_is_not_hidden_by_a_field_error(tmp_path: Path) -> None:
+    data = study_dict()
+    data["stages"] = {
+        "peak": stages(peak=NORMAL_17)["peak"],
+        "rest": {"heart_rate_bpm": 5, "wall_motion": NORMAL_17},
+    }
+    study = tmp_path / "s.yaml"
+    study.write_text(_yaml(data))
+    result = CliRunner().invoke(main, ["validate", str(study)])
+    assert "protocol order" in result.stderr and "heart_rate_bpm" in result.stderr
+
+
+def test_symlink_loop_is_a_located_error(tmp_path: Path) -> None:
+    (tmp_path / "loop").symlink_to(tmp_path / "loop")
+    study = tmp_path / "s.yaml"
+    study.write_text(
+        _yaml(study_dict(perfusion_curves="loop", contrast={"administration": "infusion"}))
+    )
+    result = CliRunner().invoke(main, ["analyze", str(study)])
+    assert result.exit_code == 1
+    assert "perfusion_curves" in result.stderr and "Traceback" not in result.output

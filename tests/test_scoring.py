@@ -47,6 +47,8 @@ RESPONSE_CASES = [
     ((3, 3, 4), R.AKINETIC_TO_DYSKINETIC, "akinetic, unchanged at low dose, dyskinetic at peak"),
     ((4, None, 5), R.AKINETIC_TO_DYSKINETIC, "dyskinetic to aneurysmal (5-point scale)"),
     ((3, 4, 3), R.AKINETIC_TO_DYSKINETIC, "akinetic, dyskinetic at low dose only"),
+    ((4, 3, 4), R.AKINETIC_TO_DYSKINETIC, "dyskinetic, akinetic at low dose, dyskinetic at peak"),
+    ((5, 4, 5), R.AKINETIC_TO_DYSKINETIC, "aneurysmal, dyskinetic at low dose, aneurysmal again"),
     (
         (4, 5, 4),
         R.AKINETIC_TO_DYSKINETIC,

@@ -11,12 +11,12 @@ import contextlib
 import csv
 import os
 import re
-import tempfile
 from collections.abc import Callable
 from pathlib import Path
 from typing import IO
 
 from reporting.batch.results import StudyResult
+from reporting.files import temporary_beside
 
 REGISTRY = "registry.ndjson"
 FAILURES = "failures.csv"
@@ -44,8 +44,8 @@ class Aggregates:
         self.failure_writer.writerow(FAILURE_COLUMNS)
 
     def _open(self, name: str) -> IO[str]:
-        fd, temp = tempfile.mkstemp(prefix=f".{name}.", suffix=".part", dir=self.outdir)
-        self.targets.append((Path(temp), self.outdir / name))
+        fd, temp = temporary_beside(self.outdir / name)
+        self.targets.append((temp, self.outdir / name))
         handle = os.fdopen(fd, "w", encoding="utf-8", newline="")
         self.handles.append(handle)
         return handle

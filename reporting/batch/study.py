@@ -50,7 +50,7 @@ def process_study(
             if reused is not None:
                 return _result(source, Status.SKIPPED, *reused)
         analysis = _analyse(Path(path), options)
-        if claim is not None and analysis.study.id != expected:
+        if expected is not None and analysis.study.id != expected:
             # The first pass read another id (or none): the file changed while the batch ran.
             problem = Problem("study.id", "the file changed while the batch ran; run it again")
             return _failed(source, (problem,), stamp)

@@ -22,11 +22,11 @@ import contextlib
 import importlib.util
 import logging
 import os
-import tempfile
 from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import IO, TYPE_CHECKING, Any
 
+from reporting.files import temporary_beside
 from reporting.model import Protocol, ReportStatus, Sex, Stage
 from reporting.results import Analysis, DiagnosticStatus
 from reporting.scoring import IschemiaExtent, PerfusionResponse, WallMotionResponse
@@ -297,14 +297,14 @@ class _StreamedTable:
 
 
 def _temp_text(outdir: Path, name: str, targets: list[tuple[Path, Path]]) -> IO[str]:
-    fd, temp = tempfile.mkstemp(prefix=f".{name}.", suffix=".part", dir=outdir)
-    targets.append((Path(temp), outdir / name))
+    fd, temp = temporary_beside(outdir / name)
+    targets.append((temp, outdir / name))
     return os.fdopen(fd, "w", encoding="utf-8", newline="")
 
 
 def _temp_binary(outdir: Path, name: str, targets: list[tuple[Path, Path]]) -> IO[bytes]:
-    fd, temp = tempfile.mkstemp(prefix=f".{name}.", suffix=".part", dir=outdir)
-    targets.append((Path(temp), outdir / name))
+    fd, temp = temporary_beside(outdir / name)
+    targets.append((temp, outdir / name))
     return os.fdopen(fd, "wb")
 
 
