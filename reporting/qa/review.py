@@ -111,14 +111,19 @@ class StudyCounts(_Result):
     analysed: int = Field(description="Studies in the 2×2 tables.")
 
 
-class ExcludedStudy(_Result):
-    """A study in the period left out of the 2×2 tables, and why it matters for review."""
+class StudyReference(_Result):
+    """Which study a listed entry is: id, date, reader and protocol."""
 
     study_id: str = Field(description="Study id.")
     date: dt.date | None = Field(description="Study date; null in a de-identified record.")
     year: int = Field(description="Year of the study.")
     reader: str | None = Field(description="Reading physician.")
     protocol: Protocol = Field(description="Kind of stress.")
+
+
+class ExcludedStudy(StudyReference):
+    """A study in the period left out of the 2×2 tables, and why it matters for review."""
+
     status: DiagnosticStatus = Field(description="The record's diagnostic status.")
     significant_vessels: list[Vessel] | None = Field(
         description="Vessels at or above the threshold; null when there is no angiography."
@@ -138,14 +143,9 @@ class TerritoryComparison(_Result):
     outcome: Outcome = Field(description="2×2 cell of this territory.")
 
 
-class DiscordantStudy(_Result):
+class DiscordantStudy(StudyReference):
     """A study where echo and angiography disagree, per patient or in at least one territory."""
 
-    study_id: str = Field(description="Study id.")
-    date: dt.date | None = Field(description="Study date; null in a de-identified record.")
-    year: int = Field(description="Year of the study.")
-    reader: str | None = Field(description="Reading physician.")
-    protocol: Protocol = Field(description="Kind of stress.")
     echo_ischemia: bool = Field(description="The record concludes ischaemia.")
     echo_territories: list[Territory] = Field(description="Ischaemic territories of the record.")
     stenosis_percent: dict[Vessel, float] = Field(
