@@ -10,7 +10,9 @@ Decision support for qualified clinicians; computed values need physician review
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
+
+from reporting.lazy import lazy_attributes
 
 __version__ = "0.1.0"
 
@@ -53,10 +55,5 @@ if TYPE_CHECKING:
     from reporting.settings import Settings, load_settings
 
 
-def __getattr__(name: str) -> Any:
-    # Imports are lazy so that `segreport --help` stays fast.
-    if name in _LAZY:
-        import importlib
-
-        return getattr(importlib.import_module(_LAZY[name]), name)
-    raise AttributeError(f"module 'reporting' has no attribute {name!r}")
+# Imports are lazy so that `segreport --help` stays fast.
+__getattr__ = lazy_attributes(__name__, _LAZY)

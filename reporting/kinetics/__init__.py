@@ -11,7 +11,7 @@ when one of their functions is first used, so loading the record models stays li
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 from reporting.kinetics.models import (
     CrossCheckKind,
@@ -26,6 +26,7 @@ from reporting.kinetics.models import (
     TerritoryReserve,
     UnassignedCurve,
 )
+from reporting.lazy import lazy_attributes
 
 __all__ = [
     "CrossCheckKind",
@@ -69,10 +70,5 @@ if TYPE_CHECKING:
     from reporting.kinetics.table import fit_curve_file, fits_csv_text
 
 
-def __getattr__(name: str) -> Any:
-    # numpy loads only when curves are actually read or fitted.
-    if name in _LAZY:
-        import importlib
-
-        return getattr(importlib.import_module(_LAZY[name]), name)
-    raise AttributeError(f"module 'reporting.kinetics' has no attribute {name!r}")
+# numpy loads only when curves are actually read or fitted.
+__getattr__ = lazy_attributes(__name__, _LAZY)

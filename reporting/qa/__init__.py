@@ -15,7 +15,9 @@ imported lazily because it pulls in reportlab.
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
+
+from reporting.lazy import lazy_attributes
 
 __all__ = [
     "Agreement",
@@ -71,9 +73,4 @@ if TYPE_CHECKING:
     from reporting.qa.review import QualityReview, build_review, review_json, run_review
 
 
-def __getattr__(name: str) -> Any:
-    if name in _LAZY:
-        import importlib
-
-        return getattr(importlib.import_module(_LAZY[name]), name)
-    raise AttributeError(f"module 'reporting.qa' has no attribute {name!r}")
+__getattr__ = lazy_attributes(__name__, _LAZY)

@@ -126,28 +126,19 @@ def cells(analysis: Analysis, spec: MapSpec) -> dict[int, Cell]:
             out[n] = Cell(
                 TERRITORY_FILL[seg.territory], str(n), False, f"{n} {name}: {seg.territory}"
             )
-        elif spec.kind is MapKind.WALL_MOTION:
-            score = seg.wall_motion.get(spec.stage) if spec.stage else None
-            out[n] = (
-                _not_seen(seg, "not visualised")
-                if score is None
-                else Cell(
-                    wall_motion_fill(score),
-                    str(score),
-                    False,
-                    f"{n} {name}: {score} {WALL_MOTION_WORDS[score]}",
-                )
+        elif spec.kind in (MapKind.WALL_MOTION, MapKind.PERFUSION):
+            wall = spec.kind is MapKind.WALL_MOTION
+            scores, colour_of, meaning = (
+                (seg.wall_motion, wall_motion_fill, WALL_MOTION_WORDS)
+                if wall
+                else (seg.perfusion, perfusion_fill, PERFUSION_WORDS)
             )
-        elif spec.kind is MapKind.PERFUSION:
-            score = seg.perfusion.get(spec.stage) if spec.stage else None
+            score = scores.get(spec.stage) if spec.stage else None
             out[n] = (
                 _not_seen(seg, "not visualised")
                 if score is None
                 else Cell(
-                    perfusion_fill(score),
-                    str(score),
-                    False,
-                    f"{n} {name}: {score} {PERFUSION_WORDS[score]}",
+                    colour_of(score), str(score), False, f"{n} {name}: {score} {meaning[score]}"
                 )
             )
         elif spec.kind is MapKind.RESERVE:
