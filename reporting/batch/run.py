@@ -168,16 +168,18 @@ def _results(
             for i in range(0, len(paths), TASK_STUDIES)
         )
         pending: deque[Future[list[StudyResult]]] = deque()
-        for chunk in queue:
-            pending.append(executor.submit(_process_chunk, chunk, options, indir))
-            if len(pending) >= jobs * IN_FLIGHT_PER_JOB:
-                break
+        with _worker_deaths():
+            for chunk in queue:
+                pending.append(executor.submit(_process_chunk, chunk, options, indir))
+                if len(pending) >= jobs * IN_FLIGHT_PER_JOB:
+                    break
         while pending:
+            # A worker can die between two results: submitting then fails as well as waiting.
             with _worker_deaths():
                 done = pending.popleft().result()
-            next_chunk = next(queue, None)
-            if next_chunk is not None:
-                pending.append(executor.submit(_process_chunk, next_chunk, options, indir))
+                next_chunk = next(queue, None)
+                if next_chunk is not None:
+                    pending.append(executor.submit(_process_chunk, next_chunk, options, indir))
             yield from done
     finally:
         executor.shutdown(wait=True, cancel_futures=True)
