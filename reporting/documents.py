@@ -10,6 +10,7 @@ build — reported as an :class:`~reporting.errors.InputError` with the file and
 from __future__ import annotations
 
 import json
+from importlib import resources
 from pathlib import Path
 from typing import Any
 
@@ -162,6 +163,15 @@ def parse_yaml(text: str, where: str) -> Any:
         raise InputError(where, f"invalid YAML: {exc}") from None
     except _BUILD_ERRORS as exc:
         raise InputError(where, f"invalid YAML value: {exc}") from None
+
+
+def bundled_yaml(package: str, name: str) -> Any:
+    """A YAML file shipped inside ``package`` (reference data), parsed with the fast loader.
+
+    The package's own data needs none of the protections user files get.
+    """
+    text = resources.files(package).joinpath(name).read_text(encoding="utf-8")
+    return yaml.load(text, Loader=_SafeLoader)
 
 
 def read_yaml(path: Path, *, what: str) -> Any:

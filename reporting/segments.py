@@ -17,9 +17,7 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
-import yaml
-
-from reporting.documents import read_yaml
+from reporting.documents import bundled_yaml, read_yaml
 from reporting.errors import InputError, InputErrors
 from reporting.wording import number_ranges
 
@@ -177,10 +175,8 @@ def built_in_map(name: str) -> TerritoryMap:
         raise InputError(
             "territory_map", f"unknown map {name!r}; built-in maps: {', '.join(BUILT_IN_MAPS)}"
         )
-    text = (
-        resources.files("reporting.data").joinpath(f"territory_maps/{name}.yaml").read_text("utf-8")
-    )
-    return parse_territory_map(yaml.safe_load(text), location=f"territory map {name}")
+    data = bundled_yaml("reporting.data", f"territory_maps/{name}.yaml")
+    return parse_territory_map(data, location=f"territory map {name}")
 
 
 def load_territory_map(path: Path) -> TerritoryMap:

@@ -9,14 +9,12 @@ from __future__ import annotations
 
 from enum import StrEnum
 from functools import cache
-from importlib import resources
 from pathlib import Path
 from typing import Any
 
-import yaml
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
-from reporting.documents import read_yaml
+from reporting.documents import bundled_yaml, read_yaml
 from reporting.errors import InputError, InputErrors
 from reporting.model import Protocol
 
@@ -175,8 +173,7 @@ def _shown(value: Any) -> str:
 
 @cache
 def _defaults_file() -> dict[str, dict[str, Any]]:
-    text = resources.files("reporting.data").joinpath("thresholds.yaml").read_text(encoding="utf-8")
-    data: dict[str, dict[str, Any]] = yaml.safe_load(text)
+    data: dict[str, dict[str, Any]] = bundled_yaml("reporting.data", "thresholds.yaml")
     return data
 
 
