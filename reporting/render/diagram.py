@@ -13,12 +13,10 @@ under the map the analysis used. Colours and their published palettes: :mod:`rep
 
 from __future__ import annotations
 
-import io
 import math
 from dataclasses import dataclass
 from typing import Any
 
-from reportlab.graphics import renderSVG
 from reportlab.graphics.shapes import Circle, Drawing, Group, Path, String
 from reportlab.lib.colors import Color
 from reportlab.pdfbase.pdfmetrics import stringWidth
@@ -47,6 +45,7 @@ from reporting.render.scheme import (
     wall_motion_fill,
 )
 from reporting.render.style import MAP_FONTS, Fonts
+from reporting.render.vector import TaggedGroup, TaggedPath, svg_document
 from reporting.results import Analysis, SegmentResult
 from reporting.scoring import WallMotionResponse
 from reporting.wording import stage_words
@@ -202,9 +201,9 @@ def _arc_to(path: Path, cx: float, cy: float, r: float, a0: float, a1: float) ->
         )
 
 
-def sector_path(sector: Sector, cx: float, cy: float, radius: float, **props: Any) -> Path:
+def sector_path(sector: Sector, cx: float, cy: float, radius: float, **props: Any) -> TaggedPath:
     """One closed path per sector: outer arc, radial edge, inner arc back (or the centre)."""
-    path = Path(**props)
+    path = TaggedPath(**props)
     r_out, r_in = sector.r_outer * radius, sector.r_inner * radius
     if sector.span_deg >= 360:
         path.moveTo(cx + r_out, cy)
@@ -241,10 +240,12 @@ def draw_disc(
 ) -> Group:
     """The sectors, marks, hatching and territory boundaries of one map, centred at (cx, cy).
 
-    The first child is a group holding exactly one closed path per segment, in segment order.
+    The first child is a group holding exactly one closed path per segment, in segment order; in
+    SVG the group has class ``segments`` and each path ``id="segment-N"``, class ``segment`` and
+    the sector's tooltip as its ``<title>``.
     """
     shown = cells(analysis, spec)
-    segment_shapes = Group()
+    segment_shapes = TaggedGroup(svg_class="segments")
     hatching = Path(strokeColor=style.MUTED, strokeWidth=0.45, fillColor=None)
     marks = Group()
     font_size = max(6.0, radius * 0.17)
@@ -252,7 +253,16 @@ def draw_disc(
         cell = shown[sector.number]
         segment_shapes.add(
             sector_path(
-                sector, cx, cy, radius, fillColor=cell.fill, strokeColor=style.RULE, strokeWidth=0.5
+                sector,
+                cx,
+                cy,
+                radius,
+                fillColor=cell.fill,
+                strokeColor=style.RULE,
+                strokeWidth=0.5,
+                svg_id=f"segment-{sector.number}",
+                svg_class="segment",
+                svg_title=cell.tooltip,
             )
         )
         if cell.hatched:
@@ -383,29 +393,5 @@ def bullseye(
 
 
 def svg_text(drawing: Drawing, analysis: Analysis, spec: MapSpec) -> str:
-    """The drawing as SVG; each segment's path gets ``id="segment-N"``, a class and a ``<title>``."""
-    canvas = renderSVG.SVGCanvas((drawing.width, drawing.height))
-    renderSVG.draw(drawing, canvas, 0, 0, showBoundary=False)
-    doc = canvas.doc
-    shown = cells(analysis, spec)
-    # draw_disc puts the sector paths, and nothing else, in one group
-    groups = [
-        g
-        for g in doc.getElementsByTagName("g")
-        if (kids := [c for c in g.childNodes if c.nodeType == c.ELEMENT_NODE])
-        and len(kids) == len(shown)
-        and all(k.tagName == "path" for k in kids)
-    ]
-    if len(groups) != 1:
-        raise RuntimeError(f"cannot find the group of {len(shown)} sector paths in the SVG")
-    paths = [c for c in groups[0].childNodes if c.nodeType == c.ELEMENT_NODE]
-    groups[0].setAttribute("class", "segments")
-    for element, number in zip(paths, sorted(shown), strict=True):
-        element.setAttribute("id", f"segment-{number}")
-        element.setAttribute("class", "segment")
-        title = doc.createElement("title")
-        title.appendChild(doc.createTextNode(shown[number].tooltip))
-        element.appendChild(title)
-    out = io.StringIO()
-    canvas.save(out)
-    return out.getvalue()
+    """The map as a standalone SVG document, titled with its purpose and captioned."""
+    return svg_document(drawing, title=spec.title, description=caption(analysis, spec))

@@ -172,11 +172,20 @@ def _clean(text: str) -> str:
     return _CONTROL.sub("", text.replace("\r\n", "\n").replace("\t", " "))
 
 
+def _missing(text: str, known: frozenset[int]) -> set[str]:
+    """The distinct characters of ``text`` (already cleaned) that are not in ``known``."""
+    return {c for c in set(text) if ord(c) not in known and c != "\n"}
+
+
 def printable(text: str, font_name: str) -> str:
     """``text`` with control characters removed and unknown glyphs replaced."""
     known = _known(font_name)
+    text = _clean(text)
+    missing = _missing(text, known)
+    if not missing:
+        return text
     fallback = REPLACEMENT if ord(REPLACEMENT) in known else "?"
-    return "".join(c if ord(c) in known or c == "\n" else fallback for c in _clean(text))
+    return "".join(fallback if c in missing else c for c in text)
 
 
 def lost_characters(text: str, font_name: str) -> int:
@@ -184,8 +193,8 @@ def lost_characters(text: str, font_name: str) -> int:
 
     Control characters are not counted: they are dropped on purpose and show nothing anyway.
     """
-    known = _known(font_name)
-    return sum(1 for c in _clean(text) if ord(c) not in known and c != "\n")
+    text = _clean(text)
+    return sum(text.count(c) for c in _missing(text, _known(font_name)))
 
 
 def warn_lost_characters(

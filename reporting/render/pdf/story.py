@@ -13,7 +13,6 @@ from __future__ import annotations
 from collections.abc import Sequence
 from pathlib import Path
 
-from reportlab.graphics.shapes import Drawing
 from reportlab.platypus import CondPageBreak, Flowable, KeepTogether, Spacer, Table, TableStyle
 
 from reporting.model import ReportStatus
@@ -25,6 +24,7 @@ from reporting.render.pdf.styles import Styles, dash, paragraph, section_heading
 from reporting.render.scheme import MapKind
 from reporting.render.style import Fonts
 from reporting.render.tables import exercise_table, haemodynamics_table, territory_table
+from reporting.render.vector import DrawingFlowable
 from reporting.results import Analysis
 
 MAPS_PER_ROW = 4
@@ -80,12 +80,13 @@ def _curves(analysis: Analysis, width: float, fonts: Fonts, st: Styles) -> list[
     drawings = curves.curve_grid(analysis, width, fonts)
     if not drawings:
         return []
+    rows = [DrawingFlowable(d) for d in drawings]
     heading = section_heading("Fitted replenishment curves", st)
     intro = paragraph(curves.caption(analysis, fonts), st["small"])
     # the whole grid moves to a new page unless it fits below the narrative
     needed = curves.grid_height(drawings) + 3 * st["h2"].leading + 3 * st["small"].leading
-    first = KeepTogether([heading, intro, Spacer(1, 3), drawings[0], drawings[1]])
-    return [CondPageBreak(needed), first, *drawings[2:]]
+    first = KeepTogether([heading, intro, Spacer(1, 3), *rows[:2]])
+    return [CondPageBreak(needed), first, *rows[2:]]
 
 
 def _maps(analysis: Analysis, width: float, fonts: Fonts, st: Styles) -> list[Flowable]:
@@ -111,7 +112,9 @@ def _map_row(
     analysis: Analysis, row: Sequence[MapSpec], cell: float, radius: float, fonts: Fonts
 ) -> Table:
     drawings = [
-        diagram.bullseye(analysis, s, radius=radius, legend=False, fonts=fonts, width=cell)
+        DrawingFlowable(
+            diagram.bullseye(analysis, s, radius=radius, legend=False, fonts=fonts, width=cell)
+        )
         for s in row
     ]
     table = Table([drawings], colWidths=[cell] * len(row), hAlign="LEFT")
@@ -136,11 +139,13 @@ LEGEND_LABELS = {
 }
 
 
-def _legend_strip(analysis: Analysis, kind: MapKind, width: float, fonts: Fonts) -> Drawing:
+def _legend_strip(analysis: Analysis, kind: MapKind, width: float, fonts: Fonts) -> DrawingFlowable:
     items = legend_items(analysis, kind)
     if kind is not MapKind.SEGMENTS:
         items = [i for i in items if not i.line]
-    return draw_legend(items, width, fonts, size=6.8, label=LEGEND_LABELS[kind] + ":")
+    return DrawingFlowable(
+        draw_legend(items, width, fonts, size=6.8, label=LEGEND_LABELS[kind] + ":")
+    )
 
 
 def _sign_off(analysis: Analysis, width: float, st: Styles) -> Flowable:
