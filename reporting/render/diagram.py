@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Any
 
 from reportlab.graphics.shapes import Circle, Drawing, Group, Path, String
@@ -203,23 +204,31 @@ def _arc_to(path: Path, cx: float, cy: float, r: float, a0: float, a1: float) ->
 
 def sector_path(sector: Sector, cx: float, cy: float, radius: float, **props: Any) -> TaggedPath:
     """One closed path per sector: outer arc, radial edge, inner arc back (or the centre)."""
-    path = TaggedPath(**props)
+    points, operators = _sector_outline(sector, cx, cy, radius)
+    return TaggedPath(points=list(points), operators=list(operators), **props)
+
+
+@lru_cache(maxsize=512)
+def _sector_outline(
+    sector: Sector, cx: float, cy: float, radius: float
+) -> tuple[tuple[float, ...], tuple[int, ...]]:
+    """The points and operators of a sector's path; every map of a report repeats them."""
+    path = Path()
     r_out, r_in = sector.r_outer * radius, sector.r_inner * radius
     if sector.span_deg >= 360:
         path.moveTo(cx + r_out, cy)
         _arc_to(path, cx, cy, r_out, 0, 360)
-        path.closePath()
-        return path
-    a0, a1 = math.radians(sector.start_deg), math.radians(sector.end_deg)
-    path.moveTo(cx + r_out * math.cos(a0), cy + r_out * math.sin(a0))
-    _arc_to(path, cx, cy, r_out, sector.start_deg, sector.end_deg)
-    if r_in > 0:
-        path.lineTo(cx + r_in * math.cos(a1), cy + r_in * math.sin(a1))
-        _arc_to(path, cx, cy, r_in, sector.end_deg, sector.start_deg)
     else:
-        path.lineTo(cx, cy)
+        a0, a1 = math.radians(sector.start_deg), math.radians(sector.end_deg)
+        path.moveTo(cx + r_out * math.cos(a0), cy + r_out * math.sin(a0))
+        _arc_to(path, cx, cy, r_out, sector.start_deg, sector.end_deg)
+        if r_in > 0:
+            path.lineTo(cx + r_in * math.cos(a1), cy + r_in * math.sin(a1))
+            _arc_to(path, cx, cy, r_in, sector.end_deg, sector.start_deg)
+        else:
+            path.lineTo(cx, cy)
     path.closePath()
-    return path
+    return tuple(path.points), tuple(path.operators)
 
 
 def _edges_path(edges: list[Edge], cx: float, cy: float, radius: float, width: float) -> Path:

@@ -1,18 +1,20 @@
 """Paragraph styles of the referring-doctor PDF and the helpers that turn text into paragraphs.
 
-Every piece of user free text goes through :func:`reporting.render.style.markup_text` (XML-escaped,
-unknown glyphs replaced) before it becomes Paragraph markup.
+Plain left-aligned text becomes a light :class:`~reporting.render.pdf.text.PlainText` (no markup is
+parsed); anything else goes through :func:`reporting.render.style.markup_text` (XML-escaped, unknown
+glyphs replaced) before it becomes Paragraph markup.
 """
 
 from __future__ import annotations
 
 from typing import Any
 
-from reportlab.lib.enums import TA_RIGHT
+from reportlab.lib.enums import TA_LEFT, TA_RIGHT
 from reportlab.lib.styles import ParagraphStyle
-from reportlab.platypus import Paragraph
+from reportlab.platypus import Flowable, Paragraph
 
 from reporting.render import style
+from reporting.render.pdf.text import PlainText
 from reporting.render.style import Fonts
 
 Styles = dict[str, ParagraphStyle]
@@ -51,12 +53,15 @@ def paragraph_styles(fonts: Fonts) -> Styles:
     }
 
 
-def paragraph(text: str, st: ParagraphStyle) -> Paragraph:
-    """A Paragraph of plain (user or computed) text, escaped."""
+def paragraph(text: str, st: ParagraphStyle) -> Flowable:
+    """Plain (user or computed) text as a paragraph: light :class:`PlainText` when left-aligned,
+    else an escaped reportlab Paragraph."""
+    if st.alignment == TA_LEFT:
+        return PlainText(text, st)
     return Paragraph(style.markup_text(text, st.fontName), st)
 
 
-def section_heading(text: str, st: Styles) -> Paragraph:
+def section_heading(text: str, st: Styles) -> Flowable:
     return paragraph(text, st["h2"])
 
 

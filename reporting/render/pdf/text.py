@@ -1,0 +1,128 @@
+"""Plain text in the PDF: a light flowable for left-aligned text with no markup.
+
+Almost every paragraph of the report (table cells, narrative, cautions) is plain text in one font.
+reportlab's Paragraph parses XML markup and handles fragments of mixed style for every one of them,
+which made up about a fifth of the PDF's time. :class:`PlainText` does only what plain text needs:
+greedy line breaking at spaces with the font's real widths, words wider than the column broken
+between characters, explicit line breaks kept, splitting across frames and pages between lines
+under the style's orphan and widow rules.
+Lines sit where Paragraph puts them (first baseline one font size below the top, then one leading
+apart), so the page looks the same. Text is made printable first (control characters dropped,
+glyphs the font lacks replaced); as nothing is parsed, no escaping is needed.
+"""
+
+from __future__ import annotations
+
+from reportlab.lib.enums import TA_LEFT
+from reportlab.lib.styles import ParagraphStyle
+from reportlab.pdfbase.pdfmetrics import stringWidth
+from reportlab.platypus import Flowable
+
+from reporting.render import style as look
+
+__all__ = ["PlainText", "wrap_lines"]
+
+
+def _break_word(word: str, font: str, size: float, width: float) -> list[str]:
+    """``word`` cut into pieces no wider than ``width`` (at least one character each)."""
+    pieces: list[str] = []
+    start = 0
+    while start < len(word):
+        end = start + 1
+        while end < len(word) and stringWidth(word[start : end + 1], font, size) <= width:
+            end += 1
+        pieces.append(word[start:end])
+        start = end
+    return pieces
+
+
+def wrap_lines(text: str, font: str, size: float, width: float) -> list[str]:
+    """``text`` broken into lines no wider than ``width`` points (greedy, at spaces).
+
+    Runs of spaces count as one; a newline always starts a new line; a word wider than the
+    whole line starts a line of its own and is broken between characters.
+    """
+    space = stringWidth(" ", font, size)
+    lines: list[str] = []
+    for chunk in text.split("\n"):
+        words = chunk.split()
+        if not words:
+            lines.append("")
+            continue
+        current: list[str] = []
+        used = 0.0
+        for word in words:
+            w = stringWidth(word, font, size)
+            if current and used + space + w <= width:
+                current.append(word)
+                used += space + w
+                continue
+            if current:
+                lines.append(" ".join(current))
+            if w <= width:
+                current, used = [word], w
+                continue
+            *whole, last = _break_word(word, font, size, width)
+            lines += whole
+            current, used = [last], stringWidth(last, font, size)
+        lines.append(" ".join(current))
+    return lines
+
+
+class PlainText(Flowable):  # type: ignore[misc]
+    """Left-aligned plain text in one paragraph style (font, size, leading, colour, spacing)."""
+
+    def __init__(self, text: str, style: ParagraphStyle, *, cleaned: bool = False) -> None:
+        super().__init__()
+        if style.alignment != TA_LEFT:
+            raise ValueError(f"PlainText sets left-aligned text only, not style {style.name!r}")
+        self.text = text if cleaned else look.printable(text, style.fontName)
+        self.style = style
+        self.space_before = float(style.spaceBefore)
+        self.space_after = float(style.spaceAfter)
+        self.lines: list[str] = []
+        self._wrapped_at: float | None = None
+
+    def _wrap_to(self, width: float) -> list[str]:
+        if width != self._wrapped_at:
+            st = self.style
+            self.lines = wrap_lines(self.text, st.fontName, st.fontSize, width)
+            self._wrapped_at = width
+        return self.lines
+
+    def wrap(self, available_width: float, available_height: float) -> tuple[float, float]:
+        self.width = available_width
+        self.height = len(self._wrap_to(available_width)) * self.style.leading
+        return self.width, self.height
+
+    def split(self, available_width: float, available_height: float) -> list[Flowable]:
+        lines = self._wrap_to(available_width)
+        fits = min(int(available_height // self.style.leading), len(lines))
+        if fits == len(lines):
+            return [self]
+        # the style's orphan and widow rules, as Paragraph applies them: by default a first line
+        # never stays alone at the foot of a page, a last line may start the next one
+        if not self.style.allowWidows and len(lines) - fits == 1:
+            fits -= 1
+        if fits < 1 or (fits == 1 and not self.style.allowOrphans):
+            return []
+        head = PlainText("\n".join(lines[:fits]), self.style, cleaned=True)
+        tail = PlainText("\n".join(lines[fits:]), self.style, cleaned=True)
+        # the space around the paragraph stays outside it, not at the break
+        head.space_after = tail.space_before = 0.0
+        return [head, tail]
+
+    def getSpaceBefore(self) -> float:
+        return self.space_before
+
+    def getSpaceAfter(self) -> float:
+        return self.space_after
+
+    def draw(self) -> None:
+        st = self.style
+        text = self.canv.beginText(0, self.height - st.fontSize)
+        text.setFont(st.fontName, st.fontSize, st.leading)
+        text.setFillColor(st.textColor)
+        for line in self.lines:
+            text.textLine(line)
+        self.canv.drawText(text)

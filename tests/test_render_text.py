@@ -1,0 +1,150 @@
+"""Plain-text paragraphs of the PDF (reporting.render.pdf.text) against reportlab's Paragraph.
+
+reportlab's Paragraph is the oracle (reference library): where all of its lines fit the column, our
+greedy line breaking must give the same lines. Paragraph lets a line run up to a small space-shrink
+allowance past the column; ours never does, which the properties below check.
+"""
+
+from __future__ import annotations
+
+import io
+import itertools
+
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from pypdf import PdfReader
+from reportlab.lib.enums import TA_RIGHT
+from reportlab.lib.styles import ParagraphStyle
+from reportlab.pdfbase.pdfmetrics import stringWidth
+from reportlab.platypus import Paragraph, SimpleDocTemplate
+from reportlab.platypus.flowables import Spacer
+
+from reporting.render import style
+from reporting.render.pdf.styles import paragraph_styles
+from reporting.render.pdf.text import PlainText, wrap_lines
+
+FONTS = style.body_fonts()
+STYLE: ParagraphStyle = paragraph_styles(FONTS)["para"]
+FONT, SIZE = STYLE.fontName, STYLE.fontSize
+
+words = st.text(
+    alphabet=st.sampled_from("abcdefghijklmnopqrstuvwxyzABCDEFGHIJ0123456789.,;:()–-ÄéßЖ日"),
+    min_size=1,
+    max_size=14,
+)
+texts = st.lists(words, min_size=1, max_size=60).map(" ".join)
+
+
+def _width(line: str) -> float:
+    return float(stringWidth(line, FONT, SIZE))
+
+
+@settings(max_examples=150, deadline=None)
+@given(text=texts, width=st.floats(min_value=60, max_value=520))
+def test_lines_match_paragraph_wherever_paragraph_fits(text: str, width: float) -> None:
+    ours = wrap_lines(text, FONT, SIZE, width)
+    para = Paragraph(text, STYLE)
+    para.wrap(width, 10_000)
+    theirs = [" ".join(words) for _, words in para.blPara.lines]
+    if all(_width(line) <= width for line in theirs) and all(
+        _width(w) <= width for w in text.split()
+    ):
+        assert ours == theirs
+
+
+@settings(max_examples=150, deadline=None)
+@given(
+    chunks=st.lists(texts | st.text(alphabet="xyzÅ", min_size=30, max_size=120), max_size=4),
+    width=st.floats(min_value=20, max_value=300),
+)
+def test_lines_fit_keep_every_character_and_are_greedy(chunks: list[str], width: float) -> None:
+    text = "\n".join(chunks)
+    lines = wrap_lines(text, FONT, SIZE, width)
+    # nothing wider than the column unless a single character is (never at these widths)
+    assert all(_width(line) <= width + 1e-9 for line in lines)
+    # the same characters in the same order, spaces aside
+    assert "".join(lines).replace(" ", "") == text.replace(" ", "").replace("\n", "")
+    # explicit line breaks are kept: the chunks wrap on their own
+    per_chunk = [wrap_lines(chunk, FONT, SIZE, width) for chunk in text.split("\n")]
+    assert lines == [line for chunk_lines in per_chunk for line in chunk_lines]
+    # greedy: within a chunk of words that each fit the column, the next line's first word would
+    # not have fitted on this line (a wider word starts a line of its own, then is broken)
+    for chunk, chunk_lines in zip(text.split("\n"), per_chunk, strict=True):
+        if all(_width(word) <= width for word in chunk.split()):
+            for line, following in itertools.pairwise(chunk_lines):
+                assert _width(line + " " + following.split(" ")[0]) > width
+
+
+def test_a_long_word_is_broken_between_characters() -> None:
+    word = "Pneumonoultramicroscopicsilicovolcanoconiosis" * 3
+    lines = wrap_lines(f"see {word} here", FONT, SIZE, 80)
+    assert lines[0] == "see"
+    assert "".join(lines[1:]).replace(" ", "") == word + "here"
+    assert len(lines) > 4
+    assert all(_width(line) <= 80 for line in lines)
+
+
+def test_explicit_line_breaks_and_blank_lines_are_kept() -> None:
+    assert wrap_lines("first\n\nthird  line", FONT, SIZE, 500) == ["first", "", "third line"]
+
+
+def _lines(flowables: list[PlainText]) -> list[str]:
+    return [line for f in flowables for line in f.lines]
+
+
+@pytest.mark.parametrize(
+    "room_lines, expected_head",
+    [
+        (0, None),  # no room: nothing goes here
+        (1, None),  # one line would be an orphan: the paragraph moves on whole
+        (2, 2),
+        (4, 4),
+        (5, 5),  # everything fits
+    ],
+    ids=["no room", "orphan refused", "two lines", "four lines", "all"],
+)
+def test_split_between_lines_without_orphans(room_lines: int, expected_head: int | None) -> None:
+    text = "\n".join(f"line {i}" for i in range(5))
+    para = PlainText(text, STYLE)
+    para.wrap(300, 1000)
+    parts = para.split(300, room_lines * STYLE.leading + 0.5)
+    if expected_head is None:
+        assert parts == []
+        return
+    if expected_head == 5:
+        assert parts == [para]
+        return
+    head, tail = parts
+    head.wrap(300, 1000)
+    tail.wrap(300, 1000)
+    assert len(head.lines) == expected_head
+    assert _lines([head, tail]) == [f"line {i}" for i in range(5)]
+    assert head.getSpaceAfter() == 0 and tail.getSpaceBefore() == 0
+
+
+def test_widows_refused_when_the_style_says_so() -> None:
+    strict = ParagraphStyle("strict", parent=STYLE, allowWidows=0)
+    para = PlainText("\n".join(f"line {i}" for i in range(5)), strict)
+    para.wrap(300, 1000)
+    head, tail = para.split(300, 4 * STYLE.leading + 0.5)
+    head.wrap(300, 1000)
+    tail.wrap(300, 1000)
+    assert (len(head.lines), len(tail.lines)) == (3, 2)
+
+
+def test_other_alignments_are_refused() -> None:
+    with pytest.raises(ValueError, match="left-aligned"):
+        PlainText("x", ParagraphStyle("r", parent=STYLE, alignment=TA_RIGHT))
+
+
+def test_a_long_paragraph_flows_over_pages_with_every_line_printed() -> None:
+    text = " ".join(f"word{i}" for i in range(1500)) + " <b>&</para> 日本語"
+    buffer = io.BytesIO()
+    doc = SimpleDocTemplate(buffer, invariant=1)
+    doc.build([Spacer(1, 600), PlainText(text, STYLE)])
+    reader = PdfReader(buffer)
+    assert len(reader.pages) >= 3
+    printed = " ".join(page.extract_text() for page in reader.pages).split()
+    assert [w for w in printed if w.startswith("word")] == [f"word{i}" for i in range(1500)]
+    assert "<b>&</para>" in printed
