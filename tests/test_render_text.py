@@ -29,10 +29,11 @@ STYLE: ParagraphStyle = paragraph_styles(FONTS)["para"]
 FONT, SIZE = STYLE.fontName, STYLE.fontSize
 
 words = st.text(
-    alphabet=st.sampled_from("abcdefghijklmnopqrstuvwxyzABCDEFGHIJ0123456789.,;:()–-ÄéßЖ日"),
+    alphabet=st.sampled_from("abcdefghijklmnopqrstuvwxyzABCDEFGHIJ0123456789.,;:()–-ÄéßЖ日\u00a0%"),
     min_size=1,
     max_size=14,
-)
+).filter(lambda w: w == w.strip())  # no-break spaces inside words only, as written
+
 texts = st.lists(words, min_size=1, max_size=60).map(" ".join)
 
 
@@ -47,8 +48,9 @@ def test_lines_match_paragraph_wherever_paragraph_fits(text: str, width: float) 
     para = Paragraph(text, STYLE)
     para.wrap(width, 10_000)
     theirs = [" ".join(words) for _, words in para.blPara.lines]
+    # words as we see them: separated by spaces only (a no-break space joins)
     if all(_width(line) <= width for line in theirs) and all(
-        _width(w) <= width for w in text.split()
+        _width(w) <= width for w in text.split(" ")
     ):
         assert ours == theirs
 
@@ -71,7 +73,7 @@ def test_lines_fit_keep_every_character_and_are_greedy(chunks: list[str], width:
     # greedy: within a chunk of words that each fit the column, the next line's first word would
     # not have fitted on this line (a wider word starts a line of its own, then is broken)
     for chunk, chunk_lines in zip(text.split("\n"), per_chunk, strict=True):
-        if all(_width(word) <= width for word in chunk.split()):
+        if all(_width(word) <= width for word in chunk.split(" ")):
             for line, following in itertools.pairwise(chunk_lines):
                 assert _width(line + " " + following.split(" ")[0]) > width
 
@@ -148,3 +150,66 @@ def test_a_long_paragraph_flows_over_pages_with_every_line_printed() -> None:
     printed = " ".join(page.extract_text() for page in reader.pages).split()
     assert [w for w in printed if w.startswith("word")] == [f"word{i}" for i in range(1500)]
     assert "<b>&</para>" in printed
+
+
+@pytest.mark.parametrize(
+    "text, markup",
+    [
+        ("", ""),
+        ("   ", "   "),
+        ("a\n", "a<br/>"),
+        ("\n", "<br/>"),
+        ("one\ntwo", "one<br/>two"),
+        ("one\n\nthree", "one<br/><br/>three"),
+    ],
+    ids=["empty", "spaces", "trailing break", "only a break", "two lines", "blank line inside"],
+)
+def test_height_matches_paragraph(text: str, markup: str) -> None:
+    """Blank text takes no room and a trailing line break adds no line, as in Paragraph."""
+    ours = PlainText(text, STYLE).wrap(300, 1000)[1]
+    theirs = Paragraph(markup, STYLE).wrap(300, 1000)[1]
+    assert ours == theirs
+
+
+def _baselines(flowable: object) -> dict[str, float]:
+    """The baseline height of each text run drawn by ``flowable`` on a page, via pypdf."""
+    buffer = io.BytesIO()
+    SimpleDocTemplate(buffer, invariant=1).build([flowable, PlainText("after", STYLE)])
+    found: dict[str, float] = {}
+
+    def visit(text: str, cm: list[float], tm: list[float], *_: object) -> None:
+        if text.strip():
+            found[text.strip()] = round(cm[5] + tm[5] * cm[3], 2)
+
+    PdfReader(buffer).pages[0].extract_text(visitor_text=visit)
+    return found
+
+
+def test_lines_sit_where_paragraph_puts_them_even_after_a_blank_line() -> None:
+    ours = _baselines(PlainText("first\n\nthird line", STYLE))
+    theirs = _baselines(Paragraph("first<br/><br/>third line", STYLE))
+    assert ours == theirs
+    assert {"first", "third line", "after"} <= set(ours)
+
+
+@pytest.mark.parametrize("nbsp", ["\u00a0", "\u202f", "\u2007"], ids=["nbsp", "narrow", "figure"])
+def test_no_break_spaces_keep_words_together(nbsp: str) -> None:
+    """Unicode's no-break spaces never break a line (Paragraph does break at U+202F)."""
+    text = f"Peak heart rate reached 100{nbsp}% of predicted maximum today"
+    for width in (100, 130, 160):
+        lines = wrap_lines(text, FONT, SIZE, width)
+        assert not any(line.startswith("%") for line in lines), (width, lines)
+        assert any(f"100{nbsp}%" in line for line in lines)
+
+
+@pytest.mark.parametrize(
+    "feature", ["leftIndent", "rightIndent", "firstLineIndent", "borderWidth"], ids=str
+)
+def test_style_features_it_cannot_draw_are_refused(feature: str) -> None:
+    with pytest.raises(ValueError, match=feature):
+        PlainText("x", ParagraphStyle("indented", parent=STYLE, **{feature: 6}))
+
+
+def test_min_width_is_the_widest_word() -> None:
+    para = PlainText("a b widest\nshort", STYLE)
+    assert para.minWidth() == pytest.approx(_width("widest"))

@@ -8,6 +8,7 @@ with poppler's pdftoppm, the Debian package poppler-utils that `.ci/run` install
 from __future__ import annotations
 
 import io
+import math
 import re
 import shutil
 import subprocess
@@ -18,7 +19,16 @@ from pathlib import Path
 
 import pytest
 from reportlab.graphics import renderPDF, renderSVG
-from reportlab.graphics.shapes import Circle, Drawing, Ellipse, Group, String
+from reportlab.graphics.shapes import (
+    Circle,
+    Drawing,
+    Ellipse,
+    Group,
+    Line,
+    PolyLine,
+    Rect,
+    String,
+)
 from reportlab.graphics.shapes import Path as RLPath
 from reportlab.lib import colors
 from reportlab.pdfgen.canvas import Canvas
@@ -55,7 +65,44 @@ def _drawings() -> list[tuple[str, Drawing]]:
     return out
 
 
-DRAWINGS = _drawings()
+def _features() -> Drawing:
+    """Options the report's drawings do not all use yet: an open path with a fill colour (not
+    filled, as in reportlab), dashes with a phase, colours with alpha, right-anchored text, nested
+    rotated groups, polylines and rectangles."""
+    drawing = Drawing(300, 200)
+    drawing.add(
+        RLPath(
+            points=[10, 10, 80, 60, 150, 10],
+            operators=[0, 1, 1],
+            fillColor=colors.red,
+            strokeColor=colors.black,
+            strokeWidth=2,
+        )
+    )
+    drawing.add(
+        PolyLine(
+            [10, 100, 60, 150, 110, 100, 160, 150],
+            strokeColor=colors.Color(0, 0, 1, alpha=0.5),
+            strokeWidth=3,
+            strokeDashArray=(3, [6, 2]),
+            strokeLineCap=1,
+        )
+    )
+    drawing.add(
+        Rect(200, 20, 60, 40, fillColor=colors.Color(0, 0.6, 0, alpha=0.4), strokeColor=None)
+    )
+    outer = Group(Line(0, 0, 40, 0, strokeColor=colors.black, strokeWidth=1.5))
+    inner = Group(String(0, 5, "turned", fontName="Helvetica", fontSize=9, textAnchor="end"))
+    inner.rotate(30)
+    outer.add(inner)
+    outer.translate(220, 120)
+    outer.rotate(-20)
+    drawing.add(outer)
+    drawing.add(String(290, 185, "right", fontName="Helvetica-Bold", fontSize=11, textAnchor="end"))
+    return drawing
+
+
+DRAWINGS = [*_drawings(), ("features", _features())]
 
 
 def _kind(element: ET.Element) -> str:
@@ -109,6 +156,103 @@ def test_svg_matches_reportlabs_renderer(name: str, drawing: Drawing) -> None:
             assert _same(_rgb(a, "stroke"), _rgb(b, "stroke")), (name, a.tag)
 
 
+Affine = tuple[float, float, float, float, float, float]
+IDENTITY: Affine = (1, 0, 0, 1, 0, 0)
+NUMBER = re.compile(r"-?\d+(?:\.\d+)?(?:e-?\d+)?")
+
+
+def _compose(outer: Affine, inner: Affine) -> Affine:
+    a, b, c, d, e, f = outer
+    p, q, r, s_, t, u = inner
+    return (
+        a * p + c * q,
+        b * p + d * q,
+        a * r + c * s_,
+        b * r + d * s_,
+        a * t + c * u + e,
+        b * t + d * u + f,
+    )
+
+
+def _transform(text: str | None) -> Affine:
+    """An SVG transform attribute (matrix, translate, scale, rotate) as one affine matrix."""
+    result = IDENTITY
+    for name, args in re.findall(r"(\w+)\(([^)]*)\)", text or ""):
+        v = [float(x) for x in NUMBER.findall(args)]
+        if name == "matrix":
+            step: Affine = (v[0], v[1], v[2], v[3], v[4], v[5])
+        elif name == "translate":
+            step = (1, 0, 0, 1, v[0], v[1] if len(v) > 1 else 0)
+        elif name == "scale":
+            step = (v[0], 0, 0, v[1] if len(v) > 1 else v[0], 0, 0)
+        elif name == "rotate":
+            cos, sin = math.cos(math.radians(v[0])), math.sin(math.radians(v[0]))
+            step = (cos, sin, -sin, cos, 0, 0)
+        else:
+            raise AssertionError(f"unexpected transform {name}")
+        result = _compose(result, step)
+    return result
+
+
+def _points(element: ET.Element) -> list[float]:
+    """The defining points of a shape, in its own coordinates, flattened."""
+    kind = element.tag.removeprefix(SVG_NS)
+    g = element.get
+    if kind == "path":
+        return [float(x) for x in NUMBER.findall(g("d", ""))]
+    if kind == "polyline":
+        return [float(x) for x in NUMBER.findall(g("points", ""))]
+    if kind == "line":
+        return [float(g(k, "0")) for k in ("x1", "y1", "x2", "y2")]
+    if kind == "rect":
+        x, y, w, h = (float(g(k, "0")) for k in ("x", "y", "width", "height"))
+        return [x, y, x + w, y + h]
+    x, y, r = (float(g(k, "0")) for k in ("cx", "cy", "r"))
+    return [x, y, x + r, y]
+
+
+def _geometry(root: ET.Element) -> list[list[float]]:
+    """Every non-text shape's points in drawing coordinates, in document order.
+
+    Starts below the root group that flips the y axis (reportlab rounds its height there), so both
+    outputs are compared in the drawing's own coordinates.
+    """
+    (flip,) = [g for g in root if g.tag == f"{SVG_NS}g"]
+    out: list[list[float]] = []
+
+    def walk(element: ET.Element, matrix: Affine) -> None:
+        for child in element:
+            kind = child.tag.removeprefix(SVG_NS)
+            if kind in ("clipPath", "title", "text"):
+                continue
+            here = _compose(matrix, _transform(child.get("transform")))
+            if kind == "g":
+                walk(child, here)
+            elif kind in SHAPE_TAGS:
+                flat = _points(child)
+                a, b, c, d, e, f = here
+                out.append(
+                    [
+                        v
+                        for x, y in zip(flat[::2], flat[1::2], strict=True)
+                        for v in (a * x + c * y + e, b * x + d * y + f)
+                    ]
+                )
+
+    walk(flip, IDENTITY)
+    return out
+
+
+@pytest.mark.parametrize("name,drawing", DRAWINGS, ids=[n for n, _ in DRAWINGS])
+def test_svg_geometry_matches_reportlabs_renderer(name: str, drawing: Drawing) -> None:
+    ours = _geometry(ET.fromstring(vector.svg_document(drawing, title="t").encode("utf-8")))
+    theirs = _geometry(ET.fromstring(renderSVG.drawToString(drawing).encode("utf-8")))
+    assert len(ours) == len(theirs)
+    for mine, ref in zip(ours, theirs, strict=True):
+        # ours is written to 2 decimals, reportlab's to 6 significant digits
+        assert mine == pytest.approx(ref, abs=0.011), name
+
+
 def test_svg_escapes_text_and_tags_segments() -> None:
     drawing = Drawing(100, 50)
     drawing.add(String(10, 10, "<b>&</para> 日本語 🫀", fontName="Helvetica"))
@@ -134,6 +278,26 @@ def test_svg_escapes_text_and_tags_segments() -> None:
     assert path.find(f"{SVG_NS}title").text == 'a "quoted" <tip>'  # type: ignore[union-attr]
     (group,) = [g for g in root.iter(f"{SVG_NS}g") if g.get("class") == "segments"]
     assert list(group) == [path]
+
+
+@pytest.mark.parametrize(
+    "shape, problem",
+    [
+        (RLPath(points=[0, 0, 5, 5], operators=[0, 1], isClipPath=1), "clipping"),
+        (RLPath(points=[0, 0, 5, 5], operators=[0, 1], autoclose="svg"), "auto-closing"),
+        (String(0, 0, "1.5", textAnchor="numeric"), "text anchor"),
+        (Rect(0, 0, 5, 5, fillOpacity=0.5), "fillOpacity"),
+        (Line(0, 0, 5, 5, strokeOpacity=0.5), "strokeOpacity"),
+    ],
+    ids=["clip path", "autoclose", "numeric anchor", "fill opacity", "stroke opacity"],
+)
+def test_options_we_do_not_draw_are_refused(shape: object, problem: str) -> None:
+    drawing = Drawing(10, 10)
+    drawing.add(shape)
+    with pytest.raises(ValueError, match=problem):
+        vector.svg_document(drawing, title="t")
+    with pytest.raises(ValueError, match=problem):
+        vector.paint(Canvas(io.BytesIO()), drawing)
 
 
 def test_unknown_shapes_are_refused_not_dropped() -> None:
@@ -180,7 +344,7 @@ def _pixels(pdf: bytes, tmp: Path, stem: str) -> bytes:
 
 
 @pytest.mark.skipif(shutil.which("pdftoppm") is None, reason="needs poppler-utils (pdftoppm)")
-@pytest.mark.parametrize("group", ["DEMO-0002", "DEMO-0006", "curves"])
+@pytest.mark.parametrize("group", ["DEMO-0002", "DEMO-0006", "curves", "features"])
 def test_pdf_painting_matches_reportlabs_renderer(group: str, tmp_path: Path) -> None:
     drawings = [d for n, d in DRAWINGS if n.startswith(group)]
     assert drawings

@@ -6,8 +6,10 @@ renderers handle every shape and option there is, at a cost: its SVG renderer bu
 serialises it, and its PDF renderer saves and restores the graphics state around every node. For the
 small set of shapes we use, writing the SVG text and the canvas operators directly is several times
 faster and gives cleaner SVG (a real ``<title>``, one flip of the y axis, ids and classes where we
-ask for them). Any other shape kind raises ``TypeError``, so a new kind is never silently dropped;
-the tests compare both outputs with reportlab's own renderers.
+ask for them). Any other shape kind raises ``TypeError`` and any option we do not draw (clipping
+paths, auto-closing, separate opacities, numeric text anchors) raises ``ValueError``, so nothing is
+ever silently dropped; the tests compare both outputs with reportlab's own renderers. As in
+reportlab, a path is filled only when every subpath is closed.
 
 :class:`TaggedPath` and :class:`TaggedGroup` carry an SVG ``id``, ``class`` and ``<title>``
 (tooltip); the PDF ignores them.
@@ -74,11 +76,49 @@ class TaggedGroup(Group):  # type: ignore[misc]
         self._attrMap = AttrMap(BASE=self._attrMap, **_TAGS)
 
 
+# --- what both outputs share ----------------------------------------------------------------------
+
+
+def _refuse_unsupported(node: Any) -> None:
+    """Raise for an option of ``node`` that neither output draws, rather than ignore it."""
+    problems = []
+    if isinstance(node, Path) and (node.isClipPath or node.autoclose):
+        problems.append("clipping or auto-closing path")
+    if isinstance(node, String) and node.textAnchor not in ("start", "middle", "end"):
+        problems.append(f"text anchor {node.textAnchor!r}")
+    if getattr(node, "fillOpacity", None) is not None:
+        problems.append("fillOpacity (use a colour with alpha)")
+    if getattr(node, "strokeOpacity", None) is not None:
+        problems.append("strokeOpacity (use a colour with alpha)")
+    if problems:
+        raise ValueError(f"{type(node).__name__}: {', '.join(problems)} not supported")
+
+
+def _fills(node: Any) -> bool:
+    """Whether ``node`` is filled: a fill colour and, for a path, every subpath closed (reportlab's
+    rule for paths without auto-closing)."""
+    if not isinstance(node, Path | Rect | Circle) or node.fillColor is None:
+        return False
+    if isinstance(node, Path):
+        return bool(node.operators.count(0) == node.operators.count(3))
+    return True
+
+
+def _dash(shape: Any) -> tuple[tuple[float, ...], float]:
+    """The dash lengths and phase; reportlab accepts ``[on, off, …]`` or ``(phase, [on, off, …])``."""
+    dash = shape.strokeDashArray
+    if not dash:
+        return (), 0.0
+    if len(dash) == 2 and isinstance(dash[1], list | tuple):
+        return tuple(dash[1]), float(dash[0])
+    return tuple(dash), 0.0
+
+
 # --- SVG ----------------------------------------------------------------------------------------
 
 
-def _num(value: float) -> str:
-    text = f"{value:.2f}"
+def _num(value: float, places: int = 2) -> str:
+    text = f"{value:.{places}f}"
     if "." in text:
         text = text.rstrip("0").rstrip(".")
     return "0" if text == "-0" else text
@@ -101,14 +141,16 @@ def _font(name: str) -> str:
     return out
 
 
-def _paint_attrs(shape: Any, *, fill: bool = True) -> str:
+def _paint_attrs(shape: Any) -> str:
     parts = []
-    if fill:
+    if not _fills(shape):
+        parts.append('fill="none"')
+    else:
         fill_color = shape.fillColor
         parts.append(f'fill="{_colour(fill_color)}"')
-        if fill_color is not None and fill_color.alpha < 1:
+        if fill_color.alpha < 1:
             parts.append(f'fill-opacity="{_num(fill_color.alpha)}"')
-        if isinstance(shape, Path) and fill_color is not None:
+        if isinstance(shape, Path):
             parts.append(
                 f'fill-rule="{"nonzero" if shape.fillMode == FILL_NON_ZERO else "evenodd"}"'
             )
@@ -123,8 +165,11 @@ def _paint_attrs(shape: Any, *, fill: bool = True) -> str:
         parts.append(f'stroke-linecap="{_CAPS[shape.strokeLineCap]}"')
     if shape.strokeLineJoin:
         parts.append(f'stroke-linejoin="{_JOINS[shape.strokeLineJoin]}"')
-    if shape.strokeDashArray:
-        parts.append(f'stroke-dasharray="{" ".join(_num(d) for d in shape.strokeDashArray)}"')
+    dash, phase = _dash(shape)
+    if dash:
+        parts.append(f'stroke-dasharray="{" ".join(_num(d) for d in dash)}"')
+        if phase:
+            parts.append(f'stroke-dashoffset="{_num(phase)}"')
     return " ".join(parts)
 
 
@@ -152,10 +197,12 @@ def _path_data(path: Path) -> str:
 
 
 def _svg_nodes(node: Any, indent: str) -> Iterator[str]:
+    _refuse_unsupported(node)
     if isinstance(node, Group):
         attrs, title = _tags(node)
         if node.transform != _IDENTITY:
-            attrs += f' transform="matrix({" ".join(_num(v) for v in node.transform)})"'
+            # rotation coefficients need more places than coordinates
+            attrs += f' transform="matrix({" ".join(_num(v, 6) for v in node.transform)})"'
         yield f"{indent}<g{attrs}>{title}"
         for child in node.contents:
             yield from _svg_nodes(child, indent + " ")
@@ -176,12 +223,12 @@ def _svg_nodes(node: Any, indent: str) -> Iterator[str]:
         tag, body = "path", f'd="{_path_data(node)}" {_paint_attrs(node)}'
     elif isinstance(node, PolyLine):
         points = " ".join(_num(v) for v in node.points)
-        tag, body = "polyline", f'points="{points}" fill="none" {_paint_attrs(node, fill=False)}'
+        tag, body = "polyline", f'points="{points}" {_paint_attrs(node)}'
     elif isinstance(node, Line):
         ends = (
             f'x1="{_num(node.x1)}" y1="{_num(node.y1)}" x2="{_num(node.x2)}" y2="{_num(node.y2)}"'
         )
-        tag, body = "line", f"{ends} {_paint_attrs(node, fill=False)}"
+        tag, body = "line", f"{ends} {_paint_attrs(node)}"
     elif isinstance(node, Rect):
         box = (
             f'x="{_num(node.x)}" y="{_num(node.y)}" '
@@ -211,8 +258,13 @@ def svg_document(drawing: Drawing, *, title: str, description: str = "") -> str:
         head += f" <desc>{escape(description)}</desc>\n"
     # reportlab's y axis points up, SVG's down: one flip for the whole drawing
     lines = [head + f' <g transform="matrix(1 0 0 -1 0 {_num(height)})">']
-    for child in drawing.contents:
-        lines += _svg_nodes(child, "  ")
+    if drawing.transform != _IDENTITY:
+        moved = Group(*drawing.contents)
+        moved.transform = drawing.transform
+        lines += _svg_nodes(moved, "  ")
+    else:
+        for child in drawing.contents:
+            lines += _svg_nodes(child, "  ")
     lines.append(" </g>\n</svg>\n")
     return "\n".join(lines)
 
@@ -246,7 +298,7 @@ class _Pen:
         self.width: float = _UNKNOWN
         self.cap: int = _UNKNOWN
         self.join: int = _UNKNOWN
-        self.dash: tuple[float, ...] = _UNKNOWN
+        self.dash: tuple[tuple[float, ...], float] = _UNKNOWN
         self.font: tuple[str, float] = _UNKNOWN
 
     def copy(self) -> _Pen:
@@ -266,13 +318,14 @@ class _Pen:
             if value != getattr(self, slot):
                 getattr(canvas, setter)(value)
                 setattr(self, slot, value)
-        dash = tuple(shape.strokeDashArray or ())
+        dash = _dash(shape)
         if dash != self.dash:
-            canvas.setDash(list(dash), 0)
+            canvas.setDash(list(dash[0]), dash[1])
             self.dash = dash
 
 
 def _paint_node(canvas: Canvas, node: Any, pen: _Pen) -> None:
+    _refuse_unsupported(node)
     if isinstance(node, Group):
         moved = node.transform != _IDENTITY
         inner = pen
@@ -299,7 +352,7 @@ def _paint_node(canvas: Canvas, node: Any, pen: _Pen) -> None:
         return
     if not isinstance(node, Path | PolyLine | Line | Rect | Circle):
         raise TypeError(f"no PDF painting for a {type(node).__name__} shape")
-    fill = node.fillColor if isinstance(node, Path | Rect | Circle) else None
+    fill = node.fillColor if _fills(node) else None
     stroke = node.strokeColor is not None and bool(node.strokeWidth)
     if fill is not None:
         pen.fill_with(canvas, fill)

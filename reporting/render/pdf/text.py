@@ -13,6 +13,8 @@ glyphs the font lacks replaced); as nothing is parsed, no escaping is needed.
 
 from __future__ import annotations
 
+import re
+
 from reportlab.lib.enums import TA_LEFT
 from reportlab.lib.styles import ParagraphStyle
 from reportlab.pdfbase.pdfmetrics import stringWidth
@@ -21,6 +23,18 @@ from reportlab.platypus import Flowable
 from reporting.render import style as look
 
 __all__ = ["PlainText", "wrap_lines"]
+
+
+_BREAKABLE = re.compile(r"[ \t\r\f\v]+")
+# style features PlainText does not draw, with the value that means "not used"
+_UNSUPPORTED = {
+    "leftIndent": 0,
+    "rightIndent": 0,
+    "firstLineIndent": 0,
+    "backColor": None,
+    "borderWidth": 0,
+    "wordWrap": None,
+}
 
 
 def _break_word(word: str, font: str, size: float, width: float) -> list[str]:
@@ -40,12 +54,13 @@ def wrap_lines(text: str, font: str, size: float, width: float) -> list[str]:
     """``text`` broken into lines no wider than ``width`` points (greedy, at spaces).
 
     Runs of spaces count as one; a newline always starts a new line; a word wider than the
-    whole line starts a line of its own and is broken between characters.
+    whole line starts a line of its own and is broken between characters. Only ordinary spaces
+    and tabs separate words: a no-break space (U+00A0, U+202F, U+2007) keeps ``100 %`` together.
     """
     space = stringWidth(" ", font, size)
     lines: list[str] = []
     for chunk in text.split("\n"):
-        words = chunk.split()
+        words = [w for w in _BREAKABLE.split(chunk) if w]
         if not words:
             lines.append("")
             continue
@@ -76,7 +91,11 @@ class PlainText(Flowable):  # type: ignore[misc]
         super().__init__()
         if style.alignment != TA_LEFT:
             raise ValueError(f"PlainText sets left-aligned text only, not style {style.name!r}")
-        self.text = text if cleaned else look.printable(text, style.fontName)
+        used = [name for name, off in _UNSUPPORTED.items() if getattr(style, name, off) != off]
+        if used:
+            raise ValueError(f"PlainText cannot draw {', '.join(used)} of style {style.name!r}")
+        # like Paragraph: no blank lines before or after, and blank text takes no room
+        self.text = (text if cleaned else look.printable(text, style.fontName)).strip()
         self.style = style
         self.space_before = float(style.spaceBefore)
         self.space_after = float(style.spaceAfter)
@@ -86,9 +105,15 @@ class PlainText(Flowable):  # type: ignore[misc]
     def _wrap_to(self, width: float) -> list[str]:
         if width != self._wrapped_at:
             st = self.style
-            self.lines = wrap_lines(self.text, st.fontName, st.fontSize, width)
+            self.lines = wrap_lines(self.text, st.fontName, st.fontSize, width) if self.text else []
             self._wrapped_at = width
         return self.lines
+
+    def minWidth(self) -> float:
+        """The widest word: the narrowest column the text fits without breaking words."""
+        st = self.style
+        words = _BREAKABLE.split(self.text.replace("\n", " "))
+        return max((stringWidth(w, st.fontName, st.fontSize) for w in words), default=0.0)
 
     def wrap(self, available_width: float, available_height: float) -> tuple[float, float]:
         self.width = available_width
@@ -122,6 +147,8 @@ class PlainText(Flowable):  # type: ignore[misc]
         st = self.style
         text = self.canv.beginText(0, self.height - st.fontSize)
         text.setFont(st.fontName, st.fontSize, st.leading)
+        # setFont writes the leading only with the first glyphs; a leading blank line needs it now
+        text.setLeading(st.leading)
         text.setFillColor(st.textColor)
         for line in self.lines:
             text.textLine(line)
