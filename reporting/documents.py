@@ -214,6 +214,8 @@ def peek_yaml_text(text: str, keys: tuple[str, ...]) -> str | None:
             if isinstance(event, yaml.MappingStartEvent | yaml.SequenceStartEvent):
                 if len(levels) >= MAX_NESTING:
                     return None
+                if levels and levels[-1][0] and levels[-1][1]:
+                    return None  # a list or mapping used as a key: never valid, loading says so
                 levels.append([isinstance(event, yaml.MappingStartEvent), True, None])
             elif isinstance(event, yaml.MappingEndEvent | yaml.SequenceEndEvent):
                 levels.pop()

@@ -406,6 +406,9 @@ PEEK_CASES = [
     ("a: &x T-2\nstudy: {id: *x}\n", None),
     ("study: {id: [a]}\n", None),
     ("study: {id: T-3\n", "T-3"),  # stops at the id: a later syntax error is found on loading
+    # a list or mapping as a key (refused on loading) must not shift keys and values
+    ("study:\n  ? [a]\n  : id\n  id2: X\n  id: REAL\n", None),
+    ("study:\n  ? {id: FAKE}\n  : 1\n  id: REAL\n", None),
 ]
 
 
