@@ -32,6 +32,7 @@ from reportlab.graphics.shapes import (
     PolyLine,
     Rect,
     String,
+    _renderPath,
 )
 from reportlab.lib.attrmap import AttrMap, AttrMapValue
 from reportlab.lib.colors import Color
@@ -380,17 +381,8 @@ def _paint_node(canvas: Canvas, node: Any, pen: _Pen) -> None:
             for i in range(2, len(points), 2):
                 outline.lineTo(points[i], points[i + 1])
         else:
-            i = 0
-            for op in node.operators:
-                if op == 0:
-                    outline.moveTo(points[i], points[i + 1])
-                elif op == 1:
-                    outline.lineTo(points[i], points[i + 1])
-                elif op == 2:
-                    outline.curveTo(*points[i : i + 6])
-                else:
-                    outline.close()
-                i += _OP_POINTS[op]
+            # reportlab's own walk over a path's operators, as renderPDF uses it
+            _renderPath(node, (outline.moveTo, outline.lineTo, outline.curveTo, outline.close))
         mode = node.fillMode if isinstance(node, Path) else FILL_EVEN_ODD
         canvas.drawPath(outline, stroke=int(stroke), fill=int(fill is not None), fillMode=mode)
 
