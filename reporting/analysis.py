@@ -13,16 +13,14 @@ from collections.abc import Mapping
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from reporting import scoring, stress
+from reporting import conclusion, scoring, stress
 from reporting.errors import InputError
-from reporting.findings import high_risk_findings, quality_notes
+from reporting.findings import quality_notes, response_notes
 from reporting.load import load_study
 from reporting.model import STRESS_STAGES, Protocol, Stage, Study
 from reporting.results import (
     RECORD_SCHEMA_VERSION,
     Analysis,
-    Conclusion,
-    DiagnosticStatus,
     Note,
     NoteKind,
     PatientSummary,
@@ -39,6 +37,7 @@ from reporting.scoring import (
     ISCHEMIC_RESPONSES,
     VIABLE_RESPONSES,
     PerfusionResponse,
+    SegmentCourse,
     WallMotionResponse,
 )
 from reporting.segments import (
@@ -51,7 +50,7 @@ from reporting.segments import (
     segments_of,
 )
 from reporting.settings import Settings, default_settings, load_settings
-from reporting.wording import CAUTIONS, shown_target_bpm
+from reporting.wording import CAUTIONS
 
 if TYPE_CHECKING:
     from reporting.kinetics.curves import CurveSet
@@ -144,7 +143,11 @@ def analyze(
 
     wall = _scores_by_stage(study, "wall_motion")
     perf = _scores_by_stage(study, "perfusion")
-    segments = _segment_results(study, territory_map, wall, perf)
+    courses = {
+        n: scoring.segment_course({stage: scores[n] for stage, scores in wall.items()})
+        for n in range(1, int(model) + 1)
+    }
+    segments = _segment_results(study, territory_map, courses, wall, perf)
     wmsi_numbers = _wmsi_segments(model, settings)
 
     wmsi: dict[Stage, float] = {}
@@ -168,11 +171,14 @@ def analyze(
             settings=settings,
         )
     stress_result, stress_notes = _stress_result(study, settings)
-    conclusion = _conclusion(study, settings, segments, territories, wall, wmsi, stress_result)
-    notes = stress_notes + quality_notes(study, settings, segments, wall, perf)
-    log.debug(
-        "analysed %s: %d segments, status %s", study.study.id, len(segments), conclusion.status
+    answer = conclusion.conclude(study, settings, segments, territories, wmsi, stress_result)
+    entry_errors = {n: c.implausible_stages for n, c in courses.items() if c.implausible_stages}
+    notes = (
+        stress_notes
+        + response_notes(study, settings, segments, entry_errors)
+        + quality_notes(study, settings, segments, wall, perf)
     )
+    log.debug("analysed %s: %d segments, status %s", study.study.id, len(segments), answer.status)
 
     return Analysis(
         schema_version=RECORD_SCHEMA_VERSION,
@@ -213,7 +219,7 @@ def analyze(
         perfusion=perfusion,
         kinetics=kinetics,
         stress=stress_result,
-        conclusion=conclusion,
+        conclusion=answer,
         notes=notes,
         cautions=list(CAUTIONS),
     )
@@ -244,6 +250,7 @@ def _wmsi_segments(model: SegmentModel, settings: Settings) -> list[int]:
 def _segment_results(
     study: Study,
     territory_map: TerritoryMap,
+    courses: dict[int, SegmentCourse],
     wall: dict[Stage, dict[int, int | None]],
     perf: dict[Stage, dict[int, int | None]],
 ) -> list[SegmentResult]:
@@ -264,9 +271,9 @@ def _segment_results(
                 shared_supply=others,
                 wall_motion={stage: scores[n] for stage, scores in wall.items()},
                 perfusion={stage: scores[n] for stage, scores in perf.items()},
-                response=scoring.wall_motion_response(
-                    at(wall, Stage.REST, n), at(wall, Stage.LOW_DOSE, n), at(wall, Stage.PEAK, n)
-                ),
+                response=courses[n].response,
+                baseline_stage=courses[n].baseline_stage,
+                ischemia_onset_stage=courses[n].worse_from,
                 perfusion_response=scoring.perfusion_response(
                     at(perf, Stage.REST, n), at(perf, Stage.PEAK, n)
                 ),
@@ -294,6 +301,7 @@ def _territory_result(
     return TerritoryResult(
         segments=numbers,
         ischemic_segments=ischemic,
+        ischemic_perfusion_segments=[n for n in reversible if n not in ischemic],
         viable_segments=[s.number for s in mine if s.response in VIABLE_RESPONSES],
         fixed_segments=[s.number for s in mine if s.response is WallMotionResponse.FIXED],
         wmsi=wmsi,
@@ -306,6 +314,7 @@ def _territory_result(
             s.number for s in mine if s.perfusion_response is PerfusionResponse.FIXED
         ],
         ischemic=bool(ischemic or reversible),
+        status=conclusion.territory_status(mine),
     )
 
 
@@ -350,33 +359,18 @@ def _stress_result(study: Study, settings: Settings) -> tuple[StressResult, list
     peak_hr = max(stress_rates) if stress_rates else None
     percent = 100 * peak_hr / predicted if peak_hr is not None and predicted else None
     rate_dependent = study.protocol is not Protocol.VASODILATOR
-
-    if not rate_dependent:
-        adequate = Stage.PEAK in study.stages
-        why = (
-            "Vasodilator stress: the heart-rate target does not apply."
-            if adequate
-            else "No peak stage was recorded."
-        )
-    elif Stage.PEAK not in study.stages:
-        adequate = False
-        why = "No peak stage was recorded, so adequacy is not established."
-    elif age is None:
-        adequate = False
-        why = (
-            "Age unknown: the target heart rate cannot be computed, so adequacy is not established."
-        )
+    verdict = stress.assess_adequacy(
+        rate_dependent=rate_dependent,
+        stress_imaged=conclusion.stress_imaged(study),
+        peak_recorded=Stage.PEAK in study.stages,
+        age_years=age,
+        peak_hr_bpm=peak_hr,
+        predicted_bpm=predicted,
+        target_fraction=settings.target_heart_rate_fraction,
+    )
+    adequate, why = verdict.adequate, verdict.note
+    if verdict.age_unknown:
         notes.append(Note(kind=NoteKind.AGE_UNKNOWN, text=why, source=None))
-    elif peak_hr is None or target is None:
-        adequate = False
-        why = "No heart rate was recorded at a stress stage, so adequacy is not established."
-    else:
-        adequate = peak_hr >= target
-        verb = "reached" if adequate else "did not reach"
-        why = (
-            f"Peak heart rate {peak_hr} bpm {verb} the target of {shown_target_bpm(target)} bpm "
-            f"({100 * settings.target_heart_rate_fraction:g} % of the age-predicted maximum {predicted:g} bpm)."
-        )
 
     rpp = {
         s: stress.rate_pressure_product(d.heart_rate_bpm, d.systolic_bp_mmhg)
@@ -445,45 +439,3 @@ def _haemodynamics(study: Study, result: StressResult) -> dict[Stage, StageHaemo
         )
         for stage, d in study.stages.items()
     }
-
-
-def _conclusion(
-    study: Study,
-    settings: Settings,
-    segments: list[SegmentResult],
-    territories: dict[Territory, TerritoryResult],
-    wall: dict[Stage, dict[int, int | None]],
-    wmsi: dict[Stage, float],
-    stress_result: StressResult,
-) -> Conclusion:
-    wm_ischemic = [s.number for s in segments if s.response in ISCHEMIC_RESPONSES]
-    ischemic_territories = [t for t, r in territories.items() if r.ischemic]
-    ischemia = any(r.ischemic for r in territories.values())
-    peak_seen = any(s.response is not WallMotionResponse.NOT_ASSESSABLE for s in segments) or any(
-        s.perfusion_response is not PerfusionResponse.NOT_ASSESSABLE for s in segments
-    )
-    if ischemia:
-        status = DiagnosticStatus.ISCHEMIA
-    elif stress_result.adequate and peak_seen:
-        status = DiagnosticStatus.NO_ISCHEMIA
-    else:
-        status = DiagnosticStatus.NON_DIAGNOSTIC
-    multivessel = len(ischemic_territories) >= settings.multivessel_territories_min
-    return Conclusion(
-        ischemia=ischemia,
-        status=status,
-        ischemic_territories=ischemic_territories,
-        ischemic_segment_count=len(wm_ischemic),
-        ischemia_extent=scoring.ischemia_extent(
-            len(wm_ischemic), settings.extensive_ischemia_segments_min
-        ),
-        multivessel=multivessel,
-        viable_segments=[s.number for s in segments if s.response in VIABLE_RESPONSES],
-        fixed_segments=[s.number for s in segments if s.response is WallMotionResponse.FIXED],
-        akinetic_to_dyskinetic_segments=[
-            s.number for s in segments if s.response is WallMotionResponse.AKINETIC_TO_DYSKINETIC
-        ],
-        high_risk_findings=high_risk_findings(
-            study, settings, wm_ischemic, ischemic_territories, wall, wmsi, stress_result
-        ),
-    )

@@ -146,9 +146,30 @@ class SegmentResult(_Result):
         description="Perfusion score per stage; null = not visualised."
     )
     response: WallMotionResponse = Field(description="Wall-motion response to stress.")
+    baseline_stage: Stage | None = Field(
+        default=None,
+        description="Stage the response is judged from: rest, else low dose when rest did not see "
+        "the segment; null when neither saw it.",
+    )
+    ischemia_onset_stage: Stage | None = Field(
+        default=None,
+        description="First stage at which a new or worsening abnormality was seen (ischemic or "
+        "biphasic segments; recovery when it was seen only after stress); null otherwise.",
+    )
     perfusion_response: PerfusionResponse = Field(
         description="Perfusion response from rest to peak."
     )
+
+
+class TerritoryStatus(StrEnum):
+    """Answer of one territory."""
+
+    ISCHEMIA = "ischemia"
+    """Ischaemia by wall motion or reversible perfusion defect."""
+    NO_ISCHEMIA = "no_ischemia"
+    """No ischaemia in the segments of the territory that were seen at baseline and at stress."""
+    NON_DIAGNOSTIC = "non_diagnostic"
+    """No segment of the territory was seen at both baseline and stress."""
 
 
 class TerritoryResult(_Result):
@@ -156,7 +177,12 @@ class TerritoryResult(_Result):
 
     segments: list[int] = Field(description="Segments in the territory.")
     ischemic_segments: list[int] = Field(
-        description="Segments whose response is ischemic or biphasic."
+        description="Segments whose wall-motion response is ischemic or biphasic."
+    )
+    ischemic_perfusion_segments: list[int] = Field(
+        default_factory=list,
+        description="Segments ischaemic by perfusion only (reversible defect, wall motion not "
+        "ischemic); shown beside ischemic_segments.",
     )
     viable_segments: list[int] = Field(
         description="Abnormal at rest and improving at low dose or stress."
@@ -175,6 +201,11 @@ class TerritoryResult(_Result):
     )
     fixed_perfusion_segments: list[int] = Field(description="Fixed perfusion defects.")
     ischemic: bool = Field(description="Ischaemia by wall motion or reversible perfusion defect.")
+    status: TerritoryStatus = Field(
+        default=TerritoryStatus.NO_ISCHEMIA,
+        description="ischemia, no_ischemia, or non_diagnostic when no segment of the territory was "
+        "seen at baseline and at stress.",
+    )
 
 
 class PerfusionResult(_Result):
@@ -247,7 +278,7 @@ class StressResult(_Result):
 
 
 class FindingCode(StrEnum):
-    """High-risk findings."""
+    """Findings that grade risk (noninvasive risk tables); the first group are high-risk findings."""
 
     LOW_THRESHOLD_ISCHEMIA = "low_threshold_ischemia"
     """More than two segments newly abnormal at low dobutamine dose or at low heart rate."""
@@ -259,12 +290,53 @@ class FindingCode(StrEnum):
     """Resting LVEF below 35 %."""
     HIGH_PEAK_WMSI = "high_peak_wmsi"
     """Peak WMSI above 1.7."""
-    ESV_RISE = "esv_rise"
-    """LV end-systolic volume rises with stress (cavity dilation)."""
+    LV_DILATION = "lv_dilation"
+    """LV end-systolic volume rises with stress above the lab's threshold (cavity dilation)."""
     EF_FALL = "ef_fall"
-    """LVEF falls with stress."""
+    """LVEF falls by 10 points or more with stress, or peak exercise LVEF below 45 %."""
     DUKE_HIGH_RISK = "duke_high_risk"
     """Duke treadmill score in the high-risk band."""
+    HYPOTENSIVE_RESPONSE = "hypotensive_response"
+    """Exercise: peak systolic pressure below rest, or a fall of more than 10 mmHg from the highest
+    exercise pressure."""
+    LARGE_PERFUSION_DEFECT = "large_perfusion_defect"
+    """Reversible perfusion defects in 10 % of the myocardium or more."""
+    REDUCED_RESTING_EF = "reduced_resting_ef"
+    """Intermediate risk: resting LVEF 35–49 %."""
+    LIMITED_ISCHEMIA = "limited_ischemia"
+    """Intermediate risk: inducible ischaemia in one or two segments of one coronary bed."""
+    MODERATE_PERFUSION_DEFECT = "moderate_perfusion_defect"
+    """Intermediate risk: reversible perfusion defects in 5 to < 10 % of the myocardium."""
+    DUKE_INTERMEDIATE_RISK = "duke_intermediate_risk"
+    """Intermediate risk: Duke treadmill score −10 to +4."""
+    DUKE_LOW_RISK = "duke_low_risk"
+    """Low risk: Duke treadmill score +5 or more."""
+    NO_INDUCIBLE_ISCHEMIA = "no_inducible_ischemia"
+    """Low risk: normal stress wall motion and perfusion, or no change of resting abnormalities."""
+
+
+class RiskLevel(StrEnum):
+    """Annual risk band of the noninvasive risk tables (Fihn SD et al., Circulation 2012)."""
+
+    LOW = "low"
+    """Below 1 % per year (death or MI)."""
+    INTERMEDIATE = "intermediate"
+    """1–3 % per year."""
+    HIGH = "high"
+    """Above 3 % per year."""
+    NOT_GRADED = "not_graded"
+    """Non-diagnostic study with no criterion met."""
+
+
+class RiskCriterion(_Result):
+    """One criterion that set the risk band, with its evidence and source."""
+
+    code: FindingCode = Field(description="Kind of finding.")
+    level: RiskLevel = Field(
+        description="Band the criterion belongs to: low, intermediate or high."
+    )
+    detail: str = Field(description="What was found, with the numbers.")
+    source: str = Field(description="Published source of the criterion.")
 
 
 class HighRiskFinding(_Result):
@@ -283,7 +355,19 @@ class DiagnosticStatus(StrEnum):
     NO_ISCHEMIA = "no_ischemia"
     """No inducible ischaemia at adequate stress."""
     NON_DIAGNOSTIC = "non_diagnostic"
-    """No ischaemia shown, but stress was inadequate or peak could not be assessed."""
+    """No ischaemia shown, but there were no stress images, a territory was not assessable or
+    stress was inadequate."""
+
+
+class NonDiagnosticReason(StrEnum):
+    """Why a study without ischaemia is non-diagnostic (checked in this order)."""
+
+    NO_STRESS_IMAGES = "no_stress_images"
+    """No stress stage (low dose, peak or recovery) was imaged."""
+    TERRITORY_NOT_ASSESSABLE = "territory_not_assessable"
+    """At least one territory had no segment seen at baseline and at stress."""
+    STRESS_INADEQUATE = "stress_inadequate"
+    """The heart-rate target was not reached or not established (not for vasodilator stress)."""
 
 
 class NoteKind(StrEnum):
@@ -307,6 +391,14 @@ class NoteKind(StrEnum):
     """A perfusion defect present at rest that worsens at peak."""
     VIABILITY = "viability"
     """Enough biphasic segments to predict recovery of global function."""
+    ABNORMAL_AT_LOW_DOSE = "abnormal_at_low_dose"
+    """Segments not seen at rest and already abnormal at low dose: not called fixed; review."""
+    PROBABLE_ENTRY_ERROR = "probable_entry_error"
+    """A segment aneurysmal only at stress: implausible, probably an entry error."""
+    LV_DILATION = "lv_dilation"
+    """End-systolic volume rose with stress: an abnormal response, not graded high risk."""
+    BLOOD_PRESSURE_FALL = "blood_pressure_fall"
+    """Systolic pressure fell under pharmacological stress: reported, not graded high risk."""
 
 
 class Note(_Result):
@@ -324,14 +416,31 @@ class Conclusion(_Result):
         description="Any segment ischemic or biphasic by wall motion, or a reversible perfusion defect."
     )
     status: DiagnosticStatus = Field(description="ischemia, no_ischemia or non_diagnostic.")
+    non_diagnostic_reason: NonDiagnosticReason | None = Field(
+        default=None, description="Why the study is non-diagnostic; null otherwise."
+    )
+    ischemic_segments: list[int] = Field(
+        default_factory=list,
+        description="Segments ischaemic by wall motion (ischemic or biphasic) or by a reversible "
+        "perfusion defect.",
+    )
     ischemic_territories: list[Territory] = Field(
         description="Territories of the ischaemic segments."
     )
     ischemic_segment_count: int = Field(description="Segments ischemic or biphasic by wall motion.")
     ischemia_extent: IschemiaExtent = Field(
-        description="none, mild (1–2) or moderate_severe (≥ 3) (Kataoka 2015)."
+        description="none, mild (1–2) or moderate_severe (≥ 3) (Kataoka 2015), counting the "
+        "segments ischaemic by wall motion or perfusion."
     )
-    multivessel: bool = Field(description="Ischaemia in two or more territories.")
+    multivessel: bool = Field(
+        description="Ischaemia in two or more territories, an RCA or LCx apical segment counting "
+        "only when its territory also has basal or mid ischaemia or the LAD has none."
+    )
+    wrap_around_segments: list[int] = Field(
+        default_factory=list,
+        description="RCA or LCx apical segments whose ischaemia is reported as LAD, possibly "
+        "wrapping around the apex (not counted toward multivessel).",
+    )
     viable_segments: list[int] = Field(
         description="Segments biphasic or with sustained improvement."
     )
@@ -341,6 +450,13 @@ class Conclusion(_Result):
     )
     high_risk_findings: list[HighRiskFinding] = Field(
         description="High-risk findings with sources."
+    )
+    risk: RiskLevel = Field(
+        default=RiskLevel.NOT_GRADED,
+        description="low, intermediate, high or not_graded (noninvasive risk tables).",
+    )
+    risk_criteria: list[RiskCriterion] = Field(
+        default_factory=list, description="The criteria that set the risk band."
     )
 
 

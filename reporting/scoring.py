@@ -9,10 +9,14 @@ Sozzi FB et al., JASE 2007).
 from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
+from dataclasses import dataclass
 from enum import StrEnum
+
+from reporting.model import Stage
 
 NORMAL_SCORE = 1
 AKINETIC_SCORE = 3
+ANEURYSMAL_SCORE = 5
 
 
 class WallMotionResponse(StrEnum):
@@ -30,8 +34,11 @@ class WallMotionResponse(StrEnum):
     """Abnormal at rest and unchanged with stress: scar or no inducible change."""
     AKINETIC_TO_DYSKINETIC = "akinetic_to_dyskinetic"
     """Akinetic (or worse) at rest and more dyskinetic at stress: a mechanical finding, not ischaemia."""
+    ABNORMAL_AT_LOW_DOSE = "abnormal_at_low_dose"
+    """Not seen at rest, already abnormal at low dose (its baseline) and not worse later: never
+    called fixed, since the abnormality may be induced at low dose; flagged for review."""
     NOT_ASSESSABLE = "not_assessable"
-    """Not visualised at rest or at peak (or the stage is missing)."""
+    """No baseline (rest, else low dose) saw it, or neither peak nor recovery saw it."""
 
 
 ISCHEMIC_RESPONSES = frozenset({WallMotionResponse.ISCHEMIC, WallMotionResponse.BIPHASIC})
@@ -66,7 +73,7 @@ reader, but does not by itself call the study ischaemic."""
 
 
 class IschemiaExtent(StrEnum):
-    """Extent of inducible wall-motion ischaemia by segment count (Kataoka 2015)."""
+    """Extent of inducible ischaemia by segment count, wall motion and perfusion together (Kataoka 2015)."""
 
     NONE = "none"
     """No ischaemic segment."""
@@ -88,15 +95,116 @@ def score_index(scores: Iterable[int | None]) -> tuple[float | None, int]:
     return sum(scored) / len(scored), len(scored)
 
 
-def wall_motion_response(
-    rest: int | None, low_dose: int | None, peak: int | None
-) -> WallMotionResponse:
-    """The response of one segment (Marwick 2003, table 1).
+@dataclass(frozen=True)
+class SegmentCourse:
+    """How one segment's wall motion ran through the stages, and what it means."""
 
-    ``low_dose`` is ``None`` when the stage was not imaged or the segment not seen there.
+    response: WallMotionResponse
+    baseline_stage: Stage | None
+    """The first stage before peak that saw the segment (rest, else low dose); None if none did."""
+    worse_from: Stage | None
+    """First stage at which a new or worsening abnormality (ischemic or biphasic) was seen."""
+    implausible_stages: tuple[Stage, ...]
+    """Stress stages scored aneurysmal (5) when the baseline was not: a probable entry error."""
+
+
+_LATER = (Stage.LOW_DOSE, Stage.PEAK, Stage.RECOVERY)
+
+
+def segment_course(scores: Mapping[Stage, int | None]) -> SegmentCourse:
+    """The course of one segment from its wall-motion scores per stage.
+
+    Baseline is rest, else low dose (common practice); the stress image is peak, else recovery: a
+    new or worsening abnormality seen only in recovery (post-stress) is still ischaemia (Marwick TH,
+    Heart 2003;89:113, table 1: "peak/post-stress" against rest). A segment that turns aneurysmal
+    only at stress is implausible (common practice): that stage's score is read as unchanged from an
+    akinetic or dyskinetic baseline, and the stage is returned for a note to the reader.
     """
-    if rest is None or peak is None:
+    rest, low = scores.get(Stage.REST), scores.get(Stage.LOW_DOSE)
+    baseline_stage = Stage.REST if rest is not None else Stage.LOW_DOSE if low is not None else None
+    peak, recovery = scores.get(Stage.PEAK), scores.get(Stage.RECOVERY)
+    if baseline_stage is None or (peak is None and recovery is None):
+        return SegmentCourse(WallMotionResponse.NOT_ASSESSABLE, baseline_stage, None, ())
+    baseline = rest if rest is not None else low
+    assert baseline is not None
+    later = {s: scores.get(s) for s in _LATER if s is not baseline_stage}
+    implausible = tuple(
+        s for s, v in later.items() if v == ANEURYSMAL_SCORE and baseline < ANEURYSMAL_SCORE
+    )
+    if baseline >= AKINETIC_SCORE:
+        later |= dict.fromkeys(implausible, baseline)
+    low_, peak_, recovery_ = (later.get(s) for s in _LATER)
+    if baseline_stage is Stage.LOW_DOSE:
+        response = _from_low_dose(baseline, peak_, recovery_)
+    else:
+        response = wall_motion_response(baseline, low_, peak_, recovery_)
+    return SegmentCourse(
+        response, baseline_stage, _worse_from(response, baseline, later), implausible
+    )
+
+
+def _from_low_dose(baseline: int, peak: int | None, recovery: int | None) -> WallMotionResponse:
+    worse = any(v is not None and v > baseline for v in (peak, recovery))
+    if worse:
+        return (
+            WallMotionResponse.AKINETIC_TO_DYSKINETIC
+            if baseline >= AKINETIC_SCORE
+            else WallMotionResponse.ISCHEMIC
+        )
+    if baseline == NORMAL_SCORE:
+        return WallMotionResponse.NORMAL
+    return WallMotionResponse.ABNORMAL_AT_LOW_DOSE
+
+
+def _worse_from(
+    response: WallMotionResponse, baseline: int, later: Mapping[Stage, int | None]
+) -> Stage | None:
+    if response is WallMotionResponse.ISCHEMIC:
+        return next(s for s, v in later.items() if v is not None and v > baseline)
+    if response is WallMotionResponse.BIPHASIC:
+        low = later.get(Stage.LOW_DOSE)
+        return next(
+            s
+            for s in (Stage.PEAK, Stage.RECOVERY)
+            if (v := later.get(s)) is not None and low is not None and v > low
+        )
+    return None
+
+
+def wall_motion_response(
+    rest: int | None, low_dose: int | None, peak: int | None, recovery: int | None = None
+) -> WallMotionResponse:
+    """The response of one segment seen at rest (Marwick 2003, table 1).
+
+    ``low_dose`` is ``None`` when the stage was not imaged or the segment not seen there. Peak is
+    judged against rest; without a peak view the recovery (post-stress) view takes its place, and a
+    new or worsening abnormality first seen in recovery is ischaemia.
+    """
+    if rest is None or (peak is None and recovery is None):
         return WallMotionResponse.NOT_ASSESSABLE
+    stress_view = peak if peak is not None else recovery
+    assert stress_view is not None  # one of the two is seen (checked above)
+    response = _rest_response(rest, low_dose, stress_view)
+    if (
+        peak is not None
+        and recovery is not None
+        and recovery > rest
+        and response
+        in (
+            WallMotionResponse.NORMAL,
+            WallMotionResponse.FIXED,
+            WallMotionResponse.SUSTAINED_IMPROVEMENT,
+        )
+    ):
+        return (
+            WallMotionResponse.AKINETIC_TO_DYSKINETIC
+            if rest >= AKINETIC_SCORE
+            else WallMotionResponse.ISCHEMIC
+        )
+    return response
+
+
+def _rest_response(rest: int, low_dose: int | None, peak: int) -> WallMotionResponse:
     if rest == NORMAL_SCORE:
         stress_scores = [s for s in (low_dose, peak) if s is not None]
         return (

@@ -71,13 +71,39 @@ class Settings(BaseModel):
     peak_wmsi_high_risk_above: float = Field(
         ge=1, description="Peak WMSI above which the finding is high risk."
     )
-    esv_rise_high_risk_above_ml: float = Field(
+    lv_dilation_high_risk_esv_rise_above_ml: float | None = Field(
         ge=0,
-        description="Rise of LV end-systolic volume (mL) from rest to peak above which the finding is high risk.",
+        description="Rise of LV end-systolic volume (mL) from rest to peak above which LV dilation is "
+        "a high-risk finding; null (the default): a rise is reported as an abnormal response only.",
     )
-    ef_fall_high_risk_above_percent: float = Field(
+    ef_fall_high_risk_min_points: float = Field(
+        gt=0,
+        description="Fall of LVEF (percentage points) from rest to peak from which the finding is high risk.",
+    )
+    peak_exercise_ef_high_risk_below_percent: float = Field(
+        gt=0, lt=100, description="Peak exercise LVEF (%) below which the finding is high risk."
+    )
+    resting_ef_intermediate_below_percent: float = Field(
+        gt=0,
+        lt=100,
+        description="Resting LVEF (%) below which (and from the high-risk cut-off) risk is intermediate.",
+    )
+    exercise_sbp_fall_high_risk_above_mmhg: float = Field(
         ge=0,
-        description="Fall of LVEF (percentage points) from rest to peak above which the finding is high risk.",
+        description="Fall of systolic pressure (mmHg) from the highest exercise value to peak above "
+        "which the response is hypotensive (exercise studies only).",
+    )
+    large_perfusion_defect_percent_min: float = Field(
+        gt=0,
+        le=100,
+        description="Reversible perfusion defects (% of myocardium, one segment = 100 / segments "
+        "in the model) from which the defect is large (high risk).",
+    )
+    moderate_perfusion_defect_percent_min: float = Field(
+        gt=0,
+        le=100,
+        description="Reversible perfusion defects (% of myocardium) from which (below the large "
+        "cut-off) risk is intermediate.",
     )
     duke_low_risk_min: float = Field(description="Duke treadmill score from which risk is low.")
     duke_high_risk_max: float = Field(description="Duke treadmill score up to which risk is high.")

@@ -23,6 +23,24 @@ CAUTION_LINE = (
 """The cautions in one line, for help texts and short outputs."""
 
 
+WALL_MOTION_WORDS = {
+    1: "normal",
+    2: "hypokinetic",
+    3: "akinetic",
+    4: "dyskinetic",
+    5: "aneurysmal",
+}
+"""Words for wall-motion scores (Lang RM et al., JASE 2015;28:1; 5 = aneurysmal on older scales)."""
+
+PERFUSION_WORDS = {1: "normal", 2: "reduced or delayed", 3: "absent"}
+"""Words for contrast perfusion visual scores (Porter TR et al., JASE 2018, from memory)."""
+
+
+def sentence_case(text: str) -> str:
+    """Capitalise the first letter only."""
+    return text[:1].upper() + text[1:]
+
+
 def stage_words(stage: Enum) -> str:
     """A stage name as words: ``low_dose`` -> ``low dose``."""
     return str(stage.value).replace("_", " ")

@@ -335,18 +335,6 @@ def test_no_peak_stage_is_not_adequate() -> None:
     assert a.conclusion.status is DiagnosticStatus.NON_DIAGNOSTIC
 
 
-def test_esv_rise_and_ef_fall_are_high_risk() -> None:
-    # Turakhia MP et al., Eur Heart J 2009 (ESV rise); fall in EF with stress (from memory).
-    s = stages(rest=NORMAL_17, peak=NORMAL_17)
-    s["rest"].update(lvef_percent=60, lv_esv_ml=40)
-    s["peak"].update(lvef_percent=50, lv_esv_ml=48)
-    codes = {f.code for f in analysed(stages=s).conclusion.high_risk_findings}
-    assert {FindingCode.ESV_RISE, FindingCode.EF_FALL} <= codes
-    s["peak"].update(lvef_percent=70, lv_esv_ml=30)
-    codes = {f.code for f in analysed(stages=s).conclusion.high_risk_findings}
-    assert not {FindingCode.ESV_RISE, FindingCode.EF_FALL} & codes
-
-
 def test_lab_threshold_is_cited_as_a_lab_setting() -> None:
     study = study_from_data(study_dict(stages=stages(rest=NORMAL_17, peak="221111 111111 1111 1")))
     lab = Settings.model_validate(

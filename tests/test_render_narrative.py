@@ -50,7 +50,8 @@ Peak (dobutamine 40 μg/kg/min, atropine 0.5 mg): normal wall motion in all 17 s
 Recovery: normal wall motion in all 17 segments (WMSI 1.00).
 
 High-risk findings
-None identified.
+Risk: low risk (less than 1 % per year) by the noninvasive risk tables; criteria met: no inducible ischaemia.
+No high-risk finding identified.
 """,
     "DEMO-0002": """\
 Impression
@@ -77,9 +78,12 @@ Peak: reduced or delayed in segments 7, 8 and 13; absent in segments 14 and 17; 
 Reversible defects (inducible ischaemia): segments 7, 8, 13, 14 and 17 (LAD).
 
 High-risk findings
+Risk: high risk (more than 3 % per year) by the noninvasive risk tables; criteria met: extensive ischaemia and large reversible perfusion defect.
 Extensive ischaemia — ischaemia in 5 segments: 7, 8, 13, 14, 17.
-LV cavity dilation at stress — LV end-systolic volume rose from 38 to 44 mL.
-Fall in ejection fraction at stress — LVEF fell from 60 % to 52 %.
+Large reversible perfusion defect — reversible perfusion defects in 29.4 % of the myocardium.
+
+Image quality and protocol notes
+LV end-systolic volume rose by 6 mL from rest to peak: an abnormal response (cavity dilation), not graded as a high-risk finding by itself.
 """,
     "DEMO-0003": """\
 Impression
@@ -101,6 +105,7 @@ Low dose (dobutamine 10 μg/kg/min): WMSI 1.41. Hypokinetic: segments 7 (mid ant
 Peak (dobutamine 40 μg/kg/min, atropine 1 mg): WMSI 1.71. Hypokinetic: segment 1 (basal anterior). Akinetic: segments 7 (mid anterior), 8 (mid anteroseptal), 13 (apical anterior) and 17 (apex). Dyskinetic: segment 14 (apical septal). Other segments normal. LVEF 31 %, end-systolic volume 110 mL. Symptoms and ECG: Mild chest discomfort at peak. No arrhythmia.
 
 High-risk findings
+Risk: high risk (more than 3 % per year) by the noninvasive risk tables; criteria met: extensive ischaemia, low resting ejection fraction and high peak WMSI.
 Extensive ischaemia — ischaemia in 4 segments: 1, 7, 8, 13.
 Low resting ejection fraction — resting LVEF 30 %.
 High peak WMSI — peak WMSI 1.71.
@@ -130,7 +135,8 @@ Rest: normal wall motion in all 17 segments (WMSI 1.00). LVEF 64 %.
 Peak: WMSI 1.12. Hypokinetic: segments 4 (basal inferior) and 10 (mid inferior). Other segments normal. LVEF 66 %. Symptoms and ECG: Non-limiting chest pressure at 6 minutes; 2 mm ST depression II, III, aVF.
 
 High-risk findings
-None identified.
+Risk: intermediate risk (1–3 % per year) by the noninvasive risk tables; criteria met: limited inducible ischaemia and intermediate-risk Duke treadmill score.
+No high-risk finding identified.
 """,
     "DEMO-0005": """\
 Impression
@@ -151,7 +157,8 @@ Low dose (dobutamine 10 μg/kg/min): normal wall motion in all 17 segments (WMSI
 Peak (dobutamine 40 μg/kg/min, atropine 1 mg): normal wall motion in the 14 segments visualised (WMSI 1.00). Not visualised: segments 5, 6 and 12. Symptoms and ECG: Test stopped for nausea after maximal dobutamine and atropine.
 
 High-risk findings
-None identified.
+Risk not graded: the study is non-diagnostic and meets no risk criterion.
+No high-risk finding identified.
 
 Image quality and protocol notes
 Not visualised at peak: segments 5, 6, 12.
@@ -188,6 +195,7 @@ def test_below_target_without_ischaemia_is_non_diagnostic_never_normal() -> None
 def test_every_segment_unseen_at_peak_is_stated_plainly() -> None:
     data = yaml.safe_load(demo_study_text("DEMO-0001.yaml"))
     data["stages"]["peak"]["wall_motion"] = "x" * 17
+    data["stages"]["recovery"]["wall_motion"] = "x" * 17  # neither peak nor recovery saw them
     analysis = analyze(study_from_data(data))
     text = narrative_text(analysis)
     assert (
@@ -195,8 +203,9 @@ def test_every_segment_unseen_at_peak_is_stated_plainly() -> None:
         "(17 of 17 not visualised); wall motion cannot be assessed." in text
     )
     assert text.splitlines()[1] == (
-        "Non-diagnostic for ischaemia: no ischaemia was shown, but no segment could be "
-        "assessed at both rest and peak."
+        "Non-diagnostic for ischaemia: no ischaemia was shown, but no segment of the LAD, LCx "
+        "and RCA territories could be assessed at both baseline and stress, so ischaemia is not "
+        "excluded there."
     )
 
 

@@ -17,6 +17,10 @@ from reporting.render import style
 from reporting.scoring import WallMotionResponse
 from reporting.segments import Territory
 
+# The score words live once, in wording.py; re-exported here for the maps and the entry page.
+from reporting.wording import PERFUSION_WORDS as PERFUSION_WORDS
+from reporting.wording import WALL_MOTION_WORDS as WALL_MOTION_WORDS
+
 
 class MapKind(StrEnum):
     """What a bull's-eye map shows."""
@@ -32,15 +36,6 @@ class MapKind(StrEnum):
     RESERVE = "kinetic_reserve"
     """Replenishment A·β reserve (stress ÷ rest) per segment, from fitted time-intensity curves."""
 
-
-WALL_MOTION_WORDS = {
-    1: "normal",
-    2: "hypokinetic",
-    3: "akinetic",
-    4: "dyskinetic",
-    5: "aneurysmal",
-}
-PERFUSION_WORDS = {1: "normal", 2: "reduced or delayed", 3: "absent"}
 
 # Okabe–Ito colours for the categories; a letter in each sector for greyscale print.
 RESPONSE_STYLE: dict[WallMotionResponse, tuple[str, str, str]] = {

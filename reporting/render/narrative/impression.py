@@ -4,7 +4,11 @@ high-risk findings.
 Wording rules: a study without ischaemia below the target heart rate is called non-diagnostic for
 ischaemia, never normal (Ballal RS et al., 1997); akinesis turning dyskinetic is reported on its own
 and never as ischaemia (Elhendy A et al., Chest 1996; Sozzi FB et al., JASE 2007); extent follows
-Kataoka A et al., Cardiovasc Ultrasound 2015;13:47 (mild 1–2, moderate–severe ≥ 3 segments).
+Kataoka A et al., Cardiovasc Ultrasound 2015;13:47 (mild 1–2, moderate–severe ≥ 3 segments), counting
+wall-motion and perfusion ischaemia together; ischaemia seen only in recovery is ischaemia and is said
+to be so (Marwick TH, Heart 2003;89:113); RCA or LCx apical ischaemia beside LAD ischaemia reads
+"LAD, possibly wrapping around the apex" (Ortiz-Pérez JT et al., JACC Cardiovasc Imaging 2008;1:282);
+a study with no stress stage says "no stress images"; risk bands follow the noninvasive risk tables.
 """
 
 from __future__ import annotations
@@ -13,13 +17,20 @@ from reporting.model import Stage
 from reporting.render.narrative.words import (
     EXTENT_WORDS,
     FINDING_LABELS,
-    WORST_WORDS,
+    RISK_WORDS,
+    WALL_MOTION_WORDS,
     lower_first,
     numbers,
     segments_phrase,
 )
-from reporting.results import Analysis, DiagnosticStatus
-from reporting.scoring import PerfusionResponse, WallMotionResponse
+from reporting.results import (
+    Analysis,
+    DiagnosticStatus,
+    NonDiagnosticReason,
+    RiskLevel,
+    TerritoryStatus,
+)
+from reporting.scoring import WallMotionResponse
 from reporting.segments import Territory
 from reporting.wording import shown_percent, shown_target_bpm, stage_words
 
@@ -28,30 +39,54 @@ def summary(analysis: Analysis) -> str:
     """The one-sentence answer of the study."""
     c = analysis.conclusion
     if c.status is DiagnosticStatus.ISCHEMIA:
-        where = numbers(t.value for t in c.ischemic_territories)
-        noun = "territories" if len(c.ischemic_territories) != 1 else "territory"
+        wrap = set(c.wrap_around_segments)
+        named = [
+            t
+            for t in c.ischemic_territories
+            if not set(_ischemic_in(analysis, t)) <= wrap or not wrap
+        ]
+        where = numbers(t.value for t in named)
+        noun = "territories" if len(named) != 1 else "territory"
+        if wrap:
+            where += (
+                f" {noun} (LAD, possibly wrapping around the apex: {segments_phrase(sorted(wrap))})"
+            )
+            noun = ""
         pattern = "; multivessel pattern" if c.multivessel else ""
+        count = len(c.ischemic_segments)
         if c.ischemic_segment_count:
-            extent = f", {c.ischemic_segment_count} segment{'s' if c.ischemic_segment_count != 1 else ''} ({EXTENT_WORDS[c.ischemia_extent]}{pattern})"
+            how = "" if c.ischemic_segment_count == count else " by wall motion or perfusion"
+            extent = f", {count} segment{'s' if count != 1 else ''}{how} ({EXTENT_WORDS[c.ischemia_extent]}{pattern})"
         else:
-            extent = f" by reversible perfusion defects only{pattern and ' (' + pattern[2:] + ')'}"
-        return f"Positive for inducible ischaemia in the {where} {noun}{extent}."
+            extent = f" by reversible perfusion defects only, {count} segment{'s' if count != 1 else ''} ({EXTENT_WORDS[c.ischemia_extent]}{pattern})"
+        return (
+            f"Positive for inducible ischaemia in the {where}{' ' + noun if noun else ''}{extent}."
+        )
     if c.status is DiagnosticStatus.NO_ISCHEMIA:
         return "Negative for inducible ischaemia at adequate stress."
+    if c.non_diagnostic_reason is NonDiagnosticReason.NO_STRESS_IMAGES:
+        return "Non-diagnostic for ischaemia: no stress images were recorded."
     return f"Non-diagnostic for ischaemia: no ischaemia was shown, but {non_diagnostic_reason(analysis)}."
+
+
+def _ischemic_in(analysis: Analysis, territory: Territory) -> list[int]:
+    t = analysis.territories[territory]
+    return t.ischemic_segments + t.ischemic_perfusion_segments
 
 
 def non_diagnostic_reason(analysis: Analysis) -> str:
     s = analysis.stress
-    peak_seen = any(
-        seg.response is not WallMotionResponse.NOT_ASSESSABLE for seg in analysis.segments
-    ) or any(
-        seg.perfusion_response is not PerfusionResponse.NOT_ASSESSABLE for seg in analysis.segments
-    )
-    if Stage.PEAK not in analysis.stages:
-        return "no peak stage was recorded"
-    if not peak_seen:
-        return "no segment could be assessed at both rest and peak"
+    if analysis.conclusion.non_diagnostic_reason is NonDiagnosticReason.TERRITORY_NOT_ASSESSABLE:
+        unread = [
+            t.value
+            for t, r in analysis.territories.items()
+            if r.status is TerritoryStatus.NON_DIAGNOSTIC
+        ]
+        noun = "territories" if len(unread) != 1 else "territory"
+        return (
+            f"no segment of the {numbers(unread)} {noun} could be assessed at both baseline and "
+            "stress, so ischaemia is not excluded there"
+        )
     if (
         s.heart_rate_target_applies
         and s.peak_hr_bpm is not None
@@ -63,6 +98,8 @@ def non_diagnostic_reason(analysis: Analysis) -> str:
             f"{shown_percent(s.peak_hr_percent_of_predicted)} % of the age-predicted maximum; "
             f"target {shown_target_bpm(s.target_hr_bpm)} bpm), so ischaemia is not excluded"
         )
+    if Stage.PEAK not in analysis.stages:
+        return "no peak stage was recorded, so adequacy of stress is not established"
     return "adequate stress was not established, so ischaemia is not excluded"
 
 
@@ -99,10 +136,30 @@ def territory_sentence(analysis: Analysis, territory: Territory) -> str:
         worst = max(
             (by_number[n].wall_motion.get(Stage.PEAK) or 0 for n in t.ischemic_segments), default=0
         )
-        worst_words = f", at worst {WORST_WORDS[worst]} at peak" if worst in WORST_WORDS else ""
+        worst_words = f", at worst {WALL_MOTION_WORDS[worst]} at peak" if worst > 1 else ""
         parts.append(
             f"inducible ischaemia in {len(t.ischemic_segments)} of {len(mine)} segments ({numbers(t.ischemic_segments)}){worst_words}"
         )
+        in_recovery = [
+            n for n in t.ischemic_segments if by_number[n].ischemia_onset_stage is Stage.RECOVERY
+        ]
+        if in_recovery:
+            parts.append(
+                f"seen in recovery (after stress) in {segments_phrase(in_recovery)}"
+                + (
+                    ", at worst " + WALL_MOTION_WORDS[w]
+                    if (
+                        w := max(
+                            by_number[n].wall_motion.get(Stage.RECOVERY) or 0 for n in in_recovery
+                        )
+                    )
+                    > 1
+                    else ""
+                )
+            )
+        wrapped = [n for n in t.ischemic_segments if n in analysis.conclusion.wrap_around_segments]
+        if wrapped:
+            parts.append(f"{segments_phrase(wrapped)}: LAD, possibly wrapping around the apex")
     if biphasic:
         parts.append(f"biphasic response (viable and ischaemic) in {segments_phrase(biphasic)}")
     sustained = having(WallMotionResponse.SUSTAINED_IMPROVEMENT)
@@ -119,14 +176,29 @@ def territory_sentence(analysis: Analysis, territory: Territory) -> str:
         parts.append(
             f"reversible perfusion defect in {segments_phrase(t.reversible_perfusion_segments)}"
         )
+    if t.ischemic_perfusion_segments and not (ischemic or biphasic):
+        parts.insert(
+            0,
+            f"inducible ischaemia by perfusion in {len(t.ischemic_perfusion_segments)} of "
+            f"{len(mine)} segments ({numbers(t.ischemic_perfusion_segments)})",
+        )
     if t.fixed_perfusion_segments:
         parts.append(f"fixed perfusion defect in {segments_phrase(t.fixed_perfusion_segments)}")
+    at_low = having(WallMotionResponse.ABNORMAL_AT_LOW_DOSE)
+    if at_low:
+        parts.append(
+            f"abnormal from low dose without a rest view in {segments_phrase(at_low)} (review)"
+        )
     unseen = having(WallMotionResponse.NOT_ASSESSABLE)
-    if unseen and len(unseen) == len(mine):
-        parts.append("not assessable (segments not visualised at rest or peak)")
+    if t.status is TerritoryStatus.NON_DIAGNOSTIC:
+        parts.append("non-diagnostic (no segment seen at both baseline and stress)")
+    elif unseen and len(unseen) == len(mine):
+        parts.append("wall motion not assessable (segments not seen at baseline and stress)")
     elif unseen:
         parts.append(f"{segments_phrase(unseen)} not assessable")
-    wall_motion_found = bool(ischemic or biphasic or sustained or t.fixed_segments or dysk)
+    wall_motion_found = bool(
+        ischemic or biphasic or sustained or t.fixed_segments or dysk or at_low
+    )
     if not wall_motion_found and len(unseen) < len(mine):
         parts.insert(
             0,
@@ -143,8 +215,18 @@ def territory_sentence(analysis: Analysis, territory: Territory) -> str:
     return f"{territory.value} ({segments_phrase(t.segments)}): {'; '.join(parts)}.{tail}"
 
 
+def risk_paragraph(analysis: Analysis) -> str:
+    """``Risk: intermediate risk (1–3 % per year) by the noninvasive risk tables; criteria met: …``"""
+    c = analysis.conclusion
+    if c.risk is RiskLevel.NOT_GRADED:
+        return "Risk not graded: the study is non-diagnostic and meets no risk criterion."
+    labels = dict.fromkeys(lower_first(FINDING_LABELS[r.code]) for r in c.risk_criteria)
+    return f"Risk: {RISK_WORDS[c.risk]} by the noninvasive risk tables; criteria met: {numbers(labels)}."
+
+
 def high_risk_paragraphs(analysis: Analysis) -> list[str]:
     findings = analysis.conclusion.high_risk_findings
+    head = [risk_paragraph(analysis)]
     if not findings:
-        return ["None identified."]
-    return [f"{FINDING_LABELS[f.code]} — {lower_first(f.detail)}" for f in findings]
+        return [*head, "No high-risk finding identified."]
+    return head + [f"{FINDING_LABELS[f.code]} — {lower_first(f.detail)}" for f in findings]

@@ -135,7 +135,7 @@ def stage_wall_motion(analysis: Analysis, stage: Stage) -> str:
     parts = []
     for score in sorted(set(abnormal.values())):
         segs = [by_number[n] for n, v in abnormal.items() if v == score]
-        parts.append(f"{WALL_MOTION_WORDS[score]}: {named_segments(segs)}.")
+        parts.append(f"{sentence_case(WALL_MOTION_WORDS[score])}: {named_segments(segs)}.")
     rest = "Other segments normal." if len(abnormal) + len(unseen) < total else ""
     return " ".join(filter(None, [f"{wmsi_text}.", *parts, rest])) + unseen_text
 

@@ -14,13 +14,13 @@ from collections.abc import Iterable
 
 from reporting.kinetics.models import ReserveFlag
 from reporting.model import Protocol, Stage
-from reporting.results import Analysis, FindingCode, SegmentResult
+from reporting.results import Analysis, FindingCode, RiskLevel, SegmentResult
 from reporting.scoring import IschemiaExtent
 from reporting.settings import HeartRateFormula
+from reporting.wording import WALL_MOTION_WORDS as WALL_MOTION_WORDS
+from reporting.wording import sentence_case as sentence_case
 from reporting.wording import stage_words
 
-WALL_MOTION_WORDS = {2: "Hypokinetic", 3: "Akinetic", 4: "Dyskinetic", 5: "Aneurysmal"}
-WORST_WORDS = {2: "hypokinetic", 3: "akinetic", 4: "dyskinetic", 5: "aneurysmal"}
 EXTENT_WORDS = {
     IschemiaExtent.MILD: "mild extent",
     IschemiaExtent.MODERATE_SEVERE: "moderate–severe extent",
@@ -31,10 +31,25 @@ FINDING_LABELS = {
     FindingCode.MULTIVESSEL_ISCHEMIA: "Multivessel pattern",
     FindingCode.LOW_RESTING_EF: "Low resting ejection fraction",
     FindingCode.HIGH_PEAK_WMSI: "High peak WMSI",
-    FindingCode.ESV_RISE: "LV cavity dilation at stress",
-    FindingCode.EF_FALL: "Fall in ejection fraction at stress",
+    FindingCode.LV_DILATION: "LV cavity dilation at stress",
+    FindingCode.EF_FALL: "Severe stress-induced LV dysfunction",
     FindingCode.DUKE_HIGH_RISK: "High-risk Duke treadmill score",
+    FindingCode.HYPOTENSIVE_RESPONSE: "Hypotensive response to exercise",
+    FindingCode.LARGE_PERFUSION_DEFECT: "Large reversible perfusion defect",
+    FindingCode.REDUCED_RESTING_EF: "Reduced resting ejection fraction",
+    FindingCode.LIMITED_ISCHEMIA: "Limited inducible ischaemia",
+    FindingCode.MODERATE_PERFUSION_DEFECT: "Moderate reversible perfusion defect",
+    FindingCode.DUKE_INTERMEDIATE_RISK: "Intermediate-risk Duke treadmill score",
+    FindingCode.DUKE_LOW_RISK: "Low-risk Duke treadmill score",
+    FindingCode.NO_INDUCIBLE_ISCHEMIA: "No inducible ischaemia",
 }
+RISK_WORDS = {
+    RiskLevel.HIGH: "high risk (more than 3 % per year)",
+    RiskLevel.INTERMEDIATE: "intermediate risk (1–3 % per year)",
+    RiskLevel.LOW: "low risk (less than 1 % per year)",
+}
+"""Annual death or MI by band, noninvasive risk tables (Gibbons RJ et al., 2002; Fihn SD et al.,
+Circulation 2012, from memory)."""
 PROTOCOL_WORDS = {
     Protocol.DOBUTAMINE: "Dobutamine stress echocardiography",
     Protocol.TREADMILL: "Treadmill exercise stress echocardiography",
@@ -96,10 +111,6 @@ def dose_words(analysis: Analysis, stage: Stage) -> str:
 def stage_label(analysis: Analysis, stage: Stage) -> str:
     """``Peak (dobutamine 40 μg/kg/min)``: the stage, capitalised, with its drugs."""
     return sentence_case(stage_words(stage)) + dose_words(analysis, stage)
-
-
-def sentence_case(text: str) -> str:
-    return text[:1].upper() + text[1:]
 
 
 def lower_first(text: str) -> str:
