@@ -155,7 +155,8 @@ def test_perfusion_defects() -> None:
     assert a.perfusion.defect_extent_percent[Stage.REST] == pytest.approx(100 / 17)
     assert a.perfusion.defect_extent_percent[Stage.PEAK] == pytest.approx(100 * 3 / 16)
     assert a.perfusion.score_index[Stage.PEAK] == pytest.approx((13 + 2 + 3 + 2) / 16)
-    # A reversible perfusion defect alone makes the study ischaemic (CONTRACT.md).
+    # A reversible perfusion defect (normal at rest, abnormal at stress) alone is inducible
+    # ischaemia (Porter TR et al., JASE 2018;31:241, from memory).
     assert a.conclusion.ischemia and a.conclusion.ischemic_territories == [Territory.LAD]
 
 
@@ -314,7 +315,8 @@ def test_heart_rate_recovery(recovery: int | None, abnormal: bool | None) -> Non
 
 
 def test_worsening_rest_defect_is_flagged_not_called_ischaemia() -> None:
-    # CONTRACT.md: reversible = normal at rest, abnormal at peak; a worsening fixed defect is noted.
+    # Porter TR et al., JASE 2018;31:241 (from memory): reversible = normal at rest, abnormal at
+    # peak; a fixed defect that worsens is noted for review (common practice).
     s = stages(rest=NORMAL_17, peak=NORMAL_17)
     s["rest"]["perfusion"] = "211111 111111 1111 1"
     s["peak"]["perfusion"] = "311111 111111 1111 1"

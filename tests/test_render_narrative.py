@@ -292,7 +292,7 @@ def test_html_narrative_escapes_user_text() -> None:
 
 
 def test_packaged_templates_only_substitute_and_loop() -> None:
-    # STYLE.md: phrasing is decided in Python; templates hold no branching logic
+    # Design rule of this project: phrasing is decided in Python; templates hold no branching logic
     folder = resources.files("reporting.render").joinpath("templates")
     names = [p.name for p in folder.iterdir() if p.name.endswith(".j2")]
     assert {"narrative.txt.j2", "narrative.html.j2"} <= set(names)

@@ -6,6 +6,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
+from reporting.model import Stage
 from reporting.scoring import (
     IschemiaExtent,
     PerfusionResponse,
@@ -16,6 +17,7 @@ from reporting.scoring import (
     newly_abnormal,
     perfusion_response,
     score_index,
+    segment_course,
     wall_motion_response,
 )
 from reporting.segments import adjacency
@@ -104,7 +106,8 @@ def test_wmsi_worked_example() -> None:
 
 
 def test_defect_extent_counts_scores_of_two_or_more() -> None:
-    # CONTRACT.md: defect extent = segments scored >= 2 / segments scored x 100.
+    # Defect extent = segments with a defect (score >= 2) / segments scored x 100 (Porter TR et al.,
+    # JASE 2018;31:241, visual scale from memory; the percentage itself is common practice).
     assert defect_extent_percent([1] * 12 + [2, 2, 3] + [None, None]) == pytest.approx(100 * 3 / 15)
     assert defect_extent_percent([None]) is None
 
@@ -165,3 +168,70 @@ def test_every_score_triple_has_one_response(
     ):
         # Elhendy 1996; Sozzi 2007: an akinetic wall turning dyskinetic is never ischaemia.
         assert response is not R.ISCHEMIC
+
+
+REST, LOW, PEAK, REC = Stage.REST, Stage.LOW_DOSE, Stage.PEAK, Stage.RECOVERY
+X = None  # not visualised / stage not imaged
+
+# Hand-worked courses: (rest, low dose, peak, recovery) -> (response, baseline, onset, implausible).
+COURSE_CASES = [
+    # Recovery (post-stress) counts: Marwick TH, Heart 2003;89:113, table 1 ("peak/post-stress"
+    # against rest); Karagiannis SE et al., Coron Artery Dis 2007;18:187.
+    ((1, X, 1, 2), (R.ISCHEMIC, REST, REC, ()), "new hypokinesis seen only in recovery"),
+    ((1, X, X, 3), (R.ISCHEMIC, REST, REC, ()), "no peak view, new akinesis in recovery"),
+    ((2, X, 2, 3), (R.ISCHEMIC, REST, REC, ()), "hypokinesis worsening only in recovery"),
+    ((1, X, 2, 1), (R.ISCHEMIC, REST, PEAK, ()), "new at peak, resolved in recovery"),
+    ((1, 2, 1, 1), (R.ISCHEMIC, REST, LOW, ()), "new at low dose"),
+    ((2, 1, 2, X), (R.BIPHASIC, REST, PEAK, ()), "biphasic: onset at peak"),
+    ((1, X, 1, 1), (R.NORMAL, REST, X, ()), "normal throughout with recovery"),
+    ((3, X, 3, 4), (R.AKINETIC_TO_DYSKINETIC, REST, X, ()), "akinetic bulging in recovery"),
+    # Baseline when rest is not seen (common practice): low dose becomes the baseline.
+    ((X, 1, 1, X), (R.NORMAL, LOW, X, ()), "rest unseen, normal from low dose"),
+    ((X, 1, 2, X), (R.ISCHEMIC, LOW, PEAK, ()), "rest unseen, new at peak against low dose"),
+    ((X, 1, X, 2), (R.ISCHEMIC, LOW, REC, ()), "rest unseen, new in recovery"),
+    (
+        (X, 2, 2, X),
+        (R.ABNORMAL_AT_LOW_DOSE, LOW, X, ()),
+        "abnormal at low-dose baseline: not fixed",
+    ),
+    ((X, 3, 3, 3), (R.ABNORMAL_AT_LOW_DOSE, LOW, X, ()), "akinetic from low dose: not fixed"),
+    ((X, 2, 3, X), (R.ISCHEMIC, LOW, PEAK, ()), "abnormal at low dose, worse at peak"),
+    ((X, X, 1, 1), (R.NOT_ASSESSABLE, X, X, ()), "no baseline"),
+    ((1, 1, X, X), (R.NOT_ASSESSABLE, REST, X, ()), "neither peak nor recovery saw it"),
+    # Aneurysmal only at stress is implausible, an entry error to confirm (common practice): from
+    # an akinetic or dyskinetic baseline it is read as unchanged, never akinetic -> dyskinetic.
+    ((4, X, 5, X), (R.FIXED, REST, X, (PEAK,)), "dyskinetic then aneurysmal at peak"),
+    ((3, 3, 5, X), (R.FIXED, REST, X, (PEAK,)), "akinetic then aneurysmal at peak"),
+    ((4, 5, 4, X), (R.FIXED, REST, X, (LOW,)), "aneurysmal at low dose only"),
+    ((1, X, 5, X), (R.ISCHEMIC, REST, PEAK, (PEAK,)), "normal then aneurysmal: new, flagged"),
+    ((5, 5, 5, X), (R.FIXED, REST, X, ()), "aneurysmal throughout is plausible"),
+]
+
+
+@pytest.mark.parametrize(
+    "scores,expected", [c[:2] for c in COURSE_CASES], ids=[c[2] for c in COURSE_CASES]
+)
+def test_segment_course(
+    scores: tuple[int | None, ...],
+    expected: tuple[WallMotionResponse, Stage | None, Stage | None, tuple[Stage, ...]],
+) -> None:
+    course = segment_course(dict(zip((REST, LOW, PEAK, REC), scores, strict=True)))
+    assert (
+        course.response,
+        course.baseline_stage,
+        course.worse_from,
+        course.implausible_stages,
+    ) == expected
+
+
+@given(st.tuples(*[st.one_of(st.none(), st.integers(1, 5))] * 4))
+def test_fixed_never_from_a_low_dose_baseline(scores: tuple[int | None, ...]) -> None:
+    # A segment first seen abnormal at low dose is never "fixed" (common practice), and a segment
+    # is not assessable exactly when it has no baseline or no peak or recovery view.
+    course = segment_course(dict(zip((REST, LOW, PEAK, REC), scores, strict=True)))
+    rest, low, peak, rec = scores
+    if rest is None:
+        assert course.response is not R.FIXED
+    unseen = (rest is None and low is None) or (peak is None and rec is None)
+    assert (course.response is R.NOT_ASSESSABLE) is unseen
+    assert (course.worse_from is not None) is (course.response in (R.ISCHEMIC, R.BIPHASIC))

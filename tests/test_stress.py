@@ -8,8 +8,10 @@ from reporting.settings import HeartRateFormula, default_settings
 from reporting.stress import (
     DukeRisk,
     age_predicted_max_hr,
+    assess_adequacy,
     duke_risk,
     duke_treadmill_score,
+    exercise_hypotension,
     rate_pressure_product,
 )
 
@@ -31,7 +33,7 @@ def test_tanaka_formula() -> None:
 
 
 def test_rate_pressure_product() -> None:
-    # Rate-pressure product = heart rate x systolic pressure (FACTS.md section 3, secondary source).
+    # Rate-pressure product = heart rate x systolic pressure (common practice).
     assert rate_pressure_product(150, 160) == 24_000
 
 
@@ -56,3 +58,77 @@ def test_duke_score_and_band(
     value = duke_treadmill_score(*inputs)
     assert value == pytest.approx(score)
     assert duke_risk(value, s.duke_low_risk_min, s.duke_high_risk_max) is risk
+
+
+# Exercise-induced hypotension (Gibbons RJ et al., ACC/AHA exercise testing guideline update 2002,
+# from memory): peak systolic pressure below rest, or a fall > 10 mmHg from the highest exercise
+# pressure; not graded with one exercise pressure above rest.
+#   rest, exercise pressures (last = peak) -> hypotensive?
+HYPOTENSION_CASES = [
+    (130, [160, 180], False, "rising pressure"),
+    (130, [125], True, "single exercise pressure below rest"),
+    (130, [140], False, "single exercise pressure above rest: not graded"),
+    (130, [170, 159], True, "fall of 11 mmHg from the highest exercise pressure"),
+    (130, [170, 160], False, "fall of exactly 10 mmHg is not more than 10"),
+    (None, [170, 150], True, "no rest pressure, fall of 20 during exercise"),
+    (130, [], False, "no exercise pressure"),
+]
+
+
+@pytest.mark.parametrize(
+    "rest,during,hypotensive",
+    [c[:3] for c in HYPOTENSION_CASES],
+    ids=[c[3] for c in HYPOTENSION_CASES],
+)
+def test_exercise_hypotension(rest: int | None, during: list[int], hypotensive: bool) -> None:
+    fall = default_settings().exercise_sbp_fall_high_risk_above_mmhg
+    assert fall == 10  # Gibbons 2002 (from memory): > 10 mmHg
+    assert (exercise_hypotension(rest, during, fall) is not None) is hypotensive
+
+
+# Adequacy: 85 % of 220 - age (Fox 1971 [S]; a negative study below it is non-diagnostic:
+# Ballal RS et al., 1997); vasodilator stress is not rate-dependent (common practice).
+#   rate-dependent, stress imaged, peak, age, peak HR -> adequate, note
+ADEQUACY_CASES = [
+    (True, True, True, 60, 136, True, "Peak heart rate 136 bpm reached the target of 136 bpm (85 % of the age-predicted maximum 160 bpm)."),
+    (True, True, True, 60, 135, False, "Peak heart rate 135 bpm did not reach the target of 136 bpm (85 % of the age-predicted maximum 160 bpm)."),
+    (True, False, False, 60, None, False, "No stress images were recorded."),
+    (False, False, False, 60, None, False, "No stress images were recorded."),
+    (False, True, True, 60, 80, True, "Vasodilator stress: the heart-rate target does not apply."),
+    (True, True, False, 60, 150, False, "No peak stage was recorded, so adequacy is not established."),
+    (True, True, True, None, 150, False, "Age unknown: the target heart rate cannot be computed, so adequacy is not established."),
+]  # fmt: skip
+
+
+@pytest.mark.parametrize(
+    "rate,imaged,peak,age,hr,adequate,note",
+    ADEQUACY_CASES,
+    ids=[
+        "reached",
+        "below",
+        "no stress",
+        "vasodilator no stress",
+        "vasodilator",
+        "no peak",
+        "no age",
+    ],
+)
+def test_assess_adequacy(
+    rate: bool,
+    imaged: bool,
+    peak: bool,
+    age: int | None,
+    hr: int | None,
+    adequate: bool,
+    note: str,
+) -> None:
+    verdict = assess_adequacy(
+        rate_dependent=rate,
+        stress_imaged=imaged,
+        peak_recorded=peak,
+        age_years=age,
+        peak_hr_bpm=hr,
+        predicted_bpm=None if age is None else age_predicted_max_hr(age, HeartRateFormula.FOX),
+        target_fraction=0.85,
+    )
+    assert (verdict.adequate, verdict.note) == (adequate, note)

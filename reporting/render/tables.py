@@ -16,7 +16,7 @@ from reportlab.platypus import Flowable, Table, TableStyle
 
 from reporting.render import diagram, narrative, style
 from reporting.render.pdf.styles import dash, paragraph
-from reporting.results import Analysis
+from reporting.results import Analysis, TerritoryResult, TerritoryStatus
 from reporting.segments import Territory
 from reporting.wording import number_list
 
@@ -83,7 +83,7 @@ def territory_table(analysis: Analysis, width: float, st: dict[str, ParagraphSty
         t = analysis.territories[territory]
         cells = [territory.value, number_list(t.segments) or "none under this map"]
         cells += [_fmt(t.wmsi.get(s)) for s in stages]
-        cells.append(number_list(t.ischemic_segments) or "none")
+        cells.append(_ischemic_cell(t))
         if perfusion:
             parts = []
             if t.reversible_perfusion_segments:
@@ -102,7 +102,7 @@ def territory_table(analysis: Analysis, width: float, st: dict[str, ParagraphSty
         f"{len(analysis.segments)} segments",
         *[_fmt(analysis.wmsi.get(s)) for s in stages],
     ]
-    glob.append(str(analysis.conclusion.ischemic_segment_count))
+    glob.append(str(len(analysis.conclusion.ischemic_segments)))
     if perfusion:
         glob.append(
             f"{len(analysis.perfusion.reversible_segments) + len(analysis.perfusion.partially_reversible_segments)} reversible, {len(analysis.perfusion.fixed_segments)} fixed"
@@ -119,6 +119,16 @@ def territory_table(analysis: Analysis, width: float, st: dict[str, ParagraphSty
     if kinetics is not None:
         widths.append(fixed[-1] * width)
     return data_table(rows, widths, st, bold_rows=(0, -1), bold_first_column=True)
+
+
+def _ischemic_cell(t: TerritoryResult) -> str:
+    """Wall-motion ischaemic segments, then perfusion-only ones, or the territory's status."""
+    if t.status is TerritoryStatus.NON_DIAGNOSTIC:
+        return "non-diagnostic (not seen at baseline and stress)"
+    parts = [number_list(t.ischemic_segments)] if t.ischemic_segments else []
+    if t.ischemic_perfusion_segments:
+        parts.append(f"{number_list(t.ischemic_perfusion_segments)} (perfusion)")
+    return "; ".join(parts) or "none"
 
 
 def _fmt(value: float | None) -> str:

@@ -23,7 +23,7 @@ from reporting.render.narrative.document import (
     narrative_text,
     text_blocks,
 )
-from reporting.render.narrative.impression import summary
+from reporting.render.narrative.impression import risk_fact, summary
 from reporting.render.narrative.sections import stress_paragraphs
 from reporting.render.narrative.words import signed
 from reporting.wording import shown_percent, shown_target_bpm
@@ -37,6 +37,7 @@ __all__ = [
     "environment",
     "narrative_html",
     "narrative_text",
+    "risk_fact",
     "shown_percent",
     "shown_target_bpm",
     "signed",

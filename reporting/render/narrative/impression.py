@@ -215,6 +215,12 @@ def territory_sentence(analysis: Analysis, territory: Territory) -> str:
     return f"{territory.value} ({segments_phrase(t.segments)}): {'; '.join(parts)}.{tail}"
 
 
+def risk_fact(analysis: Analysis) -> str:
+    """``intermediate risk`` or ``risk not graded``, for the answer box."""
+    risk = analysis.conclusion.risk
+    return "risk not graded" if risk is RiskLevel.NOT_GRADED else f"{risk.value} risk"
+
+
 def risk_paragraph(analysis: Analysis) -> str:
     """``Risk: intermediate risk (1–3 % per year) by the noninvasive risk tables; criteria met: …``"""
     c = analysis.conclusion

@@ -14,7 +14,7 @@ from reportlab.platypus import Flowable, Spacer, Table, TableStyle
 from reporting.model import Stage
 from reporting.render import narrative, style
 from reporting.render.pdf.styles import Styles, dash, labelled, paragraph, sentence
-from reporting.results import Analysis, DiagnosticStatus
+from reporting.results import Analysis, DiagnosticStatus, NonDiagnosticReason
 
 STATUS_COLOURS = {
     DiagnosticStatus.ISCHEMIA: style.OKABE_ITO["vermillion"],
@@ -117,7 +117,11 @@ def answer_box(analysis: Analysis, width: float, st: Styles) -> Table:
             else ""
         )
         facts.append(f"peak heart rate {s.peak_hr_bpm} bpm{pct}")
-    facts.append("adequate stress" if s.adequate else "stress not adequate")
+    if c.non_diagnostic_reason is NonDiagnosticReason.NO_STRESS_IMAGES:
+        facts.append("no stress images")
+    else:
+        facts.append("adequate stress" if s.adequate else "stress not adequate")
+    facts.append(narrative.risk_fact(analysis))
     count = len(c.high_risk_findings)
     facts.append(
         f"{count} high-risk finding{'s' if count != 1 else ''}" if count else "no high-risk finding"
