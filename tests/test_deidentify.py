@@ -382,6 +382,8 @@ REVIEWED = {
     "kinetics.cross_checks.source": "published source",
     "kinetics.criteria.name": "setting name",
     "kinetics.criteria.source": "published source",
+    "conclusion.risk_criteria.detail": "computed from scores and measurements",
+    "conclusion.risk_criteria.source": "published source",
 }
 
 

@@ -325,9 +325,10 @@ def test_unusual_studies_render(case: str) -> None:
 
 def test_rest_only_study_says_why_it_is_non_diagnostic() -> None:
     analysis = analyze(study_from_data(EDGE_STUDIES["rest-only"]))
-    assert summary(analysis) == (
-        "Non-diagnostic for ischaemia: no ischaemia was shown, but no peak stage was recorded."
-    )
+    # A study with no stress stage says "no stress images", not "stress not adequate" (issue 12).
+    assert summary(analysis) == "Non-diagnostic for ischaemia: no stress images were recorded."
+    assert "no stress images" in _text(pdf_bytes(analysis))
+    assert "stress not adequate" not in _text(pdf_bytes(analysis))
 
 
 def _kinetics_demo(folder: Path) -> Analysis:
