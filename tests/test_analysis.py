@@ -257,6 +257,11 @@ def test_record_has_contract_keys() -> None:
         "rate_pressure_product", "duke_treadmill_score", "duke_risk",
     }  # fmt: skip
     assert set(r["conclusion"]) >= {"ischemia", "ischemic_territories", "high_risk_findings"}
+    # Added in the second round (issue 12): territory and study status, risk with its criteria.
+    assert {t["status"] for t in r["territories"].values()} == {"no_ischemia"}
+    assert (r["conclusion"]["status"], r["conclusion"]["multivessel"]) == ("no_ischemia", False)
+    assert r["conclusion"]["risk"] == "low"
+    assert [c["code"] for c in r["conclusion"]["risk_criteria"]] == ["no_inducible_ischemia"]
     assert list(r["wmsi"]) == ["rest", "peak"]
 
 
@@ -358,13 +363,20 @@ def test_curve_file_must_stay_beside_the_study(tmp_path: Path, path: str) -> Non
 
     data = study_dict(perfusion_curves=path, contrast={"administration": "infusion"})
     (tmp_path / "s.json").write_text(json.dumps(data))
-    with pytest.raises(InputError, match="must be a path inside the study's folder"):
+    with pytest.raises(InputError) as caught:
         analyze_file(tmp_path / "s.json")
+    # The whole message: where (the study file's key) and what (the path as written).
+    assert str(caught.value) == (
+        f"{tmp_path / 's.json'}: perfusion_curves: {path!r} must be a path inside the study's folder"
+    )
 
 
 def test_unknown_territory_map_option_lists_built_ins(tmp_path: Path) -> None:
     from reporting.errors import InputError
 
     (tmp_path / "s.json").write_text(json.dumps(study_dict()))
-    with pytest.raises(InputError, match="neither a built-in map"):
+    with pytest.raises(InputError) as caught:
         analyze_file(tmp_path / "s.json", territory_map="bogus")
+    assert str(caught.value) == (
+        "--territory-map: 'bogus' is neither a built-in map (standard, left_dominant) nor a file"
+    )

@@ -39,7 +39,9 @@ def test_demo_writes_studies_and_records(tmp_path: Path) -> None:
     assert result.exit_code == 0, result.output
     records = sorted(tmp_path.glob("*.record.json"))
     studies = sorted(tmp_path.glob("DEMO-*.yaml"))
-    assert len(records) >= 5 and len(studies) == len(records)
+    expected = [f"DEMO-000{n}" for n in range(1, 7)]  # the six invented demo studies
+    assert [p.name.removesuffix(".yaml") for p in studies] == expected
+    assert [p.name.removesuffix(".record.json") for p in records] == expected
     for path in records:
         record = json.loads(path.read_text())
         assert record["study"]["id"] == path.name.removesuffix(".record.json")

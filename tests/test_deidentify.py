@@ -251,8 +251,7 @@ def test_ages_over_89_are_grouped_with_everything_that_reveals_them(tmp_path: Pa
 
 def test_curve_file_name_is_removed_from_kinetics() -> None:
     demo = Path(__file__).parent.parent / "reporting" / "data" / "demo" / "DEMO-0006.yaml"
-    if not demo.exists():
-        pytest.skip("no demo study with curves")
+    assert demo.exists(), "DEMO-0006 is the demo study with curves; this check must not be skipped"
     original = analyze_file(demo)
     assert original.kinetics is not None and original.kinetics.source_file
     clean = deidentify(original, KEY)
