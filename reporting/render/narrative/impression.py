@@ -144,18 +144,12 @@ def territory_sentence(analysis: Analysis, territory: Territory) -> str:
             n for n in t.ischemic_segments if by_number[n].ischemia_onset_stage is Stage.RECOVERY
         ]
         if in_recovery:
+            worst_after = max(
+                by_number[n].wall_motion.get(Stage.RECOVERY) or 0 for n in in_recovery
+            )
+            at_worst = f", at worst {WALL_MOTION_WORDS[worst_after]}" if worst_after > 1 else ""
             parts.append(
-                f"seen in recovery (after stress) in {segments_phrase(in_recovery)}"
-                + (
-                    ", at worst " + WALL_MOTION_WORDS[w]
-                    if (
-                        w := max(
-                            by_number[n].wall_motion.get(Stage.RECOVERY) or 0 for n in in_recovery
-                        )
-                    )
-                    > 1
-                    else ""
-                )
+                f"seen in recovery (after stress) in {segments_phrase(in_recovery)}{at_worst}"
             )
         wrapped = [n for n in t.ischemic_segments if n in analysis.conclusion.wrap_around_segments]
         if wrapped:
