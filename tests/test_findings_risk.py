@@ -8,14 +8,17 @@ al., Circulation 2002;105:539: LAD 1,2,7,8,13,14,17; RCA 3,4,9,10,15; LCx 5,6,11
 
 from __future__ import annotations
 
+import io
 from typing import Any
 
 import pytest
 from conftest import NORMAL_17, analysed, stages, study_dict
+from pypdf import PdfReader
 
 from reporting.analysis import analyze
 from reporting.load import study_from_data
 from reporting.model import Stage
+from reporting.render import pdf_bytes
 from reporting.render.narrative import narrative_text
 from reporting.results import (
     DiagnosticStatus,
@@ -431,3 +434,20 @@ def test_risk_band(
     c = analysed(stages=s, protocol=protocol).conclusion
     assert (c.risk, [r.code for r in c.risk_criteria]) == (risk, criteria)
     assert all(r.level is risk for r in c.risk_criteria)
+
+
+def test_pdf_shows_perfusion_only_ischaemia_and_the_risk_band() -> None:
+    # The territory table agrees with the headline (issue 12): perfusion-only segment 10 (RCA) is
+    # listed beside the wall-motion ones, and the answer box gives the risk band (one reversible
+    # segment = 5.9 % of the myocardium: intermediate, Fihn SD et al., Circulation 2012, from memory).
+    s = stages(rest=NORMAL_17, peak=NORMAL_17)
+    s["rest"]["perfusion"], s["peak"]["perfusion"] = NORMAL_17, "111111 111211 1111 1"
+    a = analysed(stages=s, contrast={"administration": "infusion"})
+    reader = PdfReader(io.BytesIO(pdf_bytes(a)))
+    text = " ".join(" ".join(p.extract_text() for p in reader.pages).split())
+    assert "10 (perfusion)" in text
+    assert "adequate stress; intermediate risk; no high-risk finding" in text
+    assert (
+        "Risk: intermediate risk (1–3 % per year) by the noninvasive risk tables; criteria met: "
+        "moderate reversible perfusion defect and limited inducible ischaemia." in text
+    )
