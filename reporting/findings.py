@@ -69,7 +69,7 @@ def high_risk_findings(
                 context = f" ({', '.join(when)})" if when else ""
                 add(
                     FindingCode.LOW_THRESHOLD_ISCHEMIA,
-                    f"{len(worse)} segments newly abnormal at {stage.value.replace('_', ' ')}{context}: {number_list(worse)}.",
+                    f"{len(worse)} segments newly abnormal at {stage_words(stage, study.protocol)}{context}: {number_list(worse)}.",
                     "low_threshold_abnormal_segments_min",
                 )
                 break
@@ -150,13 +150,15 @@ def quality_notes(
         notes.append(
             Note(
                 kind=NoteKind.NOT_VISUALISED,
-                text=f"Not visualised at {stage_words(stage)}: segments {number_list(unseen)}.",
+                text=f"Not visualised at {stage_words(stage, study.protocol)}: segments {number_list(unseen)}.",
                 source=None,
             )
         )
         groups = scoring.connected_groups(unseen, touching)
         if groups and len(groups[0]) >= settings.contrast_suggest_contiguous_not_visualised_min:
-            suggest_at.append(f"{stage_words(stage)} (segments {number_list(groups[0])})")
+            suggest_at.append(
+                f"{stage_words(stage, study.protocol)} (segments {number_list(groups[0])})"
+            )
     if suggest_at and study.contrast is None:
         notes.append(
             Note(

@@ -213,12 +213,13 @@ def test_multivessel_wording() -> None:
 @pytest.mark.parametrize(
     ("recovery", "expected"),
     [
-        # Cole CR et al., NEJM 1999;341:1351: a fall of 12 bpm or less in the first minute is abnormal
-        (12, ": abnormal, at or below the cut-off (Cole CR et al., NEJM 1999)."),
-        (13, ": normal (Cole CR et al., NEJM 1999)."),
+        # Watanabe J et al., Circulation 2001;104:1911: in stress echo a fall of 18 bpm or less in
+        # the first minute is abnormal
+        (18, ": abnormal, at or below the cut-off of 18 bpm (Watanabe J et al., Circulation 2001)."),
+        (19, ": normal, above the cut-off of 18 bpm (Watanabe J et al., Circulation 2001)."),
         (
             -3,
-            ": abnormal, at or below the cut-off (Cole CR et al., NEJM 1999).",
+            ": abnormal, at or below the cut-off of 18 bpm (Watanabe J et al., Circulation 2001).",
         ),  # rate still rising
     ],
     ids=["at-cut-off", "above-cut-off", "negative"],
