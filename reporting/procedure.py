@@ -185,13 +185,22 @@ class _Input(BaseModel):
     )
 
 
-def _exclusive_none(values: list[Any], none: Any) -> list[Any]:
-    """A list of categories with no repeats, where ``none`` stands alone."""
-    if len(set(values)) != len(values):
-        raise PydanticCustomError("duplicate", "an entry is given twice", {})
-    if none in values and len(values) > 1:
+def _categories(values: list[Any], alone: StrEnum | None) -> list[Any]:
+    """A list of categories: at least one, no repeats, and ``alone`` (none/normal) by itself."""
+    if not values:
         raise PydanticCustomError(
-            "none_with_others", "'none' cannot be combined with other entries", {}
+            "empty_list", "give at least one entry, or leave the field out when not recorded", {}
+        )
+    repeated = sorted({str(v.value) for v in values if values.count(v) > 1})
+    if repeated:
+        raise PydanticCustomError(
+            "duplicate", "{entries} given more than once", {"entries": ", ".join(repeated)}
+        )
+    if alone is not None and alone in values and len(values) > 1:
+        raise PydanticCustomError(
+            "alone_with_others",
+            "'{alone}' cannot be combined with other entries",
+            {"alone": alone.value},
         )
     return values
 
@@ -220,45 +229,42 @@ class Procedure(_Input):
     )
     baseline_ecg: list[BaselineEcg] | None = Field(
         default=None,
-        min_length=1,
         description="Findings on the resting ECG ('normal' stands alone).",
     )
     medications: Medications | None = Field(
         default=None, description="Medications relevant to the test."
     )
     stop_reasons: list[StopReason] | None = Field(
-        default=None, min_length=1, description="Why stress was stopped (one or more)."
+        default=None, description="Why stress was stopped (one or more)."
     )
     complications: list[Complication] | None = Field(
         default=None,
-        min_length=1,
         description="Complications other than arrhythmias ('none' stands alone).",
     )
     arrhythmias: list[Arrhythmia] | None = Field(
         default=None,
-        min_length=1,
         description="Arrhythmias during stress or recovery ('none' stands alone).",
     )
 
     @field_validator("baseline_ecg")
     @classmethod
-    def _ecg_alone(cls, value: list[BaselineEcg] | None) -> list[BaselineEcg] | None:
-        return None if value is None else _exclusive_none(value, BaselineEcg.NORMAL)
+    def _ecg(cls, value: list[BaselineEcg] | None) -> list[BaselineEcg] | None:
+        return None if value is None else _categories(value, BaselineEcg.NORMAL)
 
     @field_validator("stop_reasons")
     @classmethod
-    def _reasons_distinct(cls, value: list[StopReason] | None) -> list[StopReason] | None:
-        return None if value is None else _exclusive_none(value, None)
+    def _stop_reasons(cls, value: list[StopReason] | None) -> list[StopReason] | None:
+        return None if value is None else _categories(value, None)
 
     @field_validator("complications")
     @classmethod
-    def _complications_alone(cls, value: list[Complication] | None) -> list[Complication] | None:
-        return None if value is None else _exclusive_none(value, Complication.NONE)
+    def _complications(cls, value: list[Complication] | None) -> list[Complication] | None:
+        return None if value is None else _categories(value, Complication.NONE)
 
     @field_validator("arrhythmias")
     @classmethod
-    def _arrhythmias_alone(cls, value: list[Arrhythmia] | None) -> list[Arrhythmia] | None:
-        return None if value is None else _exclusive_none(value, Arrhythmia.NONE)
+    def _arrhythmias(cls, value: list[Arrhythmia] | None) -> list[Arrhythmia] | None:
+        return None if value is None else _categories(value, Arrhythmia.NONE)
 
 
 class Vasodilator(_Input):
