@@ -394,7 +394,7 @@ def test_narrative_gives_the_conduct_and_the_readers_text_in_their_sections() ->
     assert blocks["Test conduct"] == [
         "Resting ECG: sinus rhythm, ST depression at rest.",
         "Beta-blocker withheld before the test; nitrate not prescribed.",
-        "Stress stopped for: fatigue, angina.",
+        "Exercise stopped for: fatigue, angina.",
         "Complications: none.",
         "Arrhythmias: ventricular ectopic beats.",
         "Image quality: good at rest, adequate at peak exercise.",
@@ -406,14 +406,15 @@ def test_narrative_gives_the_conduct_and_the_readers_text_in_their_sections() ->
 
 
 def test_vasodilator_sentence_gives_agent_dose_and_unit() -> None:
-    blocks = dict(
-        text_blocks(
-            narrative_text(
-                _analysed(**VASODILATOR, vasodilator={"agent": "dipyridamole", "dose_mg_kg": 0.84})
-            )
-        )
+    analysis = _analysed(
+        **VASODILATOR,
+        vasodilator={"agent": "dipyridamole", "dose_mg_kg": 0.84},
+        procedure={"stop_reasons": ["protocol_complete"]},
     )
-    assert blocks["Test conduct"] == ["Vasodilator: dipyridamole 0.84 mg/kg."]
+    assert dict(text_blocks(narrative_text(analysis)))["Test conduct"] == [
+        "Vasodilator: dipyridamole 0.84 mg/kg.",
+        "Stress stopped for: protocol completed.",  # "Exercise stopped" only in exercise studies
+    ]
 
 
 def test_reader_sections_follow_the_computed_impression_and_are_left_out_when_absent() -> None:
@@ -435,7 +436,7 @@ def test_pdf_shows_the_study_data() -> None:
         "Test conduct",
         "Resting ECG: sinus rhythm, ST depression at rest.",
         "Beta-blocker withheld before the test",
-        "Stress stopped for: fatigue, angina.",
+        "Exercise stopped for: fatigue, angina.",
         "Arrhythmias: ventricular ectopic beats.",
         "Image quality: good at rest, adequate at peak exercise.",
         "Other echocardiographic findings",

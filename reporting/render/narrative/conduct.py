@@ -10,6 +10,7 @@ sentence prints the cut-off the record used and names the source only for the pu
 
 from __future__ import annotations
 
+from reporting.model import EXERCISE_PROTOCOLS
 from reporting.procedure import (
     Arrhythmia,
     BaselineEcg,
@@ -118,7 +119,8 @@ def conduct_paragraphs(analysis: Analysis) -> list[str]:
     if p.vasodilator is not None:
         out.append(vasodilator_sentence(p.vasodilator))
     if p.stop_reasons:
-        out.append(f"Stress stopped for: {', '.join(STOP_WORDS[r] for r in p.stop_reasons)}.")
+        what = "Exercise" if analysis.protocol in EXERCISE_PROTOCOLS else "Stress"
+        out.append(f"{what} stopped for: {', '.join(STOP_WORDS[r] for r in p.stop_reasons)}.")
     if p.complications:
         out.append(f"Complications: {', '.join(COMPLICATION_WORDS[c] for c in p.complications)}.")
     if p.arrhythmias:
