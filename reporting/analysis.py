@@ -25,6 +25,7 @@ from reporting.results import (
     NoteKind,
     PatientSummary,
     PerfusionResult,
+    ProcedureSummary,
     SegmentResult,
     StageHaemodynamics,
     StressResult,
@@ -194,6 +195,10 @@ def analyze(
             report_status=study.study.report_status,
             indication=study.indication,
             comments=study.comments,
+            referral_question=study.referral_question,
+            impression=study.impression,
+            recommendations=study.recommendations,
+            other_findings=study.other_findings,
         ),
         patient=PatientSummary(
             id=study.patient.id,
@@ -219,6 +224,7 @@ def analyze(
         perfusion=perfusion,
         kinetics=kinetics,
         stress=stress_result,
+        procedure=ProcedureSummary.from_study(study),
         conclusion=answer,
         notes=notes,
         cautions=list(CAUTIONS),
@@ -413,9 +419,15 @@ def _stress_result(study: Study, settings: Settings) -> tuple[StressResult, list
         max_st_deviation_mm=ex.max_st_deviation_mm if ex else None,
         angina_index=ex.angina_index if ex else None,
         hr_recovery_1min_bpm=recovery,
-        hr_recovery_abnormal=recovery <= settings.hr_recovery_abnormal_max_bpm
-        if recovery is not None
-        else None,
+        hr_recovery_abnormal=None
+        if recovery is None
+        else stress.hr_recovery_abnormal(recovery, settings.hr_recovery_abnormal_max_bpm),
+        hr_recovery_abnormal_max_bpm=None
+        if recovery is None
+        else settings.hr_recovery_abnormal_max_bpm,
+        hr_recovery_source=None
+        if recovery is None
+        else settings.cited("hr_recovery_abnormal_max_bpm"),
     )
     return result, notes
 

@@ -151,7 +151,7 @@ def _low_threshold(study: Study, settings: Settings, segments: list[SegmentResul
             if data.heart_rate_bpm is not None:
                 when.append(f"heart rate {data.heart_rate_bpm} bpm")
             context = f" ({', '.join(when)})" if when else ""
-            return f"{len(worse)} segments newly abnormal or worse by {stage_words(stage)}{context}: {number_list(worse)}."
+            return f"{len(worse)} segments newly abnormal or worse by {stage_words(stage, study.protocol)}{context}: {number_list(worse)}."
     return None
 
 
@@ -274,13 +274,15 @@ def quality_notes(
         notes.append(
             Note(
                 kind=NoteKind.NOT_VISUALISED,
-                text=f"Not visualised at {stage_words(stage)}: segments {number_list(unseen)}.",
+                text=f"Not visualised at {stage_words(stage, study.protocol)}: segments {number_list(unseen)}.",
                 source=None,
             )
         )
         groups = scoring.connected_groups(unseen, touching)
         if groups and len(groups[0]) >= settings.contrast_suggest_contiguous_not_visualised_min:
-            suggest_at.append(f"{stage_words(stage)} (segments {number_list(groups[0])})")
+            suggest_at.append(
+                f"{stage_words(stage, study.protocol)} (segments {number_list(groups[0])})"
+            )
     if suggest_at and study.contrast is None:
         notes.append(
             Note(

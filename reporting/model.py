@@ -27,6 +27,7 @@ from pydantic import (
 )
 from pydantic_core import ErrorDetails, InitErrorDetails, PydanticCustomError
 
+from reporting.procedure import ImageQuality, Procedure, Vasodilator
 from reporting.segments import SegmentModel
 from reporting.wording import number_ranges
 
@@ -319,6 +320,9 @@ class StageData(_Input):
         max_length=2000,
         description="Symptoms, ECG changes or events at this stage (free text).",
     )
+    image_quality: ImageQuality | None = Field(
+        default=None, description="Image quality at this stage: good, adequate or poor."
+    )
 
 
 class Exercise(_Input):
@@ -415,6 +419,35 @@ class Study(_Input):
         max_length=5000,
         description="Reader's free-text comments, printed in the report.",
     )
+    # --- study data a lab records (issue 12) ---
+    referral_question: str | None = Field(
+        default=None,
+        max_length=2000,
+        description="The question the referring doctor asks of the test (free text).",
+    )
+    impression: str | None = Field(
+        default=None,
+        max_length=5000,
+        description="The reader's own impression, in the reader's words (free text).",
+    )
+    recommendations: str | None = Field(
+        default=None,
+        max_length=5000,
+        description="The reader's recommendations (free text).",
+    )
+    other_findings: str | None = Field(
+        default=None,
+        max_length=5000,
+        description="Other echocardiographic findings, e.g. valves or pericardium (free text).",
+    )
+    procedure: Procedure | None = Field(
+        default=None,
+        description="How the test was run: baseline rhythm and ECG, medications, why it stopped, "
+        "complications and arrhythmias.",
+    )
+    vasodilator: Vasodilator | None = Field(
+        default=None, description="Vasodilator agent and dose (vasodilator studies only)."
+    )
 
     @model_validator(mode="wrap")
     @classmethod
@@ -458,6 +491,22 @@ class Study(_Input):
         )
         if problems:
             raise ValidationError.from_exception_data("Study", problems)
+        return self
+
+    @model_validator(mode="after")
+    def _vasodilator_only_for_vasodilator_stress(self) -> Study:
+        if self.vasodilator is not None and self.protocol is not Protocol.VASODILATOR:
+            raise ValidationError.from_exception_data(
+                "Study",
+                [
+                    _problem(
+                        ("vasodilator",),
+                        f"a vasodilator agent is recorded but the protocol is "
+                        f"{self.protocol.value}; use protocol: vasodilator or remove it",
+                        self.vasodilator.agent.value,
+                    )
+                ],
+            )
         return self
 
     def age_years(self) -> int | None:

@@ -15,7 +15,17 @@ from typing import Any, Literal
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from reporting.kinetics.models import KineticsResult
-from reporting.model import Protocol, ReportStatus, Sex, Stage
+from reporting.model import Protocol, ReportStatus, Sex, Stage, Study
+from reporting.procedure import (
+    Arrhythmia,
+    BaselineEcg,
+    BaselineRhythm,
+    Complication,
+    ImageQuality,
+    MedicationUse,
+    StopReason,
+    VasodilatorAgent,
+)
 from reporting.scoring import IschemiaExtent, PerfusionResponse, WallMotionResponse
 from reporting.segments import Ring, SegmentModel, Territory
 from reporting.settings import HeartRateFormula
@@ -55,6 +65,18 @@ class StudyHeader(_Result):
     report_status: ReportStatus = Field(description="preliminary or final.")
     indication: str | None = Field(description="Reason for the test.")
     comments: str | None = Field(description="Reader's comments.")
+    referral_question: str | None = Field(
+        default=None, description="The referring doctor's question (free text)."
+    )
+    impression: str | None = Field(
+        default=None, description="The reader's own impression (free text)."
+    )
+    recommendations: str | None = Field(
+        default=None, description="The reader's recommendations (free text)."
+    )
+    other_findings: str | None = Field(
+        default=None, description="Other echocardiographic findings (free text)."
+    )
     deidentified: bool = Field(
         default=False,
         description="True when names, record numbers, dates finer than the year, ages over 89 and "
@@ -275,6 +297,14 @@ class StressResult(_Result):
         default=None,
         description="Heart-rate recovery at or below the abnormal cut-off; null when not measured.",
     )
+    hr_recovery_abnormal_max_bpm: float | None = Field(
+        default=None,
+        description="The cut-off used (bpm in the first minute; ≤ 18 in stress echo, Watanabe 2001); "
+        "null when not measured.",
+    )
+    hr_recovery_source: str | None = Field(
+        default=None, description="Source of the cut-off (or the lab's own setting)."
+    )
 
 
 class FindingCode(StrEnum):
@@ -460,6 +490,76 @@ class Conclusion(_Result):
     )
 
 
+# --- study data a lab records (issue 12) ----------------------------------------------------------
+
+
+class MedicationSummary(_Result):
+    """Medications that change the response to stress, as recorded."""
+
+    beta_blocker: MedicationUse | None = Field(description="not_prescribed, taken or withheld.")
+    rate_limiting_calcium_channel_blocker: MedicationUse | None = Field(
+        description="not_prescribed, taken or withheld."
+    )
+    nitrate: MedicationUse | None = Field(description="not_prescribed, taken or withheld.")
+
+
+class VasodilatorSummary(_Result):
+    """Vasodilator agent and dose; exactly one dose field can be set, in the agent's unit."""
+
+    agent: VasodilatorAgent = Field(description="Generic name of the agent.")
+    dose_ug_kg_min: float | None = Field(description="Infusion rate in μg/kg/min (adenosine).")
+    dose_mg: float | None = Field(description="Bolus dose in mg (regadenoson).")
+    dose_mg_kg: float | None = Field(description="Total dose in mg/kg (dipyridamole).")
+
+
+class ProcedureSummary(_Result):
+    """How the test was run, as categories only (no free text): kept in de-identified records."""
+
+    baseline_rhythm: BaselineRhythm | None = Field(
+        default=None, description="Rhythm on the resting ECG; null when not recorded."
+    )
+    baseline_ecg: list[BaselineEcg] = Field(
+        default_factory=list, description="Findings on the resting ECG; empty when not recorded."
+    )
+    medications: MedicationSummary | None = Field(
+        default=None, description="Medications relevant to the test; null when not recorded."
+    )
+    stop_reasons: list[StopReason] = Field(
+        default_factory=list, description="Why stress was stopped; empty when not recorded."
+    )
+    complications: list[Complication] = Field(
+        default_factory=list,
+        description="Complications other than arrhythmias ('none' when none); empty when not recorded.",
+    )
+    arrhythmias: list[Arrhythmia] = Field(
+        default_factory=list,
+        description="Arrhythmias during stress or recovery ('none' when none); empty when not recorded.",
+    )
+    vasodilator: VasodilatorSummary | None = Field(
+        default=None, description="Vasodilator agent and dose; null unless a vasodilator study."
+    )
+    image_quality: dict[Stage, ImageQuality] = Field(
+        default_factory=dict, description="Image quality per stage where the reader recorded it."
+    )
+
+    @classmethod
+    def from_study(cls, study: Study) -> ProcedureSummary:
+        """The record form of the study's ``procedure``, ``vasodilator`` and stage image quality."""
+        p, v = study.procedure, study.vasodilator
+        return cls(
+            baseline_rhythm=p.baseline_rhythm if p else None,
+            baseline_ecg=list(p.baseline_ecg or []) if p else [],
+            medications=MedicationSummary.model_validate(p.medications.model_dump())
+            if p is not None and p.medications is not None
+            else None,
+            stop_reasons=list(p.stop_reasons or []) if p else [],
+            complications=list(p.complications or []) if p else [],
+            arrhythmias=list(p.arrhythmias or []) if p else [],
+            vasodilator=VasodilatorSummary.model_validate(v.model_dump()) if v else None,
+            image_quality={s: d.image_quality for s, d in study.stages.items() if d.image_quality},
+        )
+
+
 class Analysis(_Result):
     """Everything computed from one study: the analysis record."""
 
@@ -495,6 +595,11 @@ class Analysis(_Result):
         description="Replenishment kinetics from the study's time-intensity curves; null without curves.",
     )
     stress: StressResult = Field(description="Stress adequacy and exercise indices.")
+    procedure: ProcedureSummary = Field(
+        default_factory=ProcedureSummary,
+        description="How the test was run: baseline ECG, medications, stopping, complications, "
+        "vasodilator agent, image quality.",
+    )
     conclusion: Conclusion = Field(description="Conclusions and high-risk findings.")
     notes: list[Note] = Field(description="Image-quality, protocol and interpretation notes.")
     cautions: list[str] = Field(description="Cautions that accompany every report.")

@@ -2,7 +2,10 @@
 
 Age-predicted maximum heart rate 220 − age (Fox 1971) or 208 − 0.7 × age (Tanaka H et al., JACC
 2001;37:153); target 85 % of it (a negative study below target is non-diagnostic: Ballal RS et al.,
-1997). Duke treadmill score and risk bands: Mark DB et al., NEJM 1991;325:849. Exercise-induced
+1997). Duke treadmill score and risk bands: Mark DB et al., NEJM 1991;325:849. Heart-rate recovery
+in the first minute is abnormal at or below a cut-off: ≤ 18 bpm when the patient lies down at once
+for stress-echo imaging (Watanabe J et al., Circulation 2001;104:1911), ≤ 12 bpm after a cool-down
+walk (Cole CR et al., NEJM 1999;341:1351); the cut-off is a lab setting. Exercise-induced
 hypotension: Gibbons RJ et al., ACC/AHA exercise testing guideline update 2002 (from memory).
 
 The adequacy rule and its wording live here (:func:`assess_adequacy`); the analysis only asks.
@@ -128,3 +131,8 @@ def exercise_hypotension(
     if highest - peak > fall_above_mmhg:
         return f"systolic pressure fell from {highest} mmHg during exercise to {peak} mmHg at peak"
     return None
+
+
+def hr_recovery_abnormal(fall_bpm: float, abnormal_max_bpm: float) -> bool:
+    """Heart-rate recovery at 1 minute is abnormal when the fall is at or below the cut-off."""
+    return fall_bpm <= abnormal_max_bpm

@@ -41,8 +41,18 @@ def sentence_case(text: str) -> str:
     return text[:1].upper() + text[1:]
 
 
-def stage_words(stage: Enum) -> str:
-    """A stage name as words: ``low_dose`` -> ``low dose``."""
+EXERCISE_STAGE_WORDS = {"low_dose": "low workload", "peak": "peak exercise"}
+"""Stage words of a treadmill or bicycle study, which has workloads, not doses: "low dose" belongs
+to dobutamine only (common practice). The record keeps the stage keys."""
+
+
+def stage_words(stage: Enum, protocol: Enum | None = None) -> str:
+    """A stage name as words: ``low_dose`` -> ``low dose``; ``low workload`` in an exercise study."""
+    if protocol is not None:
+        from reporting.model import EXERCISE_PROTOCOLS  # lazy: reporting.model imports this module
+
+        if protocol in EXERCISE_PROTOCOLS and stage.value in EXERCISE_STAGE_WORDS:
+            return EXERCISE_STAGE_WORDS[str(stage.value)]
     return str(stage.value).replace("_", " ")
 
 

@@ -305,9 +305,17 @@ def test_study_round_trips_through_json(rest: str, peak: dict[int, int | None]) 
     assert study_from_data(dumped) == study
 
 
-@pytest.mark.parametrize("recovery,abnormal", [(12, True), (13, False), (None, None)])
+@pytest.mark.parametrize(
+    "recovery,abnormal",
+    [
+        (18, True),  # Watanabe J et al., Circulation 2001;104:1911: <= 18 bpm at 1 min abnormal
+        (19, False),  # Watanabe 2001: above the stress-echo cut-off
+        (12, True),  # also at or below Cole CR et al., NEJM 1999 (cool-down walk)
+        (None, None),
+    ],
+)
 def test_heart_rate_recovery(recovery: int | None, abnormal: bool | None) -> None:
-    # Heart-rate recovery <= 12 bpm in the first minute is abnormal (Cole CR et al., NEJM 1999).
+    # In stress echo the patient lies down at once: the cut-off is 18 bpm (FACTS §6, Watanabe 2001).
     exercise = {
         "duration_min": 9,
         "max_st_deviation_mm": 1,

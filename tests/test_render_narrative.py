@@ -116,10 +116,16 @@ Image quality and protocol notes
     "DEMO-0004": """\
 Impression
 Positive for inducible ischaemia in the RCA territory, 2 segments (mild extent).
-LAD (segments 1, 2, 7, 8, 13, 14 and 17): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
-LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
-RCA (segments 3, 4, 9, 10 and 15): inducible ischaemia in 2 of 5 segments (4 and 10), at worst hypokinetic at peak. Territory WMSI 1.00 at rest, 1.40 at peak.
+LAD (segments 1, 2, 7, 8, 13, 14 and 17): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak exercise.
+LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak exercise.
+RCA (segments 3, 4, 9, 10 and 15): inducible ischaemia in 2 of 5 segments (4 and 10), at worst hypokinetic at peak exercise. Territory WMSI 1.00 at rest, 1.40 at peak exercise.
 Territories follow the map 'Standard coronary territories (right-dominant)'; segments 3, 4, 5, 9, 10, 11, 12, 15, 16 and 17 are often supplied by another artery.
+
+Reader's impression
+Inducible ischaemia of the inferior wall at a good workload, with angina and ST depression.
+
+Recommendations
+Optimise anti-anginal treatment; consider coronary angiography if symptoms persist.
 
 Stress and adequacy
 Treadmill exercise stress echocardiography; 17-segment model.
@@ -128,15 +134,26 @@ Peak rate–pressure product 27492 bpm·mmHg.
 Exercise time 7.5 min; maximal ST deviation 2 mm; non-limiting angina (angina index 1).
 Duke treadmill score −6.5: intermediate risk (Mark DB et al., NEJM 1991).
 Estimated workload 9.2 METs.
-Heart-rate recovery 18 bpm in the first minute after exercise: normal (Cole CR et al., NEJM 1999).
+Heart-rate recovery 18 bpm in the first minute after exercise: abnormal, at or below the cut-off of 18 bpm (Watanabe J et al., Circulation 2001).
+
+Test conduct
+Resting ECG: sinus rhythm, ST depression at rest.
+Beta-blocker withheld before the test; nitrate not prescribed.
+Exercise stopped for: fatigue, angina.
+Complications: none.
+Arrhythmias: ventricular ectopic beats.
+Image quality: good at rest, adequate at peak exercise.
 
 Wall motion
 Rest: normal wall motion in all 17 segments (WMSI 1.00). LVEF 64 %.
-Peak: WMSI 1.12. Hypokinetic: segments 4 (basal inferior) and 10 (mid inferior). Other segments normal. LVEF 66 %. Symptoms and ECG: Non-limiting chest pressure at 6 minutes; 2 mm ST depression II, III, aVF.
+Peak exercise: WMSI 1.12. Hypokinetic: segments 4 (basal inferior) and 10 (mid inferior). Other segments normal. LVEF 66 %. Symptoms and ECG: Non-limiting chest pressure at 6 minutes; 2 mm ST depression II, III, aVF.
 
 High-risk findings
 Risk: intermediate risk (1–3 % per year) by the noninvasive risk tables; criteria met: limited inducible ischaemia and intermediate-risk Duke treadmill score.
 No high-risk finding identified.
+
+Other echocardiographic findings
+Mild mitral regurgitation. No pericardial effusion.
 """,
     "DEMO-0005": """\
 Impression
@@ -222,12 +239,16 @@ def test_multivessel_wording() -> None:
 @pytest.mark.parametrize(
     ("recovery", "expected"),
     [
-        # Cole CR et al., NEJM 1999;341:1351: a fall of 12 bpm or less in the first minute is abnormal
-        (12, ": abnormal, at or below the cut-off (Cole CR et al., NEJM 1999)."),
-        (13, ": normal (Cole CR et al., NEJM 1999)."),
+        # Watanabe J et al., Circulation 2001;104:1911: in stress echo a fall of 18 bpm or less in
+        # the first minute is abnormal
+        (
+            18,
+            ": abnormal, at or below the cut-off of 18 bpm (Watanabe J et al., Circulation 2001).",
+        ),
+        (19, ": normal, above the cut-off of 18 bpm (Watanabe J et al., Circulation 2001)."),
         (
             -3,
-            ": abnormal, at or below the cut-off (Cole CR et al., NEJM 1999).",
+            ": abnormal, at or below the cut-off of 18 bpm (Watanabe J et al., Circulation 2001).",
         ),  # rate still rising
     ],
     ids=["at-cut-off", "above-cut-off", "negative"],

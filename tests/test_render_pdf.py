@@ -88,7 +88,8 @@ def test_header_tables_and_sign_off_content() -> None:
 
 
 def test_exercise_results_beside_the_haemodynamics_of_an_exercise_study() -> None:
-    # Duke treadmill score: Mark DB et al., NEJM 1991; heart-rate recovery: Cole CR et al., NEJM 1999
+    # Duke treadmill score: Mark DB et al., NEJM 1991; heart-rate recovery <= 18 bpm at 1 minute is
+    # abnormal in stress echo: Watanabe J et al., Circulation 2001;104:1911
     text = _text(pdf_bytes(_analysis("DEMO-0004")))
     for expected in (
         "Exercise time",
@@ -97,14 +98,14 @@ def test_exercise_results_beside_the_haemodynamics_of_an_exercise_study() -> Non
         "2 mm",
         "1 – non-limiting",
         "HR recovery, 1st min",
-        "18 bpm (normal)",
+        "18 bpm (abnormal, cut-off ≤ 18)",
         "−6.5 (intermediate risk)",
         "9.2 METs",
     ):
         assert expected in text, expected
     data = _data("DEMO-0004")
-    data["exercise"]["hr_recovery_1min_bpm"] = 9
-    assert "9 bpm (abnormal)" in _text(pdf_bytes(analyze(study_from_data(data))))
+    data["exercise"]["hr_recovery_1min_bpm"] = 19  # above the cut-off (Watanabe 2001)
+    assert "19 bpm (normal, cut-off ≤ 18)" in _text(pdf_bytes(analyze(study_from_data(data))))
 
 
 def test_no_exercise_table_without_an_exercise_test() -> None:

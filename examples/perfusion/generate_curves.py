@@ -128,6 +128,8 @@ contrast:
   administration: infusion
   imaging_mi: 0.12
   flash_mi: 1.0
+vasodilator: {{agent: adenosine, dose_ug_kg_min: 140}}
+procedure: {{baseline_rhythm: sinus, stop_reasons: [protocol_complete], complications: [none], arrhythmias: [none]}}
 stages:
   rest:
     heart_rate_bpm: {HEART_RATE_BPM["rest"]}

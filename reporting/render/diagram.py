@@ -23,7 +23,7 @@ from reportlab.lib.colors import Color
 from reportlab.pdfbase.pdfmetrics import stringWidth
 
 from reporting.kinetics.models import ReserveFlag
-from reporting.model import Stage
+from reporting.model import Protocol, Stage
 from reporting.render import style
 from reporting.render.geometry import (
     Edge,
@@ -60,6 +60,8 @@ class MapSpec:
 
     kind: MapKind
     stage: Stage | None = None
+    protocol: Protocol | None = None
+    """The study's protocol: exercise studies title their stages with workload words."""
 
     @property
     def key(self) -> str:
@@ -77,23 +79,24 @@ class MapSpec:
         }
         if self.stage is None:
             return titles[self.kind]
-        return f"{titles[self.kind]} – {stage_title(self.stage)}"
+        return f"{titles[self.kind]} – {stage_title(self.stage, self.protocol)}"
 
 
-def stage_title(stage: Stage) -> str:
-    """``low dose``: the stage as words (:func:`reporting.wording.stage_words`)."""
-    return stage_words(stage)
+def stage_title(stage: Stage, protocol: Protocol | None = None) -> str:
+    """``low dose`` (``low workload`` in an exercise study): :func:`reporting.wording.stage_words`."""
+    return stage_words(stage, protocol)
 
 
 def map_specs(analysis: Analysis) -> list[MapSpec]:
     """The maps a report of ``analysis`` shows, in order."""
     wall_stages = [s for s in analysis.stages if s in analysis.segments[0].wall_motion]
     perf_stages = [s for s in analysis.stages if s in analysis.segments[0].perfusion]
-    specs = [MapSpec(MapKind.WALL_MOTION, s) for s in wall_stages]
+    protocol = analysis.protocol
+    specs = [MapSpec(MapKind.WALL_MOTION, s, protocol) for s in wall_stages]
     specs.append(MapSpec(MapKind.SEGMENTS))
     if Stage.REST in wall_stages and Stage.PEAK in wall_stages:
         specs.append(MapSpec(MapKind.RESPONSE))
-    specs += [MapSpec(MapKind.PERFUSION, s) for s in perf_stages]
+    specs += [MapSpec(MapKind.PERFUSION, s, protocol) for s in perf_stages]
     if analysis.kinetics is not None and analysis.kinetics.reserve:
         specs.append(MapSpec(MapKind.RESERVE))
     return specs

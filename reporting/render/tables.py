@@ -14,6 +14,7 @@ from reportlab.lib.styles import ParagraphStyle
 from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.platypus import Flowable, Table, TableStyle
 
+from reporting.model import Stage
 from reporting.render import diagram, narrative, style
 from reporting.render.pdf.styles import dash, paragraph
 from reporting.results import Analysis, TerritoryResult, TerritoryStatus
@@ -70,7 +71,7 @@ def territory_table(analysis: Analysis, width: float, st: dict[str, ParagraphSty
     head = [
         "Territory",
         "Segments",
-        *[f"WMSI {diagram.stage_title(s)}" for s in stages],
+        *[f"WMSI {diagram.stage_title(s, analysis.protocol)}" for s in stages],
         "Ischaemic segments",
     ]
     if perfusion:
@@ -144,7 +145,10 @@ def haemodynamics_table(analysis: Analysis, width: float, st: dict[str, Paragrap
     head = ["Stage"]
     if dose:
         head.append("Dobutamine / atropine")
-    head += ["Heart rate (bpm)", "% of predicted", "BP (mmHg)", "Rate–pressure product"]
+    # % of predicted is a stress criterion: not shown at rest, nor for vasodilator stress (FACTS §3)
+    percent = analysis.stress.heart_rate_target_applies
+    head += ["Heart rate (bpm)", *(["% of predicted"] if percent else []), "BP (mmHg)"]
+    head.append("Rate–pressure product")
     if lvef:
         head.append("LVEF (%)")
     if esv:
@@ -152,7 +156,7 @@ def haemodynamics_table(analysis: Analysis, width: float, st: dict[str, Paragrap
     rows: list[list[str]] = [head]
     for s in stages:
         d = h[s]
-        cells = [diagram.stage_title(s).capitalize()]
+        cells = [diagram.stage_title(s, analysis.protocol).capitalize()]
         if dose:
             parts = []
             if d.dose_ug_kg_min is not None:
@@ -165,28 +169,33 @@ def haemodynamics_table(analysis: Analysis, width: float, st: dict[str, Paragrap
             if d.systolic_bp_mmhg is not None and d.diastolic_bp_mmhg is not None
             else dash(d.systolic_bp_mmhg)
         )
-        cells += [
-            dash(d.heart_rate_bpm),
-            "–"
-            if d.hr_percent_of_predicted is None
-            else f"{narrative.shown_percent(d.hr_percent_of_predicted)} %",
-            bp,
-            dash(d.rate_pressure_product),
-        ]
+        cells.append(dash(d.heart_rate_bpm))
+        if percent:
+            cells.append(_percent_cell(s, d.hr_percent_of_predicted))
+        cells += [bp, dash(d.rate_pressure_product)]
         if lvef:
             cells.append("–" if d.lvef_percent is None else f"{d.lvef_percent:g}")
         if esv:
             cells.append("–" if d.lv_esv_ml is None else f"{d.lv_esv_ml:g}")
         rows.append(cells)
-    weights = [1.0] + ([2.0] if dose else []) + [1.0, 1.0, 1.0, 1.4] + [0.9] * (lvef + esv)
+    weights = [1.0] + ([2.0] if dose else []) + [1.0] * (3 if percent else 2) + [1.4]
+    weights += [0.9] * (lvef + esv)
     return data_table(rows, [w / sum(weights) * width for w in weights], st)
+
+
+def _percent_cell(stage: Stage, percent: float | None) -> str:
+    """% of the predicted maximum at a stress stage; a dash at rest, where it is no criterion."""
+    if percent is None or stage is Stage.REST:
+        return "–"
+    return f"{narrative.shown_percent(percent)} %"
 
 
 def exercise_table(analysis: Analysis, width: float, st: dict[str, ParagraphStyle]) -> Table | None:
     """One row of exercise-test results (time, ST, angina, heart-rate recovery, Duke score, METs).
 
     Only the columns with a value; ``None`` when the study recorded no exercise test. Duke treadmill
-    score: Mark DB et al., NEJM 1991;325:849; heart-rate recovery: Cole CR et al., NEJM 1999;341:1351.
+    score: Mark DB et al., NEJM 1991;325:849; heart-rate recovery: the cut-off in the record (≤ 18 bpm in
+    stress echo, Watanabe J et al., Circulation 2001;104:1911).
     """
     s = analysis.stress
     columns: list[tuple[str, str, float]] = []
@@ -197,7 +206,10 @@ def exercise_table(analysis: Analysis, width: float, st: dict[str, ParagraphStyl
     if s.angina_index is not None:
         columns.append(("Angina index", f"{s.angina_index} – {ANGINA_SHORT[s.angina_index]}", 1.2))
     if s.hr_recovery_1min_bpm is not None:
-        verdict = {True: " (abnormal)", False: " (normal)", None: ""}[s.hr_recovery_abnormal]
+        verdict = {True: " (abnormal", False: " (normal", None: ""}[s.hr_recovery_abnormal]
+        if verdict and s.hr_recovery_abnormal_max_bpm is not None:
+            verdict += f", cut-off ≤ {s.hr_recovery_abnormal_max_bpm:g}"
+        verdict += ")" if verdict else ""
         value = f"{narrative.signed(s.hr_recovery_1min_bpm)} bpm{verdict}"
         columns.append(("HR recovery, 1st min", value, 1.5))
     if s.duke_treadmill_score is not None:

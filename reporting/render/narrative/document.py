@@ -15,6 +15,7 @@ from pathlib import Path
 import jinja2
 
 from reporting.errors import InputError
+from reporting.render.narrative.conduct import conduct_paragraphs, reader_paragraphs
 from reporting.render.narrative.impression import high_risk_paragraphs, impression, summary
 from reporting.render.narrative.sections import (
     kinetics_paragraphs,
@@ -50,11 +51,18 @@ def build_narrative(analysis: Analysis, include_cautions: bool = True) -> Narrat
     """Decide every sentence of the narrative."""
     sections = [
         Section("impression", "Impression", tuple(impression(analysis))),
+        *reader_sections(analysis),
         Section("stress", "Stress and adequacy", tuple(stress_paragraphs(analysis))),
+        Section("conduct", "Test conduct", tuple(conduct_paragraphs(analysis))),
         Section("wall_motion", "Wall motion", tuple(wall_motion_paragraphs(analysis))),
         Section("perfusion", "Perfusion", tuple(perfusion_paragraphs(analysis))),
         Section("kinetics", "Replenishment kinetics", tuple(kinetics_paragraphs(analysis))),
         Section("high_risk", "High-risk findings", tuple(high_risk_paragraphs(analysis))),
+        Section(
+            "other_findings",
+            "Other echocardiographic findings",
+            reader_paragraphs(analysis.study.other_findings),
+        ),
         Section(
             "notes",
             "Image quality and protocol notes",
@@ -70,6 +78,15 @@ def build_narrative(analysis: Analysis, include_cautions: bool = True) -> Narrat
         sections.append(Section("cautions", "Cautions", tuple(analysis.cautions)))
     kept = tuple(s for s in sections if s.paragraphs)
     return Narrative(study_id=analysis.study.id, summary=summary(analysis), sections=kept)
+
+
+def reader_sections(analysis: Analysis) -> list[Section]:
+    """The reader's own impression and recommendations, as written (left out when absent)."""
+    study = analysis.study
+    return [
+        Section("reader_impression", "Reader's impression", reader_paragraphs(study.impression)),
+        Section("recommendations", "Recommendations", reader_paragraphs(study.recommendations)),
+    ]
 
 
 # --- template environment ---------------------------------------------------------------------

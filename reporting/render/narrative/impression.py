@@ -136,7 +136,10 @@ def territory_sentence(analysis: Analysis, territory: Territory) -> str:
         worst = max(
             (by_number[n].wall_motion.get(Stage.PEAK) or 0 for n in t.ischemic_segments), default=0
         )
-        worst_words = f", at worst {WALL_MOTION_WORDS[worst]} at peak" if worst > 1 else ""
+        at_peak = stage_words(Stage.PEAK, analysis.protocol)
+        worst_words = (
+            f", at worst {WALL_MOTION_WORDS[worst]} at {at_peak}" if worst > 1 else ""
+        )
         parts.append(
             f"inducible ischaemia in {len(t.ischemic_segments)} of {len(mine)} segments ({numbers(t.ischemic_segments)}){worst_words}"
         )
@@ -201,7 +204,7 @@ def territory_sentence(analysis: Analysis, territory: Territory) -> str:
             else "no wall-motion abnormality in the segments assessed",
         )
     wmsi = [
-        f"{value:.2f} at {stage_words(stage)}"
+        f"{value:.2f} at {stage_words(stage, analysis.protocol)}"
         for stage, value in t.wmsi.items()
         if stage in (Stage.REST, Stage.PEAK) and value is not None
     ]

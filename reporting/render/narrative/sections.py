@@ -10,10 +10,10 @@ from __future__ import annotations
 
 from reporting.kinetics.models import ReserveFlag
 from reporting.model import Stage
+from reporting.render.narrative.conduct import hr_recovery_verdict
 from reporting.render.narrative.words import (
     ANGINA_WORDS,
     FORMULA_WORDS,
-    HR_RECOVERY_WORDS,
     PROTOCOL_WORDS,
     RESERVE_FLAG_WORDS,
     WALL_MOTION_WORDS,
@@ -77,7 +77,7 @@ def stress_paragraphs(analysis: Analysis) -> list[str]:
     if s.hr_recovery_1min_bpm is not None:
         paragraphs.append(
             f"Heart-rate recovery {signed(s.hr_recovery_1min_bpm)} bpm in the first minute after exercise"
-            f"{HR_RECOVERY_WORDS[s.hr_recovery_abnormal]}."
+            f"{hr_recovery_verdict(s)}."
         )
     return paragraphs
 
@@ -155,7 +155,7 @@ def perfusion_paragraphs(analysis: Analysis) -> list[str]:
         unseen = [n for n, v in scores.items() if v is None]
         reduced = [n for n, v in scores.items() if v == 2]
         absent = [n for n, v in scores.items() if v == 3]
-        label = sentence_case(stage_words(stage))
+        label = sentence_case(stage_words(stage, analysis.protocol))
         if not seen:
             out.append(f"{label}: perfusion not assessable (no segment visualised).")
             continue

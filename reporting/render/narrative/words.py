@@ -59,13 +59,6 @@ PROTOCOL_WORDS = {
 }
 FORMULA_WORDS = {HeartRateFormula.FOX: "220 − age", HeartRateFormula.TANAKA: "208 − 0.7 × age"}
 ANGINA_WORDS = {0: "no angina", 1: "non-limiting angina", 2: "exercise-limiting angina"}
-# Cole CR et al., NEJM 1999;341:1351: a fall of 12 bpm or less in the first minute is abnormal (the
-# cut-off is a lab setting, so the sentence names the verdict, not the number).
-HR_RECOVERY_WORDS = {
-    False: ": normal (Cole CR et al., NEJM 1999)",
-    True: ": abnormal, at or below the cut-off (Cole CR et al., NEJM 1999)",
-    None: "",
-}
 RESERVE_FLAG_WORDS = {
     ReserveFlag.LOW_FLOW_RESERVE: "flow reserve",
     ReserveFlag.LOW_BETA_RESERVE: "β reserve",
@@ -109,8 +102,9 @@ def dose_words(analysis: Analysis, stage: Stage) -> str:
 
 
 def stage_label(analysis: Analysis, stage: Stage) -> str:
-    """``Peak (dobutamine 40 μg/kg/min)``: the stage, capitalised, with its drugs."""
-    return sentence_case(stage_words(stage)) + dose_words(analysis, stage)
+    """``Peak (dobutamine 40 μg/kg/min)``: the stage, capitalised, with its drugs (``Peak exercise``
+    in a treadmill or bicycle study)."""
+    return sentence_case(stage_words(stage, analysis.protocol)) + dose_words(analysis, stage)
 
 
 def lower_first(text: str) -> str:

@@ -91,6 +91,7 @@ def header(analysis: Analysis, width: float, st: Styles) -> list[Flowable]:
         grid,
         Spacer(1, 3),
         labelled("Indication", analysis.study.indication or "not given", st),
+        *referral_line(analysis, st),
         labelled("Protocol", protocol, st),
     ]
     if study.deidentified:
@@ -104,6 +105,12 @@ def header(analysis: Analysis, width: float, st: Styles) -> list[Flowable]:
     return lines
 
 
+def referral_line(analysis: Analysis, st: Styles) -> list[Flowable]:
+    """The referring doctor's question, when the study records one (escaped by ``labelled``)."""
+    question = analysis.study.referral_question
+    return [labelled("Referral question", question, st)] if question else []
+
+
 def answer_box(analysis: Analysis, width: float, st: Styles) -> Table:
     c = analysis.conclusion
     facts = []
@@ -113,7 +120,7 @@ def answer_box(analysis: Analysis, width: float, st: Styles) -> Table:
     if s.peak_hr_bpm is not None:
         pct = (
             f", {narrative.shown_percent(s.peak_hr_percent_of_predicted)} % of predicted"
-            if s.peak_hr_percent_of_predicted is not None
+            if s.peak_hr_percent_of_predicted is not None and s.heart_rate_target_applies
             else ""
         )
         facts.append(f"peak heart rate {s.peak_hr_bpm} bpm{pct}")
