@@ -137,9 +137,7 @@ def territory_sentence(analysis: Analysis, territory: Territory) -> str:
             (by_number[n].wall_motion.get(Stage.PEAK) or 0 for n in t.ischemic_segments), default=0
         )
         at_peak = stage_words(Stage.PEAK, analysis.protocol)
-        worst_words = (
-            f", at worst {WALL_MOTION_WORDS[worst]} at {at_peak}" if worst > 1 else ""
-        )
+        worst_words = f", at worst {WALL_MOTION_WORDS[worst]} at {at_peak}" if worst > 1 else ""
         parts.append(
             f"inducible ischaemia in {len(t.ischemic_segments)} of {len(mine)} segments ({numbers(t.ischemic_segments)}){worst_words}"
         )
