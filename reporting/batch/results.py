@@ -24,6 +24,8 @@ class Status(StrEnum):
     """Outputs newer than the input and made with the same options: not redone."""
     FAILED = "failed"
     """The study could not be analysed or written; see the problems."""
+    IGNORED = "ignored"
+    """Not a study but a lab settings file or territory map: nothing written, not a failure."""
 
 
 @dataclass(frozen=True)
@@ -75,6 +77,8 @@ class BatchSummary:
     skipped: int
     failed: int
     written: tuple[Path, ...]
+    ignored: int = 0
+    """Files that are lab settings or territory maps, not studies (not counted in ``total``)."""
 
     @property
     def ok(self) -> bool:
@@ -86,6 +90,11 @@ class BatchSummary:
         return (
             f"{self.total} stud{'y' if self.total == 1 else 'ies'}: {self.done} done, "
             f"{self.skipped} skipped, {self.failed} failed"
+        ) + (
+            f"; {self.ignored} lab settings or territory map file"
+            f"{'' if self.ignored == 1 else 's'} left out (not studies)"
+            if self.ignored
+            else ""
         )
 
 

@@ -42,6 +42,9 @@ def process_study(
     stamp: Path | None = None
     try:
         stamp = stamps.stamp_path(options, source)
+        if claim is not None and claim.not_a_study is not None:
+            log.info("%s: %s, not a study: left out", options.file_label(source), claim.not_a_study)
+            return StudyResult(source, Status.IGNORED, stale=stamps.stale_outputs(stamp))
         if claim is not None and claim.owner is not None:
             return _failed(source, (duplicate_problem(claim, options),), stamp)
         expected = claim.study_id if claim is not None else None
