@@ -95,7 +95,7 @@ def _run_locked(
     produced: set[str] = set()
     stale: list[StudyResult] = []
     try:
-        aggregates = Aggregates(outdir, options.file_label, redact=options.deidentify)
+        aggregates = Aggregates(outdir, options.file_label)
     except OSError as exc:
         raise _output_error(outdir, exc) from None
     try:
