@@ -166,14 +166,16 @@ def _missing_line(scope: str, field: str, annotation: Any) -> str:
     )
 
 
-def allow_list_problems(table_columns: Mapping[str, Sequence[str]]) -> list[str]:
+def allow_list_problems(
+    table_columns: Mapping[str, Sequence[str]], model: type[BaseModel] = Analysis
+) -> list[str]:
     """Every field or column without a valid classification, and every line naming nothing.
 
-    ``table_columns`` maps each table scope (``studies``, ``segments``) to its columns. An empty
-    list means the allow-list is complete.
+    ``table_columns`` maps each table scope (``studies``, ``segments``) to its columns; ``model``
+    is the record model. An empty list means the allow-list is complete.
     """
     table = allow_list()
-    fields = record_fields()
+    fields = record_fields(model)
     wanted = {(RECORD, f) for f in fields} | {
         (scope, c) for scope, columns in table_columns.items() for c in columns
     }

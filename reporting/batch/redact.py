@@ -12,8 +12,11 @@ extract.
 
 from __future__ import annotations
 
+import contextlib
+import logging
 import re
 import typing
+from collections.abc import Iterator
 from functools import cache
 
 from pydantic import BaseModel
@@ -103,3 +106,35 @@ def _field_names(model: type[BaseModel]) -> set[str]:
                 else:
                     stack.extend(typing.get_args(t))
     return names
+
+
+QUIET_LEVEL = logging.CRITICAL + 1
+"""Level that silences a logger entirely."""
+_BATCH_LOGGER = "reporting.batch"
+
+
+@contextlib.contextmanager
+def input_logs_silenced() -> Iterator[None]:
+    """Silence every ``reporting`` logger except the batch's own for the block.
+
+    The analysis, loading and rendering modules log study ids and file names as they work; a
+    de-identified batch must print none of them, at any level. The batch's own messages (keyed
+    hashes and counts only) still pass.
+    """
+    root = logging.getLogger("reporting")
+    batch = logging.getLogger(_BATCH_LOGGER)
+    saved = root.level, batch.level
+    batch.setLevel(batch.getEffectiveLevel())
+    root.setLevel(QUIET_LEVEL)
+    try:
+        yield
+    finally:
+        root.setLevel(saved[0])
+        batch.setLevel(saved[1])
+
+
+def silence_input_logs() -> None:
+    """Worker-process form of :func:`input_logs_silenced` (for the whole life of the worker)."""
+    batch = logging.getLogger(_BATCH_LOGGER)
+    batch.setLevel(batch.getEffectiveLevel())
+    logging.getLogger("reporting").setLevel(QUIET_LEVEL)

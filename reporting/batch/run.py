@@ -22,7 +22,7 @@ from concurrent.futures import Future, ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
 from pathlib import Path
 
-from reporting.batch import folder, stamps, watchdog
+from reporting.batch import folder, redact, stamps, watchdog
 from reporting.batch.aggregates import Aggregates
 from reporting.batch.claims import Claim, assign, claim_key, read_output_ids
 from reporting.batch.options import BatchOptions
@@ -74,7 +74,9 @@ def run_batch(
         folder.check_mode(outdir, options.deidentify)  # again: another batch may have written
         folder.write_mode(outdir, options.deidentify, options.key_fingerprint)
         _sweep_temporaries(outdir)  # left by a run that was killed outright
-        summary = _run_locked(indir, paths, options, jobs=jobs, progress=progress)
+        quiet = redact.input_logs_silenced() if options.deidentify else contextlib.nullcontext()
+        with quiet:
+            summary = _run_locked(indir, paths, options, jobs=jobs, progress=progress)
     if options.deidentify:  # the input folder's name may name a patient
         log.info("batch: %s", summary.line())
     else:
@@ -181,7 +183,7 @@ def _results(
             yield process_study(path, options, indir=indir, claim=claim)
         return
     executor = ProcessPoolExecutor(
-        max_workers=jobs, initializer=watchdog.start, initargs=(os.getpid(),)
+        max_workers=jobs, initializer=watchdog.start, initargs=(os.getpid(), options.deidentify)
     )
     try:
         id_tasks = [paths[i : i + ID_TASK_STUDIES] for i in range(0, len(paths), ID_TASK_STUDIES)]

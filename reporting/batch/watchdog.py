@@ -24,8 +24,15 @@ ORPHAN_EXIT_CODE = 70
 """Exit status of a worker that outlived its batch (EX_SOFTWARE: not a normal end)."""
 
 
-def start(batch_pid: int) -> None:
-    """Pool initializer: end this worker when the process ``batch_pid`` is gone."""
+def start(batch_pid: int, quiet: bool = False) -> None:
+    """Pool initializer: end this worker when the process ``batch_pid`` is gone.
+
+    ``quiet`` (de-identifying) silences the loggers that could name a study or file.
+    """
+    if quiet:
+        from reporting.batch.redact import silence_input_logs
+
+        silence_input_logs()
     parent = os.getppid()
     thread = threading.Thread(
         target=_watch, args=(batch_pid, parent), name="segreport-watchdog", daemon=True
