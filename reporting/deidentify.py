@@ -99,8 +99,11 @@ class FieldRule:
     why: str
 
 
-class UnclassifiedFieldError(ReportingError):
-    """A record field or table column the allow-list does not classify (a developer's omission)."""
+class UnclassifiedFieldError(RuntimeError):
+    """A record field or table column the allow-list does not classify.
+
+    A developer's omission, not the user's: a batch reports it as an internal error of the study.
+    """
 
 
 @cache
