@@ -1,7 +1,9 @@
 """Reading YAML and JSON documents safely: the parsing half of every load boundary.
 
 Study files, lab settings and territory maps all come through here, so each gets the same
-protection: a size limit, text checks (empty, binary, not UTF-8), no YAML aliases (an alias bomb
+protection: only a regular file is opened (a named pipe, a device such as ``/dev/zero`` or a link to
+one is refused before anything is read), its size is checked before reading and no more than the
+limit is ever read (:func:`read_bytes_limited`, also used for curve CSVs and records); then text checks (empty, binary, not UTF-8), no YAML aliases (an alias bomb
 cannot expand), no duplicate keys, a nesting limit (deep nesting would exhaust the parser's stack),
 and every parser failure — including values such as ``2026-02-30`` that YAML accepts but cannot
 build — reported as an :class:`~reporting.errors.InputError` with the file and, where known, the line.
@@ -10,9 +12,11 @@ build — reported as an :class:`~reporting.errors.InputError` with the file and
 from __future__ import annotations
 
 import json
+import os
+import stat
 from importlib import resources
 from pathlib import Path
-from typing import Any
+from typing import Any, BinaryIO
 
 import yaml
 
@@ -36,19 +40,100 @@ _CLOSING = (yaml.BlockEndToken, yaml.FlowMappingEndToken, yaml.FlowSequenceEndTo
 _BUILD_ERRORS = (ValueError, KeyError, TypeError, OverflowError, RecursionError)
 
 
+def _not_regular(mode: int) -> str | None:
+    """What a non-regular file is, in words; ``None`` for a regular file."""
+    if stat.S_ISREG(mode):
+        return None
+    if stat.S_ISFIFO(mode):
+        return "a named pipe (FIFO)"
+    if stat.S_ISCHR(mode) or stat.S_ISBLK(mode):
+        return "a device"
+    if stat.S_ISSOCK(mode):
+        return "a socket"
+    return "not a regular file"
+
+
+def _open_regular(path: Path, what: str) -> tuple[int, int]:
+    """An open read-only descriptor of ``path`` and its size, refusing anything but a regular file.
+
+    The type is checked with ``stat`` before opening (opening a device or a pipe can block or have
+    effects) and again on the open descriptor, so a file swapped in between is refused too.
+    """
+    where = str(path)
+    try:
+        info = os.stat(path)  # follows symbolic links: a link to /dev/zero is a device
+        if stat.S_ISDIR(info.st_mode):
+            raise InputError(where, f"is a folder, not a {what}")
+        kind = _not_regular(info.st_mode)
+        if kind is None:
+            fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | os.O_CLOEXEC)
+            try:
+                info = os.fstat(fd)
+            except OSError:
+                os.close(fd)
+                raise
+            kind = _not_regular(info.st_mode)
+            if kind is not None:
+                os.close(fd)
+    except FileNotFoundError:
+        raise InputError(where, f"cannot read {what}: no such file") from None
+    except IsADirectoryError:
+        raise InputError(where, f"is a folder, not a {what}") from None
+    except OSError as exc:
+        raise InputError(where, f"cannot read {what}: {exc.strerror or exc}") from None
+    if kind is not None:
+        raise InputError(where, f"is {kind}, not a regular file; a {what} must be a regular file")
+    return fd, info.st_size
+
+
+def read_bytes_limited(path: Path, *, what: str = "file", max_bytes: int) -> bytes:
+    """The bytes of the regular file ``path``, refused when larger than ``max_bytes``.
+
+    The size is checked before reading and at most ``max_bytes + 1`` bytes are ever read (a file
+    growing while it is read is refused too), so a huge or sparse file costs neither time nor
+    memory. Every failure is an :class:`InputError` located at ``path``.
+    """
+    fd, size = _open_regular(path, what)
+    where = str(path)
+    with os.fdopen(fd, "rb") as handle:
+        if size > max_bytes:
+            raise InputError(where, f"file is {size:,} bytes; a {what} is at most {max_bytes:,}")
+        try:
+            raw = handle.read(max_bytes + 1)
+        except OSError as exc:
+            raise InputError(where, f"cannot read {what}: {exc.strerror or exc}") from None
+    if len(raw) > max_bytes:
+        raise InputError(
+            where, f"file is over {max_bytes:,} bytes; a {what} is at most {max_bytes:,}"
+        )
+    return raw
+
+
+def open_regular(path: Path, *, what: str = "file") -> BinaryIO:
+    """``path`` opened for binary reading; anything but a regular file is an :class:`InputError`.
+
+    For readers that stream (line by line) and bound each read themselves.
+    """
+    fd, _size = _open_regular(path, what)
+    return os.fdopen(fd, "rb")
+
+
+def read_head(path: Path, limit: int, *, what: str = "file") -> bytes:
+    """At most the first ``limit`` bytes of the regular file ``path`` (for listings and peeks).
+
+    Refuses what :func:`read_bytes_limited` refuses except size: a large file gives its head.
+    """
+    with open_regular(path, what=what) as handle:
+        try:
+            return handle.read(limit)
+        except OSError as exc:
+            raise InputError(str(path), f"cannot read {what}: {exc.strerror or exc}") from None
+
+
 def read_text(path: Path, *, what: str = "file", max_bytes: int = MAX_DOCUMENT_BYTES) -> str:
     """The UTF-8 text of ``path``, or an :class:`InputError` saying why it cannot be read."""
     where = str(path)
-    try:
-        raw = path.read_bytes()
-    except IsADirectoryError:
-        raise InputError(where, f"is a folder, not a {what}") from None
-    except FileNotFoundError:
-        raise InputError(where, f"cannot read {what}: no such file") from None
-    except OSError as exc:
-        raise InputError(where, f"cannot read {what}: {exc.strerror or exc}") from None
-    if len(raw) > max_bytes:
-        raise InputError(where, f"file is {len(raw):,} bytes; a {what} is at most {max_bytes:,}")
+    raw = read_bytes_limited(path, what=what, max_bytes=max_bytes)
     if not raw.strip():
         raise InputError(where, "file is empty")
     if b"\x00" in raw:

@@ -3,6 +3,9 @@
 from __future__ import annotations
 
 import json
+import os
+import subprocess
+import sys
 from pathlib import Path
 from typing import Any
 
@@ -477,3 +480,109 @@ def test_symlink_loop_is_a_located_error(tmp_path: Path) -> None:
     result = CliRunner().invoke(main, ["analyze", str(study)])
     assert result.exit_code == 1
     assert "perfusion_curves" in result.stderr and "Traceback" not in result.output
+
+
+# --- bounded reading (#11 item 3) ------------------------------------------------------------------
+
+# Each reader of a user's file, as (id, code run in a fresh process on the file PATH).
+READERS = [
+    ("study", "from reporting.load import load_study as f; f(PATH)"),
+    ("settings", "from reporting.settings import load_settings as f; f(PATH)"),
+    ("territory-map", "from reporting.segments import load_territory_map as f; f(PATH)"),
+    ("curves", "from reporting.kinetics import load_curves as f; f(PATH, segment_model=17)"),
+    ("angiography", "from reporting.qa.angio import read_angiography as f; f(PATH)"),
+    ("record", "from reporting.qa.records import read_records as f; f(PATH)"),
+]
+_PROBE = """
+import resource, sys, time
+from pathlib import Path
+PATH = Path(sys.argv[1])
+start = time.perf_counter()
+try:
+    {code}
+except Exception as exc:  # the InputError(s) expected; anything else fails the test below
+    problem = f"{{type(exc).__name__}}: {{exc}}"
+else:
+    problem = "read without error"
+print(time.perf_counter() - start)
+print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss // 1024)
+print(problem)
+"""
+
+
+def _hostile(kind: str, folder: Path, suffix: str) -> Path:
+    path = folder / f"hostile{suffix}"
+    if kind == "sparse-4GB":  # 4 GB of nothing: reading it whole would take 4 GB of memory
+        with path.open("wb") as handle:
+            handle.truncate(4 * 1024**3)
+    elif kind == "link-to-dev-zero":  # endless zeros behind an innocent name
+        path.symlink_to("/dev/zero")
+    elif kind == "fifo":  # opening a named pipe blocks until someone writes
+        os.mkfifo(path)
+    return path
+
+
+@pytest.mark.parametrize("kind", ["sparse-4GB", "link-to-dev-zero", "fifo"])
+@pytest.mark.parametrize("reader,code", READERS, ids=[r[0] for r in READERS])
+def test_hostile_files_are_refused_quickly_in_little_memory(
+    tmp_path: Path, kind: str, reader: str, code: str
+) -> None:
+    suffix = {"curves": ".csv", "angiography": ".csv", "record": ".json"}.get(reader, ".yaml")
+    path = _hostile(kind, tmp_path, suffix)
+    probe = _PROBE.format(code=code)
+    try:
+        done = subprocess.run(
+            [sys.executable, "-c", probe, str(path)],
+            capture_output=True,
+            text=True,
+            timeout=60,
+            check=True,
+            cwd=Path(__file__).parents[1],
+        )
+    except subprocess.TimeoutExpired:
+        pytest.fail(f"{reader} kept reading {kind} for a minute")
+    seconds, peak_mb, problem = done.stdout.strip().splitlines()
+    assert "Error" in problem and str(path) in problem, problem
+    # The figures from the issue: refused in under a second with under 100 MB peak memory
+    # (the interpreter and the imported modules included).
+    assert float(seconds) < 1.0
+    assert int(peak_mb) < 100
+
+
+@pytest.mark.parametrize(
+    "kind,problem",
+    [
+        (
+            "link-to-dev-zero",
+            "is a device, not a regular file; a study file must be a regular file",
+        ),
+        ("fifo", "is a named pipe (FIFO), not a regular file; a study file must be a regular file"),
+        ("sparse-4GB", "file is 4,294,967,296 bytes; a study file is at most 1,000,000"),
+    ],
+)
+def test_hostile_study_file_message(tmp_path: Path, kind: str, problem: str) -> None:
+    path = _hostile(kind, tmp_path, ".yaml")
+    result = CliRunner().invoke(main, ["validate", str(path)])
+    assert result.exit_code == 1
+    assert f"Error: {path}: {problem}\n" in result.stderr
+
+
+def test_file_growing_past_the_limit_is_refused(tmp_path: Path) -> None:
+    # The size is checked before reading, but the read itself is bounded too: a file that grows
+    # after the check (simulated by a lower limit than its size at read time) is never read whole.
+    from reporting.documents import read_bytes_limited
+
+    path = tmp_path / "s.yaml"
+    path.write_bytes(b"a" * 100)
+    assert read_bytes_limited(path, what="study file", max_bytes=100) == b"a" * 100
+    with pytest.raises(InputError, match="file is 100 bytes; a study file is at most 99"):
+        read_bytes_limited(path, what="study file", max_bytes=99)
+
+
+def test_head_reads_only_the_head(tmp_path: Path) -> None:
+    from reporting.documents import read_head
+
+    big = _hostile("sparse-4GB", tmp_path, ".yaml")
+    assert read_head(big, 10) == b"\x00" * 10
+    with pytest.raises(InputError, match="is a device"):
+        read_head(_hostile("link-to-dev-zero", tmp_path, ".yml"), 10)
