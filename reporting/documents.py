@@ -144,6 +144,14 @@ def read_text(path: Path, *, what: str = "file", max_bytes: int = MAX_DOCUMENT_B
         raise InputError(where, f"not UTF-8 text (byte {exc.start})") from None
 
 
+def _json_int(text: str) -> int | str:
+    # An integer beyond Python's digit limit stays text: validation reports it at its field.
+    try:
+        return int(text)
+    except ValueError:
+        return text
+
+
 def parse_json(text: str, where: str) -> Any:
     """Parse JSON text, refusing duplicate keys."""
 
@@ -156,7 +164,7 @@ def parse_json(text: str, where: str) -> Any:
         return out
 
     try:
-        return json.loads(text, object_pairs_hook=no_duplicates)
+        return json.loads(text, object_pairs_hook=no_duplicates, parse_int=_json_int)
     except json.JSONDecodeError as exc:
         raise InputError(
             f"{where}: line {exc.lineno}, column {exc.colno}", f"invalid JSON: {exc.msg}"
@@ -191,6 +199,25 @@ def _mapping(loader: yaml.SafeLoader, node: yaml.MappingNode) -> dict[Any, Any]:
 
 
 _StrictLoader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _mapping)
+
+
+def _as_text_when_unbuildable(tag: str) -> None:
+    # A value YAML recognises but cannot build (2026-02-30, an integer of 5000 digits, !!bool maybe)
+    # stays the text it was written as, so validation reports it at its field beside every other
+    # problem instead of one parser error hiding the rest.
+    build = _StrictLoader.yaml_constructors[tag]
+
+    def lenient(loader: yaml.SafeLoader, node: yaml.ScalarNode) -> Any:
+        try:
+            return build(loader, node)
+        except _BUILD_ERRORS:
+            return str(node.value)
+
+    _StrictLoader.add_constructor(tag, lenient)
+
+
+for _tag in ("timestamp", "int", "float", "bool"):
+    _as_text_when_unbuildable(f"tag:yaml.org,2002:{_tag}")
 
 
 def _check_events(text: str) -> None:
@@ -264,17 +291,59 @@ def read_yaml(path: Path, *, what: str) -> Any:
     return parse_yaml(read_text(path, what=what), str(path))
 
 
+def check_suffix(path: Path, suffixes: tuple[str, ...] = (".yaml", ".yml", ".json")) -> Path:
+    """``path`` itself when its suffix is one of ``suffixes``, else an :class:`InputError`."""
+    if path.suffix.lower() not in suffixes:
+        raise InputError(
+            str(path), f"unknown file type {path.suffix or '(none)'!r}; use {', '.join(suffixes)}"
+        )
+    return path
+
+
+def parse_document(text: str, path: Path) -> Any:
+    """Parse the text of ``path`` as JSON (``.json``) or YAML (anything else)."""
+    where = str(path)
+    return parse_json(text, where) if path.suffix.lower() == ".json" else parse_yaml(text, where)
+
+
 def read_document(
     path: Path, *, what: str = "study file", suffixes: tuple[str, ...] = (".yaml", ".yml", ".json")
 ) -> Any:
     """Read and parse a YAML or JSON file, chosen by its suffix."""
-    suffix = path.suffix.lower()
-    if suffix not in suffixes:
-        raise InputError(
-            str(path), f"unknown file type {path.suffix or '(none)'!r}; use {', '.join(suffixes)}"
-        )
-    text = read_text(path, what=what)
-    return parse_json(text, str(path)) if suffix == ".json" else parse_yaml(text, str(path))
+    return parse_document(read_text(check_suffix(path, suffixes), what=what), path)
+
+
+def key_lines(text: str) -> dict[tuple[str, ...], int]:
+    """The line (1-based) of every key and list item in YAML or JSON ``text``, by its path.
+
+    A path is the keys and list indexes from the top, as text (``("stages", "peak",
+    "wall_motion")``). Used to locate validation problems, so it runs only when a file has some;
+    text it cannot read gives an empty mapping (the problems are then shown without lines).
+    """
+    lines: dict[tuple[str, ...], int] = {}
+
+    def walk(node: yaml.Node, path: tuple[str, ...]) -> None:
+        if isinstance(node, yaml.MappingNode):
+            for key, value in node.value:
+                if isinstance(key, yaml.ScalarNode):
+                    inner = (*path, str(key.value))
+                    lines.setdefault(inner, key.start_mark.line + 1)
+                    walk(value, inner)
+        elif isinstance(node, yaml.SequenceNode):
+            for index, item in enumerate(node.value):
+                inner = (*path, str(index))
+                lines.setdefault(inner, item.start_mark.line + 1)
+                walk(item, inner)
+
+    try:
+        if _needs_event_check(text):
+            _check_events(text)  # no aliases, bounded nesting: composing cannot blow up
+        root = yaml.compose(text, Loader=_SafeLoader)
+    except (yaml.YAMLError, RecursionError, ValueError):
+        return {}
+    if root is not None:
+        walk(root, ())
+    return lines
 
 
 def peek_yaml_text(text: str, keys: tuple[str, ...]) -> str | None:
