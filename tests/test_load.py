@@ -491,7 +491,13 @@ except Exception as exc:  # the InputError(s) expected; anything else fails the 
 else:
     problem = "read without error"
 print(time.perf_counter() - start)
-print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss // 1024)
+# Peak resident memory of this process in MB. VmHWM belongs to this program alone; ru_maxrss
+# (the fallback) also counts the parent's memory when it was started from a large process.
+try:
+    status = Path("/proc/self/status").read_text()
+    print(int(next(l for l in status.splitlines() if l.startswith("VmHWM:")).split()[1]) // 1024)
+except (OSError, StopIteration):
+    print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss // 1024)
 print(problem)
 """
 
