@@ -86,6 +86,15 @@ def _open_regular(path: Path, what: str) -> tuple[int, int]:
     return fd, info.st_size
 
 
+def _read_up_to(fd: int, limit: int) -> bytes:
+    """Up to ``limit`` bytes from ``fd`` (fewer only at the end of the file)."""
+    chunks: list[bytes] = []
+    while limit > 0 and (chunk := os.read(fd, min(limit, 1 << 20))):
+        chunks.append(chunk)
+        limit -= len(chunk)
+    return b"".join(chunks)
+
+
 def read_bytes_limited(path: Path, *, what: str = "file", max_bytes: int) -> bytes:
     """The bytes of the regular file ``path``, refused when larger than ``max_bytes``.
 
@@ -95,13 +104,17 @@ def read_bytes_limited(path: Path, *, what: str = "file", max_bytes: int) -> byt
     """
     fd, size = _open_regular(path, what)
     where = str(path)
-    with os.fdopen(fd, "rb") as handle:
+    try:
         if size > max_bytes:
             raise InputError(where, f"file is {size:,} bytes; a {what} is at most {max_bytes:,}")
-        try:
-            raw = handle.read(max_bytes + 1)
-        except OSError as exc:
-            raise InputError(where, f"cannot read {what}: {exc.strerror or exc}") from None
+        # Read what stat announced plus one byte: more means the file grew, so read on to the limit.
+        raw = _read_up_to(fd, size + 1)
+        if len(raw) > size:
+            raw += _read_up_to(fd, max_bytes + 1 - len(raw))
+    except OSError as exc:
+        raise InputError(where, f"cannot read {what}: {exc.strerror or exc}") from None
+    finally:
+        os.close(fd)
     if len(raw) > max_bytes:
         raise InputError(
             where, f"file is over {max_bytes:,} bytes; a {what} is at most {max_bytes:,}"
@@ -201,10 +214,16 @@ def _mapping(loader: yaml.SafeLoader, node: yaml.MappingNode) -> dict[Any, Any]:
 _StrictLoader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _mapping)
 
 
+class _LenientLoader(_StrictLoader):
+    """:class:`_StrictLoader`, except that a value YAML recognises but cannot build stays text.
+
+    ``2026-02-30``, an integer of 5000 digits or ``!!bool maybe`` stays the text it was written
+    as, so validation reports it at its field beside every other problem instead of one parser
+    error hiding the rest. Used only when the strict load fails (a wrapper per value costs time).
+    """
+
+
 def _as_text_when_unbuildable(tag: str) -> None:
-    # A value YAML recognises but cannot build (2026-02-30, an integer of 5000 digits, !!bool maybe)
-    # stays the text it was written as, so validation reports it at its field beside every other
-    # problem instead of one parser error hiding the rest.
     build = _StrictLoader.yaml_constructors[tag]
 
     def lenient(loader: yaml.SafeLoader, node: yaml.ScalarNode) -> Any:
@@ -213,7 +232,7 @@ def _as_text_when_unbuildable(tag: str) -> None:
         except _BUILD_ERRORS:
             return str(node.value)
 
-    _StrictLoader.add_constructor(tag, lenient)
+    _LenientLoader.add_constructor(tag, lenient)
 
 
 for _tag in ("timestamp", "int", "float", "bool"):
@@ -266,7 +285,10 @@ def parse_yaml(text: str, where: str) -> Any:
     try:
         if _needs_event_check(text):
             _check_events(text)
-        return yaml.load(text, Loader=_StrictLoader)
+        try:
+            return yaml.load(text, Loader=_StrictLoader)
+        except _BUILD_ERRORS:
+            return yaml.load(text, Loader=_LenientLoader)  # the value is reported at its field
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark
         at = f"{where}: line {mark.line + 1}, column {mark.column + 1}" if mark else where

@@ -559,9 +559,7 @@ def test_hostile_study_file_message(tmp_path: Path, kind: str, problem: str) -> 
     assert f"Error: {path}: {problem}\n" in result.stderr
 
 
-def test_file_growing_past_the_limit_is_refused(tmp_path: Path) -> None:
-    # The size is checked before reading, but the read itself is bounded too: a file that grows
-    # after the check (simulated by a lower limit than its size at read time) is never read whole.
+def test_size_is_checked_before_reading(tmp_path: Path) -> None:
     from reporting.documents import read_bytes_limited
 
     path = tmp_path / "s.yaml"
@@ -569,6 +567,18 @@ def test_file_growing_past_the_limit_is_refused(tmp_path: Path) -> None:
     assert read_bytes_limited(path, what="study file", max_bytes=100) == b"a" * 100
     with pytest.raises(InputError, match="file is 100 bytes; a study file is at most 99"):
         read_bytes_limited(path, what="study file", max_bytes=99)
+
+
+@pytest.mark.skipif(not Path("/proc/self/status").exists(), reason="needs Linux /proc")
+def test_file_longer_than_its_stat_size_is_still_bounded() -> None:
+    # /proc files are regular files whose stat size is 0 but which hold text: like a file growing
+    # after the size check. The read goes on past the stat size, but never past the limit.
+    from reporting.documents import read_bytes_limited
+
+    whole = read_bytes_limited(Path("/proc/self/status"), max_bytes=1_000_000)
+    assert whole.startswith(b"Name:") and len(whole) > 100
+    with pytest.raises(InputError, match="file is over 100 bytes; a file is at most 100"):
+        read_bytes_limited(Path("/proc/self/status"), max_bytes=100)
 
 
 def test_head_reads_only_the_head(tmp_path: Path) -> None:
