@@ -9,6 +9,7 @@ exit code 1 (click's usage errors exit 2). Heavy modules are imported inside the
 from __future__ import annotations
 
 import datetime as dt
+import io
 import os
 import sys
 from collections.abc import Callable, Iterator
@@ -39,15 +40,35 @@ def _user_errors() -> Iterator[None]:
         sys.exit(1)
 
 
-def _emit(text: str, output: Path | None) -> None:
-    """Print ``text``, or write it atomically to ``output`` and say so on stderr."""
+_STDOUT_NAMES = frozenset({"-", "/dev/stdout", "/dev/fd/1", "/proc/self/fd/1"})
+
+
+def _is_stdout(output: Path | None) -> bool:
+    """Whether ``-o`` names standard output: none given, ``-``, ``/dev/stdout`` or another name of it."""
+    if output is None or str(output) in _STDOUT_NAMES:
+        return True
+    try:
+        target, stdout = os.stat(output), os.fstat(sys.stdout.fileno())
+    except (OSError, ValueError, AttributeError, io.UnsupportedOperation):
+        return False
+    return (target.st_dev, target.st_ino) == (stdout.st_dev, stdout.st_ino)
+
+
+def _emit(data: str | bytes, output: Path | None) -> None:
+    """Print ``data`` when ``output`` is standard output (see :func:`_is_stdout`), else write it
+    atomically to ``output`` and say so on stderr."""
     from reporting.files import write_atomic
 
-    if output is None:
-        click.echo(text, nl=False)
-    else:
-        write_atomic(output, text)
+    if not _is_stdout(output):
+        assert output is not None
+        write_atomic(output, data)
         click.echo(f"Wrote {output}", err=True)
+    elif isinstance(data, bytes):
+        stream = click.get_binary_stream("stdout")
+        stream.write(data)
+        stream.flush()
+    else:
+        click.echo(data, nl=False)
 
 
 def _lab_options(func: F) -> F:
@@ -85,7 +106,7 @@ def main() -> None:
     "-o",
     "--output",
     type=click.Path(dir_okay=False, path_type=Path),
-    help="Write the record here instead of to stdout.",
+    help="Write the record here (- for stdout, the default).",
 )
 @_lab_options
 def analyze(
@@ -258,13 +279,13 @@ def schema(outdir: Path | None) -> None:
     "-o",
     "--output",
     type=click.Path(dir_okay=False, path_type=Path),
-    help="Write the review JSON here instead of to stdout.",
+    help="Write the review JSON here (- for stdout, the default).",
 )
 @click.option(
     "--pdf",
     "pdf_path",
     type=click.Path(dir_okay=False, path_type=Path),
-    help="Also write the quality PDF here.",
+    help="Also write the quality PDF here (- for stdout, with -o FILE).",
 )
 @click.option(
     "--stenosis",
@@ -308,7 +329,12 @@ def qa(
 ) -> None:
     """Lab quality review of RECORDS (a folder of records or a registry.ndjson) against angiography."""
     from reporting.files import all_or_nothing, write_atomic
-    from reporting.qa import review_json, run_agreement, run_review, write_review_pdf
+    from reporting.qa import review_json, review_pdf_bytes, run_agreement, run_review
+
+    if pdf_path is not None and _is_stdout(pdf_path) and _is_stdout(output):
+        raise click.UsageError(
+            "the review JSON and the --pdf cannot both go to stdout; give -o FILE"
+        )
 
     thresholds = {
         name: value
@@ -328,14 +354,17 @@ def qa(
         )
         agreement = run_agreement(records, second_reading) if second_reading else None
         text = review_json(review)
-        written = [p for p in (output, pdf_path) if p is not None]
+        pdf = review_pdf_bytes(review, agreement) if pdf_path is not None else None
+        written = [p for p in (output, pdf_path) if p is not None and not _is_stdout(p)]
         with all_or_nothing(written):
-            if pdf_path is not None:
-                write_review_pdf(review, pdf_path, agreement=agreement)
-            if output is not None:
+            if pdf is not None and pdf_path in written:
+                write_atomic(pdf_path, pdf)
+            if output in written:
                 write_atomic(output, text)
-        if output is None:
-            click.echo(text, nl=False)
+        if _is_stdout(output):
+            _emit(text, None)
+        elif pdf is not None and pdf_path not in written:
+            _emit(pdf, None)
         for path in written:
             click.echo(f"Wrote {path}", err=True)
 
@@ -347,7 +376,7 @@ def qa(
     "-o",
     "--output",
     type=click.Path(dir_okay=False, path_type=Path),
-    help="Write the agreement JSON here instead of to stdout.",
+    help="Write the agreement JSON here (- for stdout, the default).",
 )
 def agreement(records_a: Path, records_b: Path, output: Path | None) -> None:
     """Agreement of two readers: RECORDS_A and RECORDS_B matched by study id (Cohen's kappa)."""
@@ -364,7 +393,7 @@ def agreement(records_a: Path, records_b: Path, output: Path | None) -> None:
     "-o",
     "--output",
     type=click.Path(dir_okay=False, path_type=Path),
-    help="Write the fits (CSV) here instead of to stdout.",
+    help="Write the fits (CSV) here (- for stdout, the default).",
 )
 @click.option(
     "--segment-model",
@@ -500,7 +529,7 @@ def batch(
     "-o",
     "--output",
     type=click.Path(dir_okay=False, path_type=Path),
-    help="Write the Bundle here instead of to stdout.",
+    help="Write the Bundle here (- for stdout, the default).",
 )
 @_lab_options
 def fhir_bundle(

@@ -1,8 +1,8 @@
 """Input models: a stress-echo study as the reader enters it.
 
 A :class:`Study` is valid once built: segment numbers exist in the declared segment model, scores
-lie on the declared scales, stages come in protocol order and the study id is safe to use in a file
-name. Each field's ``description`` becomes the published JSON Schema of the study file
+lie on the declared scales, stages are put in protocol order (a file may list them in any order:
+the names fix the order) and the study id is safe to use in a file name. Each field's ``description`` becomes the published JSON Schema of the study file
 (``schemas/study.schema.json``). Scores are entered either as one character per segment
 (``"111111 111111 1111 1"``, ``x`` for not visualised) or as a mapping of segment number to score.
 """
@@ -248,6 +248,14 @@ PerfusionScores = Annotated[
 ]
 
 
+def _in_protocol_order(value: Any) -> Any:
+    """Stages sorted into protocol order (a file may list them in any order, e.g. sorted keys)."""
+    if not isinstance(value, dict):
+        return value
+    rank = {name: i for i, name in enumerate(_STAGE_VALUES)}
+    return dict(sorted(value.items(), key=lambda item: rank.get(item[0], len(rank))))
+
+
 class _Input(BaseModel):
     model_config = ConfigDict(
         extra="forbid", frozen=True, str_strip_whitespace=True, allow_inf_nan=False
@@ -400,8 +408,9 @@ class Study(_Input):
         max_length=500,
         description="standard, left_dominant, or a path to a lab map (YAML) relative to the study file.",
     )
-    stages: dict[Stage, StageData] = Field(
-        min_length=1, description="Stages in protocol order: any of rest, low_dose, peak, recovery."
+    stages: Annotated[dict[Stage, StageData], BeforeValidator(_in_protocol_order)] = Field(
+        min_length=1,
+        description="Any of rest, low_dose, peak, recovery, in any order: the names fix the order.",
     )
     exercise: Exercise | None = Field(
         default=None, description="Exercise results (treadmill or bicycle studies)."
@@ -529,18 +538,8 @@ def _study_problems(
     on: dt.date | None,
     age_years: int | None,
 ) -> list[InitErrorDetails]:
-    """Checks that need the whole study: stage order, scores against the model, age."""
+    """Checks that need the whole study: scores against the model, age."""
     problems: list[InitErrorDetails] = []
-    names = [name for name in stages if name in _STAGE_VALUES]
-    if names != sorted(names, key=_STAGE_VALUES.index):
-        given = ", ".join(names)
-        problems.append(
-            _problem(
-                ("stages",),
-                f"stages must come in protocol order (rest, low_dose, peak, recovery); given {given}",
-                given,
-            )
-        )
     for stage, by_kind in stages.items():
         for kind, scores in by_kind.items():
             where = ("stages", stage, kind)
