@@ -60,8 +60,16 @@ def internal(exc: BaseException) -> Problem:
     return Problem("", f"internal error: {type(exc).__name__}")
 
 
+_LINE_PREFIX = re.compile(r"^line \d+: ")
+
+
 def safe_location(location: str) -> str:
-    """``location`` with every token that is not a word of the study format replaced by ``…``."""
+    """``location`` with every token that is not a word of the study format replaced by ``…``.
+
+    A leading ``line N:`` is left out: the field path says where, and ``segreport validate`` run
+    by the operator on the identified file gives the line.
+    """
+    location = _LINE_PREFIX.sub("", location)
 
     def keep(match: re.Match[str]) -> str:
         token = match.group(0)
