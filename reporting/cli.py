@@ -378,13 +378,30 @@ def qa(
     type=click.Path(dir_okay=False, path_type=Path),
     help="Write the agreement JSON here (- for stdout, the default).",
 )
-def agreement(records_a: Path, records_b: Path, output: Path | None) -> None:
+@click.option(
+    "--pdf",
+    "pdf_path",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Also write the agreement as a PDF here.",
+)
+def agreement(records_a: Path, records_b: Path, output: Path | None, pdf_path: Path | None) -> None:
     """Agreement of two readers: RECORDS_A and RECORDS_B matched by study id (Cohen's kappa)."""
-    from reporting.qa import agreement_json, run_agreement
+    from reporting.files import all_or_nothing, write_atomic
+    from reporting.qa import agreement_json, run_agreement, write_agreement_pdf
 
     with _user_errors():
-        text = agreement_json(run_agreement(records_a, records_b))
-        _emit(text, output)
+        result = run_agreement(records_a, records_b)
+        text = agreement_json(result)
+        written = [p for p in (output, pdf_path) if p is not None]
+        with all_or_nothing(written):
+            if pdf_path is not None:
+                write_agreement_pdf(result, pdf_path)
+            if output is not None:
+                write_atomic(output, text)
+        if output is None:
+            click.echo(text, nl=False)
+        for path in written:
+            click.echo(f"Wrote {path}", err=True)
 
 
 @main.command()
