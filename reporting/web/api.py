@@ -57,14 +57,20 @@ class StudyListing(_Answer):
     modified: dt.datetime = Field(description="Last modified (UTC).")
     date: str | None = Field(description="Study date as written in the file.")
     patient: str | None = Field(description="Patient name as written in the file.")
-    valid: bool = Field(description="The file passes validation.")
+    valid: bool | None = Field(
+        description=(
+            "False when the file would be refused on sight (too large, empty, binary, not UTF-8); "
+            "null otherwise: the listing reads only the head of each file, opening it checks it all."
+        )
+    )
 
 
 class DraftListing(_Answer):
     """An autosaved draft."""
 
-    id: str = Field(description="Draft id (the study id, or 'untitled').")
+    id: str = Field(description="Draft id (chosen by the tab that keeps it).")
     modified: dt.datetime = Field(description="Last autosave (UTC).")
+    study_id: str | None = Field(description="The study id in the draft, if it has one.")
 
 
 class FolderListing(_Answer):
@@ -79,6 +85,7 @@ class OpenedStudy(_Answer):
 
     id: str = Field(description="Study id.")
     file: str = Field(description="File name in the studies folder.")
+    etag: str = Field(description="The version read (also the ETag header); send it as If-Match.")
     study: dict[str, Any] = Field(description="The study-file data (editable form).")
     problems: list[Problem] = Field(description="Validation problems of the file, if any.")
 
@@ -88,6 +95,18 @@ class Saved(_Answer):
 
     id: str = Field(description="Study id.")
     file: str = Field(description="File name written in the studies folder.")
+    etag: str = Field(description="The new version (also the ETag header).")
+    study: dict[str, Any] = Field(description="The study-file data as written (editable form).")
+
+
+class Conflict(_Answer):
+    """A save refused by its precondition (412 or 428): nothing was written."""
+
+    detail: str = Field(description="Why the save was refused.")
+    problems: list[Problem] = Field(description="The refusal, located at the file.")
+    current: OpenedStudy | None = Field(
+        description="The study as stored now (412), so the page can show what changed; null if removed."
+    )
 
 
 class DraftSaved(_Answer):
