@@ -134,3 +134,63 @@ def problem_of(error: InputError, source: str) -> Problem:
     else:
         path = location
     return Problem(location=location, path=path, problem=error.problem)
+
+
+# --- OpenAPI descriptions of refusals, headers and bodies ---------------------------------------
+
+REFUSED: dict[int | str, dict[str, Any]] = {
+    413: {"model": ProblemList, "description": "Request body too large."},
+    422: {
+        "model": ProblemList,
+        "description": "Located problems, as the command line prints them.",
+    },
+}
+
+
+PRECONDITIONS: dict[int | str, dict[str, Any]] = {
+    412: {
+        "model": Conflict,
+        "description": "The study changed since the version in If-Match; nothing was written.",
+    },
+    428: {"model": Conflict, "description": "An existing study was sent without If-Match."},
+}
+OWNED: dict[int | str, dict[str, Any]] = {
+    409: {"model": ProblemList, "description": "The draft belongs to another tab."}
+}
+IF_MATCH = {
+    "parameters": [
+        {
+            "name": "If-Match",
+            "in": "header",
+            "required": False,
+            "description": "The ETag of the version the changes start from; needed for an existing study.",
+            "schema": {"type": "string"},
+        }
+    ]
+}
+DRAFT_BODY = {
+    "parameters": [
+        {
+            "name": "X-Client-Id",
+            "in": "header",
+            "required": True,
+            "description": "The browser tab's id; a draft can be changed only by the tab that keeps it.",
+            "schema": {"type": "string"},
+        }
+    ],
+    "requestBody": {
+        "required": True,
+        "description": "The form data, valid or not.",
+        "content": {"application/json": {"schema": {"type": "object"}}},
+    },
+}
+
+
+def study_body(ref: str = "#/components/schemas/Study") -> dict[str, Any]:
+    return {
+        "requestBody": {
+            "required": True,
+            "description": "A study in the study-file format, as JSON.",
+            "content": {"application/json": {"schema": {"$ref": ref}}},
+        }
+    }

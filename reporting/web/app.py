@@ -1,11 +1,17 @@
-"""The entry server: a FastAPI app over one studies folder, and :func:`serve` to run it locally.
+"""The entry server: a FastAPI app over one studies folder (:mod:`reporting.web.server` runs it).
 
-The page (``templates/entry.html.j2`` with ``static/entry.js``) lets the reader click or type scores
-on the bull's-eye maps; every change goes to ``POST /api/analyze``, which runs the same load and
-analysis code as ``segreport analyze`` and answers with the record and the draft narrative, or with
-the command line's located problems (422). Saving writes ``<study id>.yaml`` into the folder;
-"report" writes the record, maps and PDF into its ``reports`` folder with
-:func:`reporting.render.write_report` and serves the PDF. Drafts autosave into a hidden folder.
+The page (``templates/entry.html.j2`` with ``static/entry.js``) lets the reader click or type
+scores on the bull's-eye maps; every change goes to ``POST /api/analyze``, which runs the same
+load and analysis code as ``segreport analyze`` and answers with the record and the draft
+narrative, or with the command line's located problems (422). ``GET /api/studies/{id}`` sends the
+file's version as an ``ETag``; a save sends it back as ``If-Match`` (:mod:`reporting.web.versions`:
+428 without it for an existing study, 412 when the file changed since, with the study as stored
+now) and writes the file it was opened from, or ``<study id>.yaml`` for a new study. "Report"
+writes the record, maps and PDF into the ``reports`` folder with
+:func:`reporting.render.write_report` and serves the PDF. Drafts autosave into a hidden folder,
+each owned by the browser tab that wrote it (``X-Client-Id``). Every refusal is a 4xx with
+located problems that name files relative to the studies folder; no route answers with a
+traceback.
 
 The server binds to 127.0.0.1 only, answers only loopback host names, caps request bodies at
 256 KB and serves every asset itself (no CDN; FastAPI's documentation pages, which load scripts
@@ -15,11 +21,8 @@ from a CDN, are switched off, while ``/openapi.json`` stays).
 from __future__ import annotations
 
 import datetime as dt
-import errno
 import json
 import logging
-import socket
-from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -39,6 +42,11 @@ from reporting.segments import BUILT_IN_MAPS
 from reporting.settings import Settings, default_settings
 from reporting.web import guard, pages, shapes
 from reporting.web.api import (
+    DRAFT_BODY,
+    IF_MATCH,
+    OWNED,
+    PRECONDITIONS,
+    REFUSED,
     AnalyzeResult,
     Conflict,
     DraftListing,
@@ -51,6 +59,7 @@ from reporting.web.api import (
     Saved,
     StudyListing,
     problem_of,
+    study_body,
 )
 from reporting.web.bodies import parse_body
 from reporting.web.store import DraftOwned, Folder, Stored, checked_id
@@ -63,62 +72,6 @@ HOST = "127.0.0.1"
 DEFAULT_PORT = 8765
 STUDY_SOURCE = "study"
 CLIENT_HEADER = "x-client-id"
-_REFUSED: dict[int | str, dict[str, Any]] = {
-    413: {"model": ProblemList, "description": "Request body too large."},
-    422: {
-        "model": ProblemList,
-        "description": "Located problems, as the command line prints them.",
-    },
-}
-
-
-_PRECONDITIONS: dict[int | str, dict[str, Any]] = {
-    412: {
-        "model": Conflict,
-        "description": "The study changed since the version in If-Match; nothing was written.",
-    },
-    428: {"model": Conflict, "description": "An existing study was sent without If-Match."},
-}
-_OWNED: dict[int | str, dict[str, Any]] = {
-    409: {"model": ProblemList, "description": "The draft belongs to another tab."}
-}
-_IF_MATCH = {
-    "parameters": [
-        {
-            "name": "If-Match",
-            "in": "header",
-            "required": False,
-            "description": "The ETag of the version the changes start from; needed for an existing study.",
-            "schema": {"type": "string"},
-        }
-    ]
-}
-_DRAFT_BODY = {
-    "parameters": [
-        {
-            "name": "X-Client-Id",
-            "in": "header",
-            "required": True,
-            "description": "The browser tab's id; a draft can be changed only by the tab that keeps it.",
-            "schema": {"type": "string"},
-        }
-    ],
-    "requestBody": {
-        "required": True,
-        "description": "The form data, valid or not.",
-        "content": {"application/json": {"schema": {"type": "object"}}},
-    },
-}
-
-
-def _study_body(ref: str = "#/components/schemas/Study") -> dict[str, Any]:
-    return {
-        "requestBody": {
-            "required": True,
-            "description": "A study in the study-file format, as JSON.",
-            "content": {"application/json": {"schema": {"$ref": ref}}},
-        }
-    }
 
 
 def _refused(status: int, detail: str, problems: list[Problem]) -> JSONResponse:
@@ -283,8 +236,8 @@ def create_app(
     @app.post(
         "/api/analyze",
         response_model=AnalyzeResult,
-        responses=_REFUSED,
-        openapi_extra=_study_body(),
+        responses=REFUSED,
+        openapi_extra=study_body(),
         summary="Validate and analyse a study (same code as `segreport analyze`)",
     )
     async def analyze_study(request: Request) -> JSONResponse:
@@ -332,7 +285,7 @@ def create_app(
     @app.get(
         "/api/studies/{study_id}",
         response_model=OpenedStudy,
-        responses=_REFUSED,
+        responses=REFUSED,
         summary="Read a study file for editing (its version in the ETag header)",
     )
     async def open_study(study_id: SafeId) -> JSONResponse:
@@ -342,8 +295,8 @@ def create_app(
     @app.put(
         "/api/studies/{study_id}",
         response_model=Saved,
-        responses=_REFUSED | _PRECONDITIONS,
-        openapi_extra=_study_body() | _IF_MATCH,
+        responses=REFUSED | PRECONDITIONS,
+        openapi_extra=study_body() | IF_MATCH,
         summary="Save a study: a new one as <study id>.yaml, an existing file under its own name",
     )
     async def save_study(study_id: SafeId, request: Request) -> JSONResponse:
@@ -374,7 +327,7 @@ def create_app(
     @app.post(
         "/api/studies/{study_id}/report",
         response_model=ReportFiles,
-        responses=_REFUSED,
+        responses=REFUSED,
         summary="Write the record, maps and PDF of a saved study into the reports folder",
     )
     def write_report(
@@ -409,15 +362,15 @@ def create_app(
     async def list_drafts() -> list[DraftListing]:
         return drafts()
 
-    @app.get("/api/drafts/{draft_id}", responses=_REFUSED, summary="Read an autosaved draft")
+    @app.get("/api/drafts/{draft_id}", responses=REFUSED, summary="Read an autosaved draft")
     async def read_draft(draft_id: SafeId) -> dict[str, Any]:
         return folder.read_draft(draft_id)
 
     @app.put(
         "/api/drafts/{draft_id}",
         response_model=DraftSaved,
-        responses=_REFUSED | _OWNED,
-        openapi_extra=_DRAFT_BODY,
+        responses=REFUSED | OWNED,
+        openapi_extra=DRAFT_BODY,
         summary="Autosave the page's form data (may be incomplete); X-Client-Id names the tab",
     )
     async def save_draft(draft_id: SafeId, request: Request) -> DraftSaved:
@@ -432,7 +385,7 @@ def create_app(
 
     @app.delete(
         "/api/drafts/{draft_id}",
-        responses=_REFUSED | _OWNED,
+        responses=REFUSED | OWNED,
         summary="Remove a draft of this tab (X-Client-Id) after saving the study",
     )
     async def delete_draft(draft_id: SafeId, request: Request) -> dict[str, bool]:
@@ -498,53 +451,3 @@ def _plain(value: Any) -> Any:
     if isinstance(value, dt.date | dt.datetime):
         return value.isoformat()
     return str(value)
-
-
-def bind(port: int) -> socket.socket:
-    """A listening socket on 127.0.0.1:``port``; a port in use is an :class:`InputError`."""
-    sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
-    sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
-    try:
-        sock.bind((HOST, port))
-        sock.listen(128)
-    except OSError as exc:
-        sock.close()
-        why = (
-            "is already in use"
-            if exc.errno == errno.EADDRINUSE
-            else f"cannot be used: {exc.strerror}"
-        )
-        raise InputError(
-            f"--port {port}", f"{HOST}:{port} {why}; stop the other server or choose another --port"
-        ) from None
-    return sock
-
-
-def serve(
-    studies_dir: Path,
-    port: int = DEFAULT_PORT,
-    *,
-    drafts_dir: Path | None = None,
-    reports_dir: Path | None = None,
-    settings: Settings | None = None,
-    log_level: str = "info",
-    on_ready: Callable[[str], None] | None = None,
-) -> None:
-    """Run the entry server on http://127.0.0.1:``port`` until interrupted (loopback only).
-
-    The folder and the port are checked before anything runs: an uncreatable studies folder or a
-    port in use raise :class:`ReportingError` (the command line prints ``Error:`` and exits 1).
-    ``on_ready`` gets the page's address once the port is bound.
-    """
-    import uvicorn
-
-    app = create_app(studies_dir, drafts_dir=drafts_dir, reports_dir=reports_dir, settings=settings)
-    sock = bind(port)
-    log.info("serving %s on http://%s:%d/", studies_dir, HOST, port)
-    if on_ready is not None:
-        on_ready(f"http://{HOST}:{port}/")
-    config = uvicorn.Config(app, host=HOST, port=port, log_level=log_level, server_header=False)
-    try:
-        uvicorn.Server(config).run(sockets=[sock])
-    finally:
-        sock.close()

@@ -3,9 +3,13 @@
 Every name that reaches the file system is a validated study id (the same rule as ``study.id``:
 1–64 letters, digits, ``.``, ``_`` or ``-``, never ``.`` or ``..``), and every resolved path is
 checked to lie inside its folder, so a request can never read or write outside the studies folder.
-Study files are written as YAML in the study-file format (scores in the one-character-per-segment
-form, grouped by ring) through :func:`~reporting.files.write_atomic`; drafts are the page's raw,
-possibly incomplete form data as JSON, kept in a hidden folder that ``segreport batch`` skips.
+A new study is written as ``<id>.yaml`` in the study-file format (scores in the
+one-character-per-segment form, grouped by ring); an existing one keeps its file name and format
+(``X.json`` stays JSON), always through :func:`~reporting.files.write_atomic` and only when its
+``If-Match`` names the stored bytes (:mod:`reporting.web.versions`). Files are read with a size
+limit and the listing reads only their heads (:mod:`reporting.web.reading`). Drafts are the page's
+raw, possibly incomplete form data as JSON, each owned by the browser tab that wrote it, kept in a
+hidden folder that ``segreport batch`` skips.
 """
 
 from __future__ import annotations
@@ -160,7 +164,10 @@ class Folder:
                 checked_id(path.stem, path.name)
             except InputError:
                 continue
-            found.append(_listing(path))
+            try:
+                found.append(_listing(path))
+            except OSError:
+                continue  # removed or replaced while listing
             if len(found) >= MAX_LISTED:
                 break
         return sorted(found, key=lambda item: item.modified, reverse=True)
