@@ -245,3 +245,9 @@ def test_draft_writes_need_a_tab_id(client: TestClient, headers: dict[str, str])
     response = client.put("/api/drafts/tab1-1", json={"study": {}}, headers=headers)
     assert response.status_code == 422
     assert response.json()["problems"][0]["location"] == "header x-client-id"
+
+
+def test_openapi_describes_the_preconditions(client: TestClient) -> None:
+    save = client.get("/openapi.json").json()["paths"]["/api/studies/{study_id}"]["put"]
+    assert {"412", "428"} <= set(save["responses"])
+    assert "If-Match" in [p["name"] for p in save["parameters"]]
