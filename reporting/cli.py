@@ -218,11 +218,14 @@ def serve(port: int, studies_dir: Path, settings_path: Path | None) -> None:
 
     with _user_errors():
         settings = load_settings(settings_path)
-    click.echo(
-        f"Score entry for {studies_dir.resolve()} on http://127.0.0.1:{port}/ (Ctrl+C stops)",
-        err=True,
-    )
-    run_server(studies_dir, port=port, settings=settings)
+        run_server(
+            studies_dir,
+            port=port,
+            settings=settings,
+            on_ready=lambda url: click.echo(
+                f"Score entry for {studies_dir.resolve()} on {url} (Ctrl+C stops)", err=True
+            ),
+        )
 
 
 @main.command()
