@@ -216,6 +216,7 @@ def analyze(
         conclusion=conclusion,
         notes=notes,
         cautions=list(CAUTIONS),
+        order=study.order,
     )
 
 

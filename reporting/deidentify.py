@@ -164,6 +164,7 @@ def deidentify(analysis: Analysis, key: bytes, *, keep_text: bool = False) -> An
             "contrast_agent": analysis.contrast_agent if keep_text else None,
             "stress": _stress_without_age(analysis.stress) if grouped else analysis.stress,
             "kinetics": kinetics,
+            "order": None,  # accession/order numbers, UIDs and clinicians identify (#16)
         }
     )
 
