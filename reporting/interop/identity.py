@@ -90,7 +90,7 @@ def imaging_study(analysis: Analysis, settings: Settings, *, new_study: bool) ->
         )
     made = make_uid(settings, "new-study", analysis.study.id)
     warning = NEW_STUDY_WARNING.format(uid=made)
-    log.warning(warning)
+    log.info(warning)
     return StudyIdentity(made, new_study=True, warning=warning)
 
 
