@@ -157,6 +157,8 @@ class _Builder:
         report_url = self.url("diagnostic-report")
         report = self.report(obs, subject, performer_ref, interpreter_ref, order_ref, pdf)
         self.add(report_url, report, _conditional("DiagnosticReport", report["identifier"][0]))
+        # The report comes first for a reader; a server orders a transaction by method anyway.
+        self.entries.insert(0, self.entries.pop())
         for url, resource in obs:
             self.add(url, resource, _conditional("Observation", resource["identifier"][0]))
         return {
