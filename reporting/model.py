@@ -418,7 +418,9 @@ class Clinician(_Input):
         min_length=1, description="Name as printed, e.g. 'Dr Ada Quill' (at most 64 characters)."
     )
     id: Annotated[str, _limited(CLINICIAN_ID_MAX, "a DICOM SH staff identifier")] | None = Field(
-        default=None, min_length=1, description="Staff number in the hospital (at most 16 characters)."
+        default=None,
+        min_length=1,
+        description="Staff number in the hospital (at most 16 characters).",
     )
 
 

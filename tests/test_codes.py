@@ -3,9 +3,10 @@
 from __future__ import annotations
 
 import re
-from typing import Any
+from typing import Any, cast
 
 import pytest
+from interop_cases import ORDER, demo_data
 from pydicom.sr._cid_dict import cid_concepts
 from pydicom.sr._concepts_dict import concepts
 from pydicom.sr.codedict import codes as pydicom_codes
@@ -15,7 +16,6 @@ from reporting.errors import InputErrors, problems_of
 from reporting.load import study_from_data
 from reporting.segments import SegmentModel, segments_of
 from reporting.settings import Settings, default_settings
-from tests.interop_cases import ORDER, demo_data
 
 # Per-segment wall-motion LOINC codes, HL7 Europe imaging report guide (as listed in FACTS.md §8).
 FACTS_LOINC = {
@@ -28,9 +28,10 @@ PYDICOM_CHECKED = [r for r in code_table().values() if r.code.scheme in (Scheme.
 
 def _meanings(scheme: str, value: str) -> set[str]:
     """Every meaning pydicom's concept dictionary gives ``value`` in ``scheme``."""
+    by_name = cast(dict[str, dict[str, tuple[str, list[int]]]], concepts[scheme])
     return {
         meaning
-        for by_value in concepts[scheme].values()
+        for by_value in by_name.values()
         for v, (meaning, _cids) in by_value.items()
         if v == value
     }
@@ -135,7 +136,11 @@ def _problems(order: dict[str, Any]) -> list[str]:
     ("field", "value", "words"),
     [
         # 17 characters: DICOM SH allows 16 (FACTS.md §10)
-        ("accession_number", "A" * 17, "is 17 characters; DICOM Accession Number (SH) holds at most 16 (refused, not cut)"),
+        (
+            "accession_number",
+            "A" * 17,
+            "is 17 characters; DICOM Accession Number (SH) holds at most 16 (refused, not cut)",
+        ),
         # 23 characters: HL7 v2.5.1 ORC-2 allows 22
         ("placer_order_number", "P" * 23, "HL7 Placer Order Number (ORC-2) holds at most 22"),
         # a backslash is DICOM's value separator

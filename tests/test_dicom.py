@@ -14,6 +14,18 @@ from pathlib import Path
 import pydicom
 import pytest
 from click.testing import CliRunner
+from interop_cases import (
+    AT,
+    CORRECTED,
+    DEMO,
+    FINAL,
+    ORDER,
+    PDF,
+    UNSIGNED,
+    demo_data,
+    ordered,
+    with_data,
+)
 from pydicom.dataset import Dataset
 from pydicom.uid import ComprehensiveSRStorage, EncapsulatedPDFStorage
 
@@ -23,7 +35,6 @@ from reporting.errors import InputError, InputErrors, problems_of
 from reporting.interop.dicom_files import dicom_bytes, dicom_objects
 from reporting.interop.release import Release
 from reporting.settings import default_settings
-from tests.interop_cases import AT, CORRECTED, DEMO, FINAL, ORDER, PDF, UNSIGNED, demo_data, ordered, with_data
 
 RELEASES = [UNSIGNED, FINAL, CORRECTED]
 RELEASE_IDS = ["unsigned", "final", "corrected"]
@@ -178,7 +189,11 @@ def test_conclusion_is_the_pdfs_impression() -> None:
 
     a = ordered()
     sr = read_back(dicom_objects(a, PDF, UNSIGNED, at=AT).sr)
-    texts = [i.TextValue for i in items(sr) if i.ValueType == "TEXT" and concept_of(i) == key("conclusion")]
+    texts = [
+        i.TextValue
+        for i in items(sr)
+        if i.ValueType == "TEXT" and concept_of(i) == key("conclusion")
+    ]
     assert len(texts) == 1
     printed = narrative_text(a)
     for paragraph in texts[0].split("\n"):
@@ -196,7 +211,9 @@ def test_without_the_imaging_study_uid_the_export_refuses_unless_asked() -> None
     a = ordered(study_instance_uid=None)
     with pytest.raises(InputError) as caught:
         dicom_objects(a, PDF, UNSIGNED, at=AT)
-    assert str(caught.value).startswith("order.study_instance_uid: the imaging study's Study Instance UID is missing")
+    assert str(caught.value).startswith(
+        "order.study_instance_uid: the imaging study's Study Instance UID is missing"
+    )
     made = dicom_objects(a, PDF, UNSIGNED, at=AT, new_study=True)
     assert made.warning is not None and "will file apart from the images" in made.warning
     assert made.sr.StudyInstanceUID.startswith("2.25.")  # UUID-derived root (no lab root set)
@@ -236,11 +253,12 @@ def test_dicom_command_writes_both_files_or_explains_the_refusal(tmp_path: Path)
     assert refused.exit_code == 1
     assert "Error: order.study_instance_uid:" in refused.output
     assert not out.exists() or not list(out.iterdir())  # no partial output
-    made = runner.invoke(main, ["dicom", str(DEMO / "DEMO-0001.yaml"), "-o", str(out), "--new-study"])
+    made = runner.invoke(
+        main, ["dicom", str(DEMO / "DEMO-0001.yaml"), "-o", str(out), "--new-study"]
+    )
     assert made.exit_code == 0, made.output
     assert "Warning: the imaging study's Study Instance UID is not known" in made.output
     sr = pydicom.dcmread(out / "DEMO-0001.sr.dcm")
     doc = pydicom.dcmread(out / "DEMO-0001.pdf.dcm")
     assert sr.VerificationFlag == "UNVERIFIED"  # file mode is never signed
     assert doc.EncapsulatedDocument[:5] == b"%PDF-"
-

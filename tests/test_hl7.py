@@ -17,12 +17,23 @@ from hl7apy import get_default_encoding_chars
 from hl7apy.consts import VALIDATION_LEVEL
 from hl7apy.parser import parse_message
 from hl7apy.v2_5_1 import ST
+from interop_cases import (
+    AT,
+    CORRECTED,
+    DEMO,
+    FINAL,
+    ORDER,
+    PDF,
+    UNSIGNED,
+    demo_data,
+    ordered,
+    with_data,
+)
 
 from reporting.cli import main
 from reporting.codes import HL7_SYSTEMS, code
 from reporting.interop.hl7 import escape, oru_message
 from reporting.interop.release import Release
-from tests.interop_cases import AT, CORRECTED, DEMO, FINAL, ORDER, PDF, UNSIGNED, demo_data, ordered, with_data
 
 RELEASES = [(UNSIGNED, "P"), (FINAL, "F"), (CORRECTED, "C")]
 NASTY = "Brennan | Quill^feather & Sons ~ back\\slash"  # every HL7 delimiter in one name
@@ -119,9 +130,9 @@ def test_stage_and_segment_are_in_the_sub_id() -> None:
         if field(o, 2) != "CWE":
             continue
         stage_n, segment_n = (int(x) for x in field(o, 4).split("."))
-        stage = a.stages[[s.value for s in a.stages].index(
-            ["rest", "low_dose", "peak", "recovery"][stage_n - 1]
-        )]
+        stage = a.stages[
+            [s.value for s in a.stages].index(["rest", "low_dose", "peak", "recovery"][stage_n - 1])
+        ]
         assert stage.value in field(o, 3)
         score = by_number[segment_n].wall_motion[stage]
         expected = code("wall_motion.x" if score is None else f"wall_motion.{score}")

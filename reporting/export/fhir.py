@@ -100,9 +100,7 @@ def coding(c: Code, lab_code_system_uri: str | None) -> dict[str, str] | None:
     return {"system": system, "code": c.value, "display": c.meaning}
 
 
-def concept(
-    codes: list[Code], text: str | None, lab_code_system_uri: str | None
-) -> dict[str, Any]:
+def concept(codes: list[Code], text: str | None, lab_code_system_uri: str | None) -> dict[str, Any]:
     """A CodeableConcept of ``codes`` (lab-local ones dropped without a system) and ``text``."""
     codings = [c for c in (coding(x, lab_code_system_uri) for x in codes) if c is not None]
     out: dict[str, Any] = {}
@@ -235,7 +233,11 @@ class _Builder:
             "subject": subject,
         }
         first = {k: v for k, v in idents[0].items() if k != "type"}
-        self.add(url, resource, {"method": "POST", "url": "ServiceRequest", "ifNoneExist": _search(first)})
+        self.add(
+            url,
+            resource,
+            {"method": "POST", "url": "ServiceRequest", "ifNoneExist": _search(first)},
+        )
         return {"reference": url}
 
     def report(

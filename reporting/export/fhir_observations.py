@@ -86,7 +86,9 @@ class _Observations:
         self.c = context
         self.a = context.analysis
         self.date = (
-            self.a.study.date.isoformat() if self.a.study.date is not None else f"{self.a.study.year:04d}"
+            self.a.study.date.isoformat()
+            if self.a.study.date is not None
+            else f"{self.a.study.year:04d}"
         )
         self.out: list[tuple[str, dict[str, Any]]] = []
 

@@ -12,7 +12,7 @@ import datetime as dt
 
 from pydicom.dataset import Dataset, FileMetaDataset
 from pydicom.sequence import Sequence
-from pydicom.uid import ExplicitVRLittleEndian, PYDICOM_IMPLEMENTATION_UID
+from pydicom.uid import PYDICOM_IMPLEMENTATION_UID, UID, ExplicitVRLittleEndian
 
 from reporting import __version__
 from reporting.model import Sex
@@ -33,8 +33,8 @@ def dicom_time(value: dt.datetime) -> str:
 def new_dataset(sop_class_uid: str, sop_instance_uid: str) -> Dataset:
     """An empty dataset with its file meta information (explicit VR little endian)."""
     meta = FileMetaDataset()
-    meta.MediaStorageSOPClassUID = sop_class_uid
-    meta.MediaStorageSOPInstanceUID = sop_instance_uid
+    meta.MediaStorageSOPClassUID = UID(sop_class_uid)
+    meta.MediaStorageSOPInstanceUID = UID(sop_instance_uid)
     meta.TransferSyntaxUID = ExplicitVRLittleEndian
     meta.ImplementationClassUID = PYDICOM_IMPLEMENTATION_UID
     meta.ImplementationVersionName = f"SEGREPORT_{__version__}"[:16]

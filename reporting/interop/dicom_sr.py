@@ -233,7 +233,11 @@ def sr_dataset(
 
 def _predecessor(release: Release, study_instance_uid: str) -> Sequence:
     before = release.predecessor
-    if before is None or before.sr_sop_instance_uid is None or before.sr_series_instance_uid is None:
+    if (
+        before is None
+        or before.sr_sop_instance_uid is None
+        or before.sr_series_instance_uid is None
+    ):
         raise ValueError("a corrected SR needs the SOP and series UIDs of the SR it replaces")
     instance = Dataset()
     instance.ReferencedSOPClassUID = ComprehensiveSRStorage
