@@ -382,6 +382,14 @@ REVIEWED = {
     "kinetics.cross_checks.source": "published source",
     "kinetics.criteria.name": "setting name",
     "kinetics.criteria.source": "published source",
+    "order.accession_number": "removed (the whole order block is dropped)",
+    "order.placer_order_number": "removed (the whole order block is dropped)",
+    "order.filler_order_number": "removed (the whole order block is dropped)",
+    "order.study_instance_uid": "removed (the whole order block is dropped)",
+    "order.performing.name": "removed (the whole order block is dropped)",
+    "order.performing.id": "removed (the whole order block is dropped)",
+    "order.interpreting.name": "removed (the whole order block is dropped)",
+    "order.interpreting.id": "removed (the whole order block is dropped)",
 }
 
 
