@@ -18,11 +18,14 @@ import datetime as dt
 import logging
 from functools import cache
 
+from pydicom.dataelem import RawDataElement
 from pydicom.dataset import Dataset
 from pydicom.sequence import Sequence
+from pydicom.tag import Tag
 from pydicom.uid import ComprehensiveSRStorage
 
-from reporting.codes import Code, code
+from reporting.codes import code
+from reporting.interop import dicom_items as items
 from reporting.interop import dicom_header as header
 from reporting.interop import words
 from reporting.interop.identity import interpreter
@@ -38,73 +41,30 @@ SR_SERIES_NUMBER = 901
 """Series number of the SR (a number well above the imaging series)."""
 _RISK_KEY = {DukeRisk.LOW: "risk.low", DukeRisk.INTERMEDIATE: "risk.intermediate"}
 _RISK_KEY[DukeRisk.HIGH] = "risk.high"
-_ITEM_ENCODING = "iso8859"
-
-
-def _new() -> Dataset:
-    # Declaring the encoding the items are written in spares pydicom a pass over every nested
-    # item per level (its ambiguous-VR correction), which otherwise dominates the writing time.
+def _coded(key: str) -> Dataset:
+    c = code(key)
     item = Dataset()
-    item.set_original_encoding(False, True, _ITEM_ENCODING)
-    return item
-
-
-@cache
-def _concept(key: str) -> Dataset:
-    # One shared item per code: the items are never changed once made, and making them anew for
-    # every use was a third of the SR's build time.
-    return _coded(code(key))
-
-
-def _coded(c: Code) -> Dataset:
-    item = _new()
     item.CodeValue = c.value
     item.CodingSchemeDesignator = c.scheme.value
     item.CodeMeaning = c.meaning
     return item
 
 
-def _item(relationship: str | None, value_type: str, name: str) -> Dataset:
-    item = _new()
-    if relationship is not None:
-        item.RelationshipType = relationship
-    item.ValueType = value_type
-    item.ConceptNameCodeSequence = Sequence([_concept(name)])
-    return item
+def _container(relationship: str | None, name: str, children: list[bytes]) -> bytes:
+    return items.content_item(relationship, "CONTAINER", name, continuity=True, children=children)
 
 
-def _container(relationship: str | None, name: str, children: list[Dataset]) -> Dataset:
-    item = _item(relationship, "CONTAINER", name)
-    item.ContinuityOfContent = "SEPARATE"
-    item.ContentSequence = Sequence(children)
-    return item
+def _code_item(relationship: str, name: str, value: str, *mods: bytes) -> bytes:
+    return items.content_item(relationship, "CODE", name, concept=value, children=list(mods))
 
 
-def _code_item(relationship: str, name: str, value: str, *mods: Dataset) -> Dataset:
-    item = _item(relationship, "CODE", name)
-    item.ConceptCodeSequence = Sequence([_concept(value)])
-    if mods:
-        item.ContentSequence = Sequence(list(mods))
-    return item
+def _text(relationship: str, name: str, text: str, *mods: bytes) -> bytes:
+    return items.content_item(relationship, "TEXT", name, text=text, children=list(mods))
 
 
-def _text(relationship: str, name: str, text: str, *mods: Dataset) -> Dataset:
-    item = _item(relationship, "TEXT", name)
-    item.TextValue = text
-    if mods:
-        item.ContentSequence = Sequence(list(mods))
-    return item
-
-
-def _num(name: str, value: float, unit: str, *mods: Dataset) -> Dataset:
-    item = _item("CONTAINS", "NUM", name)
-    measured = _new()
-    measured.NumericValue = _decimal_string(value)
-    measured.MeasurementUnitsCodeSequence = Sequence([_concept(unit)])
-    item.MeasuredValueSequence = Sequence([measured])
-    if mods:
-        item.ContentSequence = Sequence(list(mods))
-    return item
+def _num(name: str, value: float, unit: str, *mods: bytes) -> bytes:
+    measured = (_decimal_string(value), unit)
+    return items.content_item("CONTAINS", "NUM", name, measured=measured, children=list(mods))
 
 
 def _decimal_string(value: float) -> str:
@@ -113,17 +73,22 @@ def _decimal_string(value: float) -> str:
     return text if len(text) <= 16 else f"{value:.10g}"
 
 
-def _site(key: str) -> Dataset:
+@cache
+def _site(key: str) -> bytes:
     return _code_item("HAS CONCEPT MOD", "finding_site", key)
 
 
-def _pname(relationship: str, name: str, person: str) -> Dataset:
-    item = _item(relationship, "PNAME", name)
-    item.PersonName = person
-    return item
+@cache
+def _wall_motion(site: str, value: str) -> bytes:
+    # The same segment with the same finding recurs across stages and studies: encode it once.
+    return _code_item("CONTAINS", "wall_motion", value, _site(site))
 
 
-def _stage_findings(analysis: Analysis, stage: Stage) -> Dataset:
+def _pname(relationship: str, name: str, person: str) -> bytes:
+    return items.content_item(relationship, "PNAME", name, person=person)
+
+
+def _stage_findings(analysis: Analysis, stage: Stage) -> bytes:
     children = [_code_item("HAS ACQ CONTEXT", "protocol_stage", f"stage.{stage.value}")]
     h = analysis.haemodynamics.get(stage)
     if h is not None:
@@ -145,7 +110,7 @@ def _stage_findings(analysis: Analysis, stage: Stage) -> Dataset:
         if stage in seg.wall_motion:
             score = seg.wall_motion[stage]
             value = "wall_motion.x" if score is None else f"wall_motion.{score}"
-            children.append(_code_item("CONTAINS", "wall_motion", value, _site(site)))
+            children.append(_wall_motion(site, value))
     for seg in analysis.segments:
         score = seg.perfusion.get(stage)
         if score is not None:  # not visualised: no value to report, the PDF lists those
@@ -153,7 +118,7 @@ def _stage_findings(analysis: Analysis, stage: Stage) -> Dataset:
     return _container("CONTAINS", "findings", children)
 
 
-def _conclusions(analysis: Analysis) -> Dataset:
+def _conclusions(analysis: Analysis) -> bytes:
     children = [_text("CONTAINS", "conclusion", words.conclusion_text(analysis))]
     if analysis.conclusion.ischemia:
         children.append(_code_item("CONTAINS", "finding", "ischemia"))
@@ -166,7 +131,7 @@ def _conclusions(analysis: Analysis) -> Dataset:
     return _container("CONTAINS", "conclusions", children)
 
 
-def content_tree(analysis: Analysis) -> list[Dataset]:
+def content_tree(analysis: Analysis) -> list[bytes]:
     """The children of the root container, in reading order."""
     children = [
         _code_item("HAS CONCEPT MOD", "procedure_reported", "procedure"),
@@ -222,12 +187,20 @@ def sr_dataset(
     if request is not None:
         ds.ReferencedRequestSequence = request
     ds.PerformedProcedureCodeSequence = Sequence(
-        [_coded(code(f"protocol.{analysis.protocol.value}"))]
+        [_coded(f"protocol.{analysis.protocol.value}")]
     )
     ds.ValueType = "CONTAINER"
-    ds.ConceptNameCodeSequence = Sequence([_coded(code("report_title"))])
+    ds.ConceptNameCodeSequence = Sequence([_coded("report_title")])
     ds.ContinuityOfContent = "SEPARATE"
-    ds.ContentSequence = Sequence(content_tree(analysis))
+    content = items.sequence(items.CONTENT_SEQUENCE, content_tree(analysis))
+    # The encoded tree goes in as one raw element, written as it is (see dicom_items); pydicom
+    # writes the header and, the length being undefined, the sequence delimiter itself.
+    header_size = 12  # tag (4), VR (2), reserved (2), undefined length (4)
+    value = content[header_size : -len(items.SEQUENCE_END)]
+    ds[items.CONTENT_SEQUENCE] = RawDataElement(
+        Tag(items.CONTENT_SEQUENCE), "SQ", 0xFFFFFFFF, value, 0, False, True
+    )
+    ds.set_original_encoding(False, True, ds._character_set)
     return ds
 
 
