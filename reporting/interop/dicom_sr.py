@@ -25,8 +25,8 @@ from pydicom.tag import Tag
 from pydicom.uid import ComprehensiveSRStorage
 
 from reporting.codes import code
-from reporting.interop import dicom_items as items
 from reporting.interop import dicom_header as header
+from reporting.interop import dicom_items as items
 from reporting.interop import words
 from reporting.interop.identity import interpreter
 from reporting.interop.release import Release, ReportState
@@ -41,6 +41,8 @@ SR_SERIES_NUMBER = 901
 """Series number of the SR (a number well above the imaging series)."""
 _RISK_KEY = {DukeRisk.LOW: "risk.low", DukeRisk.INTERMEDIATE: "risk.intermediate"}
 _RISK_KEY[DukeRisk.HIGH] = "risk.high"
+
+
 def _coded(key: str) -> Dataset:
     c = code(key)
     item = Dataset()
@@ -186,9 +188,7 @@ def sr_dataset(
     request = header.referenced_request(analysis, study_instance_uid)
     if request is not None:
         ds.ReferencedRequestSequence = request
-    ds.PerformedProcedureCodeSequence = Sequence(
-        [_coded(f"protocol.{analysis.protocol.value}")]
-    )
+    ds.PerformedProcedureCodeSequence = Sequence([_coded(f"protocol.{analysis.protocol.value}")])
     ds.ValueType = "CONTAINER"
     ds.ConceptNameCodeSequence = Sequence([_coded("report_title")])
     ds.ContinuityOfContent = "SEPARATE"
