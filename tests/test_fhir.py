@@ -318,3 +318,13 @@ def test_fhir_command_writes_a_transaction_with_the_pdf(tmp_path: Path) -> None:
     report = resources(data, "DiagnosticReport")[0]
     assert data["type"] == "transaction" and report["status"] == "preliminary"
     assert base64.b64decode(report["presentedForm"][0]["data"]).startswith(b"%PDF-")
+
+
+def test_one_practitioner_entry_when_the_same_clinician_performs_and_interprets() -> None:
+    same = ORDER["interpreting"]
+    data = fhir.bundle(ordered(performing=same))
+    Bundle.model_validate(data)
+    (practitioner,) = resources(data, "Practitioner")
+    report = resources(data, "DiagnosticReport")[0]
+    assert report["performer"][0]["reference"] == report["resultsInterpreter"][0]["reference"]
+    assert practitioner["identifier"][0]["value"] == same["id"]

@@ -135,12 +135,12 @@ class _Builder:
 
     def bundle(self, pdf: bytes | None) -> dict[str, Any]:
         subject = self.patient()
-        performer_ref = self.practitioner("performer", performer(self.a))
+        performer_ref = self.practitioner(performer(self.a))
         reader = interpreter(self.a)
         if self.release.signer is not None:
             signer = self.release.signer
             reader = Clinician(name=signer.name, id=signer.id)
-        interpreter_ref = self.practitioner("interpreter", reader)
+        interpreter_ref = self.practitioner(reader)
         order_ref = self.service_request(subject)
         context = FhirContext(
             analysis=self.a,
@@ -188,10 +188,10 @@ class _Builder:
         self.add(url, resource, request)
         return {"reference": url}
 
-    def practitioner(self, role: str, person: Clinician | None) -> dict[str, Any] | None:
+    def practitioner(self, person: Clinician | None) -> dict[str, Any] | None:
         if person is None or self.a.study.deidentified:
             return None
-        url = self.url(f"practitioner/{role}/{person.name}/{person.id}")
+        url = self.url(f"practitioner/{person.name}/{person.id}")  # one entry per person
         if any(e["fullUrl"] == url for e in self.entries):
             return {"reference": url, "display": person.name}
         resource: dict[str, Any] = {"resourceType": "Practitioner"}
