@@ -228,6 +228,7 @@ def analyze(
         conclusion=answer,
         notes=notes,
         cautions=list(CAUTIONS),
+        order=study.order,
     )
 
 

@@ -555,12 +555,72 @@ def batch(
 def fhir_bundle(
     study: Path, output: Path | None, settings_path: Path | None, territory_map: str | None
 ) -> None:
-    """Write STUDY as an HL7 FHIR R4 Bundle (JSON): report, observations and patient."""
-    from reporting.analysis import analyze_file
+    """Write STUDY as an HL7 FHIR R4 transaction Bundle (JSON), preliminary (unsigned).
+
+    Patient, practitioners, the order, the DiagnosticReport with the PDF and its observations.
+    """
     from reporting.export.fhir import bundle_json
+    from reporting.interop.from_file import release_from_file
 
     with _user_errors():
-        text = bundle_json(
-            analyze_file(study, settings_path=settings_path, territory_map=territory_map)
+        r = release_from_file(study, settings_path=settings_path, territory_map=territory_map)
+        _emit(bundle_json(r.analysis, pdf=r.pdf, release=r.release, settings=r.settings), output)
+
+
+@main.command("hl7")
+@click.argument("study", type=click.Path(path_type=Path))
+@click.option(
+    "-o",
+    "--output",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Write the message here instead of to stdout.",
+)
+@_lab_options
+def hl7_message(
+    study: Path, output: Path | None, settings_path: Path | None, territory_map: str | None
+) -> None:
+    """Write STUDY as an HL7 v2.5.1 ORU^R01 result message, preliminary (status P)."""
+    from reporting.interop.from_file import release_from_file
+    from reporting.interop.hl7 import oru_message
+
+    with _user_errors():
+        r = release_from_file(study, settings_path=settings_path, territory_map=territory_map)
+        _emit(oru_message(r.analysis, r.pdf, r.release), output)
+
+
+@main.command("dicom")
+@click.argument("study", type=click.Path(path_type=Path))
+@click.option(
+    "-o",
+    "--output",
+    "outdir",
+    required=True,
+    type=click.Path(file_okay=False, path_type=Path),
+    help="Folder for <id>.sr.dcm (Comprehensive SR) and <id>.pdf.dcm (Encapsulated PDF).",
+)
+@click.option(
+    "--new-study",
+    is_flag=True,
+    help="File the result as a new study when the imaging study's UID is not known (it will not file with the images).",
+)
+@_lab_options
+def dicom(
+    study: Path,
+    outdir: Path,
+    new_study: bool,
+    settings_path: Path | None,
+    territory_map: str | None,
+) -> None:
+    """Write STUDY as a DICOM Comprehensive SR and Encapsulated PDF, unverified (unsigned)."""
+    from reporting.interop.dicom_files import dicom_objects, write_dicom
+    from reporting.interop.from_file import release_from_file
+
+    with _user_errors():
+        r = release_from_file(study, settings_path=settings_path, territory_map=territory_map)
+        objects = dicom_objects(
+            r.analysis, r.pdf, r.release, settings=r.settings, new_study=new_study
         )
-        _emit(text, output)
+        if objects.warning:
+            click.echo(f"Warning: {objects.warning}", err=True)
+        for path in write_dicom(r.analysis, objects, outdir):
+            click.echo(f"Wrote {path}")

@@ -16,6 +16,7 @@ from enum import StrEnum
 from typing import Annotated, Any, Literal
 
 from pydantic import (
+    AfterValidator,
     BaseModel,
     BeforeValidator,
     ConfigDict,
@@ -376,6 +377,90 @@ class Contrast(_Input):
     )
 
 
+# --- Order identity (issue #16): what the hospital's order, archive and clinicians call this study.
+# Limits are those of the fields the values travel in; a longer value is refused, never cut.
+ACCESSION_NUMBER_MAX = 16
+"""DICOM Accession Number is SH, at most 16 characters (PS3.5 table 6.2-1)."""
+ORDER_NUMBER_MAX = 22
+"""HL7 v2.5.1 ORC-2/ORC-3 (Placer/Filler Order Number, EI) length 22 [S, HL7 v2.5.1 ch. 4]."""
+UID_MAX = 64
+"""DICOM UI: at most 64 characters, digits in dot-separated components without leading zeros."""
+PERSON_NAME_MAX = 64
+"""DICOM PN: at most 64 characters per component group."""
+CLINICIAN_ID_MAX = 16
+"""DICOM SH (and HL7 XCN.1 fits it): the clinician's staff number."""
+_UID_PATTERN = re.compile(r"^(0|[1-9][0-9]*)(\.(0|[1-9][0-9]*))*$")
+
+
+def _limited(limit: int, field: str) -> Any:
+    """A check that refuses text over ``limit`` characters or holding backslashes/control chars."""
+
+    def check(value: str) -> str:
+        if len(value) > limit:
+            raise PydanticCustomError(
+                "too_long",
+                "{value} is {length} characters; {field} holds at most {limit} (refused, not cut)",
+                {"value": repr(value[:80]), "length": len(value), "field": field, "limit": limit},
+            )
+        if "\\" in value or any(ord(c) < 32 for c in value):
+            raise PydanticCustomError(
+                "bad_character",
+                "{value} holds a backslash or control character, which {field} does not allow",
+                {"value": repr(value[:80]), "field": field},
+            )
+        return value
+
+    return AfterValidator(check)
+
+
+def _uid(value: str) -> str:
+    if len(value) > UID_MAX or not _UID_PATTERN.fullmatch(value):
+        raise PydanticCustomError(
+            "uid",
+            "{value} is not a DICOM UID (digits in dot-separated parts, no leading zeros, at most 64 characters)",
+            {"value": repr(value[:80])},
+        )
+    return value
+
+
+class Clinician(_Input):
+    """A clinician named on the order: the performing or the interpreting one."""
+
+    name: Annotated[str, _limited(PERSON_NAME_MAX, "a DICOM person name")] = Field(
+        min_length=1, description="Name as printed, e.g. 'Dr Ada Quill' (at most 64 characters)."
+    )
+    id: Annotated[str, _limited(CLINICIAN_ID_MAX, "a DICOM SH staff identifier")] | None = Field(
+        default=None,
+        min_length=1,
+        description="Staff number in the hospital (at most 16 characters).",
+    )
+
+
+class Order(_Input):
+    """The order and imaging study this result belongs to, so it files beside the images."""
+
+    accession_number: (
+        Annotated[str, _limited(ACCESSION_NUMBER_MAX, "DICOM Accession Number (SH)")] | None
+    ) = Field(default=None, min_length=1, description="Accession number (at most 16 characters).")
+    placer_order_number: (
+        Annotated[str, _limited(ORDER_NUMBER_MAX, "HL7 Placer Order Number (ORC-2)")] | None
+    ) = Field(
+        default=None, min_length=1, description="Requesting system's order number (at most 22)."
+    )
+    filler_order_number: (
+        Annotated[str, _limited(ORDER_NUMBER_MAX, "HL7 Filler Order Number (ORC-3)")] | None
+    ) = Field(default=None, min_length=1, description="Performing lab's order number (at most 22).")
+    study_instance_uid: Annotated[str, AfterValidator(_uid)] | None = Field(
+        default=None, description="Study Instance UID of the imaging study in the archive."
+    )
+    performing: Clinician | None = Field(
+        default=None, description="Clinician who performed the study."
+    )
+    interpreting: Clinician | None = Field(
+        default=None, description="Clinician who interpreted the study (else the reader)."
+    )
+
+
 class Study(_Input):
     """A stress-echo study: identification, protocol, and scores per stage."""
 
@@ -456,6 +541,10 @@ class Study(_Input):
     )
     vasodilator: Vasodilator | None = Field(
         default=None, description="Vasodilator agent and dose (vasodilator studies only)."
+    )
+    order: Order | None = Field(
+        default=None,
+        description="Order and imaging-study identity: accession and order numbers, Study Instance UID, clinicians.",
     )
 
     @model_validator(mode="wrap")

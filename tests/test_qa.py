@@ -564,7 +564,7 @@ def test_review_class_of_each_kind_of_study() -> None:
     treadmill["protocol"] = "treadmill"
     del treadmill["stages"]["low_dose"]["dose_ug_kg_min"]
     assert review_class(analyze(study_from_data(treadmill))) is ReviewClass.NON_DIAGNOSTIC
-    # Inadequate stress without ischaemia is non-diagnostic (Ballal RS et al., 1997, FACTS §3)...
+    # Inadequate stress without ischaemia is non-diagnostic (Ballal RS et al., 1997)...
     assert review_class(record("N-1", adequate=False)) is ReviewClass.NON_DIAGNOSTIC
     # ...but ischaemia shown at submaximal stress still answers the question.
     shown = record("N-2", adequate=False, ischemic=(Territory.LAD,))

@@ -166,7 +166,7 @@ def test_lab_map_outside_the_studies_folder_is_refused(client: TestClient, tmp_p
 def test_left_dominant_map_changes_territories_and_boundaries(client: TestClient) -> None:
     standard = client.post("/api/analyze", json=lad_study()).json()
     left = client.post("/api/analyze", json=lad_study(territory_map="left_dominant")).json()
-    # left-dominant variant: 3, 4, 9, 10, 15 to LCx (FACTS.md §1, design choice)
+    # left-dominant variant: 3, 4, 9, 10, 15 to LCx (the published standard, design choice)
     assert left["record"]["territories"]["LCx"]["segments"] == [3, 4, 5, 6, 9, 10, 11, 12, 15, 16]
     assert left["territory_boundaries"] != standard["territory_boundaries"]
 
