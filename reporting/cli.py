@@ -20,6 +20,7 @@ import click
 
 from reporting import __version__
 from reporting.errors import ReportingError, problems_of
+from reporting.store.command import store_group
 from reporting.wording import CAUTION_LINE
 
 F = TypeVar("F", bound=Callable[..., Any])
@@ -515,3 +516,6 @@ def fhir_bundle(
             analyze_file(study, settings_path=settings_path, territory_map=territory_map)
         )
         _emit(text, output)
+
+
+main.add_command(store_group())  # `segreport store …`, loaded on first use
