@@ -27,7 +27,10 @@ def upgrade() -> None:
     bind = op.get_bind()
     dialect = bind.dialect.name
     triggers.remove(op.execute, dialect, ["versions"])
-    with op.batch_alter_table("versions", recreate="always") as batch:
+    # SQLite rebuilds the table (as any batch migration that alters columns does); PostgreSQL alters it
+    with op.batch_alter_table(
+        "versions", recreate="always" if dialect == "sqlite" else "auto"
+    ) as batch:
         batch.add_column(sa.Column("study_date", sa.String(10)))
     rows = bind.execute(sa.text("SELECT id, content FROM versions")).all()
     for pk, content in rows:
