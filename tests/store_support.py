@@ -54,18 +54,49 @@ def pg_socket() -> Iterator[str]:
         shutil.chown(sock, owner)
     run = {"check": True, "capture_output": True, "text": True, "cwd": base}
     subprocess.run(
-        _as_owner([str(bindir / "initdb"), "-D", str(data), "-U", "postgres", "-A", "trust",
-                   "--no-sync", "-E", "UTF8"], owner), **run)  # type: ignore[call-overload]
+        _as_owner(
+            [
+                str(bindir / "initdb"),
+                "-D",
+                str(data),
+                "-U",
+                "postgres",
+                "-A",
+                "trust",
+                "--no-sync",
+                "-E",
+                "UTF8",
+            ],
+            owner,
+        ),
+        **run,
+    )  # type: ignore[call-overload]
     options = f"-c listen_addresses='' -k {sock} -c fsync=off -c full_page_writes=off"
     subprocess.run(
-        _as_owner([str(bindir / "pg_ctl"), "-D", str(data), "-o", options, "-l", str(base / "log"),
-                   "-w", "start"], owner), **run)  # type: ignore[call-overload]
+        _as_owner(
+            [
+                str(bindir / "pg_ctl"),
+                "-D",
+                str(data),
+                "-o",
+                options,
+                "-l",
+                str(base / "log"),
+                "-w",
+                "start",
+            ],
+            owner,
+        ),
+        **run,
+    )  # type: ignore[call-overload]
     try:
         yield str(sock)
     finally:
         subprocess.run(
             _as_owner([str(bindir / "pg_ctl"), "-D", str(data), "-m", "immediate", "stop"], owner),
-            capture_output=True, cwd=base, check=False,
+            capture_output=True,
+            cwd=base,
+            check=False,
         )
         shutil.rmtree(base, ignore_errors=True)
 

@@ -26,7 +26,9 @@ CLI = Origin.CLI
 
 @pytest.fixture
 def db(store_url: str) -> Database:
-    return service.init_store(store_url, "alice", full_name="Dr Alice Example", password=PASSWORD, origin=CLI)
+    return service.init_store(
+        store_url, "alice", full_name="Dr Alice Example", password=PASSWORD, origin=CLI
+    )
 
 
 def login(db: Database, name: str = "alice", password: str = PASSWORD) -> users.Person:
@@ -42,7 +44,9 @@ def imported(db: Database, tmp_path: Path, data: dict | None = None) -> list[ver
     return versions.import_files(db, [path], login(db), origin=CLI)
 
 
-def test_sign_stores_record_and_pdf_and_show_returns_them_byte_for_byte(db: Database, tmp_path: Path) -> None:
+def test_sign_stores_record_and_pdf_and_show_returns_them_byte_for_byte(
+    db: Database, tmp_path: Path
+) -> None:
     imported(db, tmp_path)
     signed = signing.sign(db, "DEMO-0001", login(db), meaning="reviewed and approved", origin=CLI)
     assert (signed.version, signed.status) == (1, VersionStatus.FINAL)
@@ -53,17 +57,39 @@ def test_sign_stores_record_and_pdf_and_show_returns_them_byte_for_byte(db: Data
     assert hashlib.sha256(pdf).hexdigest() == signed.pdf_sha256
     text = pdf_text(pdf, -1)
     # 21 CFR 11.50: printed name, date and time, meaning; plus version, record hash and chain head
-    for expected in ("Dr Alice Example", "reviewed and approved", "Version 1 (final)", signed.record_sha256[:12], "UTC"):
+    for expected in (
+        "Dr Alice Example",
+        "reviewed and approved",
+        "Version 1 (final)",
+        signed.record_sha256[:12],
+        "UTC",
+    ):
         assert expected in text
     data = history.history(db, "DEMO-0001")
     assert [v["status"] for v in data["versions"]] == ["final"]
-    assert set(data["versions"][0]) >= {"version", "status", "author", "created_at", "reason", "content_sha256", "signature"}
-    assert set(data["versions"][0]["signature"]) >= {"signer", "signed_at", "meaning", "record_sha256", "pdf_sha256"}
+    assert set(data["versions"][0]) >= {
+        "version",
+        "status",
+        "author",
+        "created_at",
+        "reason",
+        "content_sha256",
+        "signature",
+    }
+    assert set(data["versions"][0]["signature"]) >= {
+        "signer",
+        "signed_at",
+        "meaning",
+        "record_sha256",
+        "pdf_sha256",
+    }
     assert [e["action"] for e in data["events"]] == ["import", "sign"]
     assert set(data["events"][0]) >= {"seq", "at", "actor", "action", "version", "origin"}
 
 
-def test_import_rules_new_version_noop_signed_and_other_patient(db: Database, tmp_path: Path) -> None:
+def test_import_rules_new_version_noop_signed_and_other_patient(
+    db: Database, tmp_path: Path
+) -> None:
     data = study_data()
     assert [(i.version, i.new) for i in imported(db, tmp_path, data)] == [(1, True)]
     assert [(i.version, i.new) for i in imported(db, tmp_path, data)] == [(1, False)]  # unchanged
@@ -88,7 +114,9 @@ def test_import_rules_new_version_noop_signed_and_other_patient(db: Database, tm
     ],
     ids=["wrong-password", "unknown-user"],
 )
-def test_bad_credentials_are_refused_and_audited(db: Database, name: str, password: str, message: str) -> None:
+def test_bad_credentials_are_refused_and_audited(
+    db: Database, name: str, password: str, message: str
+) -> None:
     with pytest.raises(AuthError, match=message):
         users.authenticate(db, name, password, origin=CLI)
     from reporting.store.verify import verify
@@ -102,13 +130,29 @@ def test_lockout_after_repeated_wrong_passwords_until_unlocked(db: Database) -> 
             users.authenticate(db, "alice", "wrong wrong wrong", origin=CLI)
     with pytest.raises(AuthError, match="locked"):  # bad: even the right password, once locked
         login(db)
-    users.add(db, "root2", full_name="Admin Two", roles=[users.Role.ADMIN], password="temporary pass 1", actor="alice", origin=CLI)
+    users.add(
+        db,
+        "root2",
+        full_name="Admin Two",
+        roles=[users.Role.ADMIN],
+        password="temporary pass 1",
+        actor="alice",
+        origin=CLI,
+    )
     users.unlock(db, "alice", actor="root2", origin=CLI)
     assert login(db).name == "alice"
 
 
 def test_reset_password_cannot_sign_until_changed(db: Database, tmp_path: Path) -> None:
-    users.add(db, "bob", full_name="Dr Bob Reader", roles=[users.Role.READER], password="temporary pass 1", actor="alice", origin=CLI)
+    users.add(
+        db,
+        "bob",
+        full_name="Dr Bob Reader",
+        roles=[users.Role.READER],
+        password="temporary pass 1",
+        actor="alice",
+        origin=CLI,
+    )
     imported(db, tmp_path)
     bob = users.authenticate(db, "bob", "temporary pass 1", origin=CLI)
     with pytest.raises(AuthError, match="change it first"):  # bad: an admin-set password
@@ -128,7 +172,9 @@ def test_a_signed_version_is_never_signed_again(db: Database, tmp_path: Path) ->
         signing.sign(db, "DEMO-0001", login(db), origin=CLI)
 
 
-def test_amendment_names_superseded_version_and_reason_on_page_one(db: Database, tmp_path: Path) -> None:
+def test_amendment_names_superseded_version_and_reason_on_page_one(
+    db: Database, tmp_path: Path
+) -> None:
     imported(db, tmp_path)
     first = signing.sign(db, "DEMO-0001", login(db), origin=CLI)
     data = study_data()
@@ -136,14 +182,20 @@ def test_amendment_names_superseded_version_and_reason_on_page_one(db: Database,
     path = write_study(tmp_path / "amend", data)
     with pytest.raises(Exception, match="needs a reason"):  # bad: amending without a reason
         signing.amend(db, "DEMO-0001", login(db), path=path, origin=CLI)
-    amended = signing.amend(db, "DEMO-0001", login(db), path=path, reason="peak heart rate mistyped", origin=CLI)
+    amended = signing.amend(
+        db, "DEMO-0001", login(db), path=path, reason="peak heart rate mistyped", origin=CLI
+    )
     assert (amended.version, amended.status) == (2, VersionStatus.AMENDED)
     pdf = history.show(db, "DEMO-0001", 2, tmp_path / "out")[2].read_bytes()
     page1 = pdf_text(pdf, 0)
     assert "version 2 supersedes version 1" in page1 and "peak heart rate mistyped" in page1
-    appended = signing.amend(db, "DEMO-0001", login(db), addendum="Recovery images reviewed again.", origin=CLI)
+    appended = signing.amend(
+        db, "DEMO-0001", login(db), addendum="Recovery images reviewed again.", origin=CLI
+    )
     assert (appended.version, appended.status) == (3, VersionStatus.APPENDED)
-    assert "Recovery images reviewed again." in pdf_text(history.show(db, "DEMO-0001", 3, tmp_path / "o3")[2].read_bytes())
+    assert "Recovery images reviewed again." in pdf_text(
+        history.show(db, "DEMO-0001", 3, tmp_path / "o3")[2].read_bytes()
+    )
     import hashlib
 
     again = history.show(db, "DEMO-0001", 1, tmp_path / "o1")[2].read_bytes()
@@ -158,7 +210,9 @@ def test_amending_an_unsigned_study_is_refused(db: Database, tmp_path: Path) -> 
         signing.amend(db, "DEMO-0001", login(db), addendum="note", origin=CLI)
 
 
-def test_stale_impression_blocks_signing(monkeypatch: pytest.MonkeyPatch, db: Database, tmp_path: Path) -> None:
+def test_stale_impression_blocks_signing(
+    monkeypatch: pytest.MonkeyPatch, db: Database, tmp_path: Path
+) -> None:
     # Issue #13 adds the marker to studies; until then the seam is exercised with a stand-in.
     imported(db, tmp_path)
     monkeypatch.setattr(signing, "impression_marker", lambda study: "a" * 64)
@@ -169,7 +223,9 @@ def test_stale_impression_blocks_signing(monkeypatch: pytest.MonkeyPatch, db: Da
     assert signing.sign(db, "DEMO-0001", login(db), origin=CLI).version == 1
 
 
-def test_prior_study_is_the_latest_earlier_signed_study_of_the_patient(db: Database, tmp_path: Path) -> None:
+def test_prior_study_is_the_latest_earlier_signed_study_of_the_patient(
+    db: Database, tmp_path: Path
+) -> None:
     dates = {"P-1": "2024-03-01", "P-2": "2025-05-02", "P-3": "2026-01-10"}
     for sid, date in dates.items():
         data = study_data()

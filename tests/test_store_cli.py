@@ -27,13 +27,25 @@ def run(*args: str, stdin: str = "") -> Result:
 @pytest.fixture
 def db(tmp_path: Path) -> str:
     path = str(tmp_path / "s.db")
-    result = run("init", "--db", path, "--admin", "alice", "--full-name", "Dr Alice Example", "--password-stdin", stdin=PASSWORD + "\n")
+    result = run(
+        "init",
+        "--db",
+        path,
+        "--admin",
+        "alice",
+        "--full-name",
+        "Dr Alice Example",
+        "--password-stdin",
+        stdin=PASSWORD + "\n",
+    )
     assert result.exit_code == 0, result.output
     return path
 
 
 def as_alice(db: str, *args: str, extra: str = "") -> Result:
-    return run(*args, "--db", db, "--as", "alice", "--password-stdin", stdin=PASSWORD + "\n" + extra)
+    return run(
+        *args, "--db", db, "--as", "alice", "--password-stdin", stdin=PASSWORD + "\n" + extra
+    )
 
 
 def test_help_does_not_import_the_store_libraries() -> None:
@@ -62,7 +74,9 @@ def test_store_workflow_through_the_command_line(db: str, tmp_path: Path) -> Non
     assert out.exit_code == 0
     from pypdf import PdfReader
 
-    text = "".join(PdfReader(tmp_path / "show" / "DEMO-0001.v1.pdf").pages[-1].extract_text().split())
+    text = "".join(
+        PdfReader(tmp_path / "show" / "DEMO-0001.v1.pdf").pages[-1].extract_text().split()
+    )
     printed = re.search(r"Auditchainhead([0-9a-f]{64})", text)
     assert printed is not None, text
     # the head printed at signing is an earlier link of the same chain
@@ -75,14 +89,28 @@ def test_store_workflow_through_the_command_line(db: str, tmp_path: Path) -> Non
 @pytest.mark.parametrize(
     ("args", "stdin", "message"),
     [
-        (("sign", "DEMO-0001"), "wrong password here\n", "Error: --as alice: wrong password"),  # bad: wrong password
-        (("amend", "DEMO-0001", "FILE"), PASSWORD + "\n", "Error: --reason: an amendment needs a reason"),  # bad: no reason
-        (("sign", "NOPE-1"), PASSWORD + "\n", "Error: study NOPE-1: not in the store"),  # bad: unknown study
+        (
+            ("sign", "DEMO-0001"),
+            "wrong password here\n",
+            "Error: --as alice: wrong password",
+        ),  # bad: wrong password
+        (
+            ("amend", "DEMO-0001", "FILE"),
+            PASSWORD + "\n",
+            "Error: --reason: an amendment needs a reason",
+        ),  # bad: no reason
+        (
+            ("sign", "NOPE-1"),
+            PASSWORD + "\n",
+            "Error: study NOPE-1: not in the store",
+        ),  # bad: unknown study
         (("sign", "DEMO-0001"), "", "Error: --password-stdin: no line"),  # bad: no password given
     ],
     ids=["wrong-password", "amend-without-reason", "unknown-study", "no-password"],
 )
-def test_bad_input_is_one_located_error_line(db: str, tmp_path: Path, args: tuple[str, ...], stdin: str, message: str) -> None:
+def test_bad_input_is_one_located_error_line(
+    db: str, tmp_path: Path, args: tuple[str, ...], stdin: str, message: str
+) -> None:
     path = write_study(tmp_path / "in", study_data())
     as_alice(db, "import", str(path))
     as_alice(db, "sign", "DEMO-0001") if "amend" in args else None
@@ -107,11 +135,15 @@ def test_export_writes_the_same_registry_and_tables_as_batch(db: str, tmp_path: 
         data["study"]["report_status"] = "preliminary"
         write_study(folder, data)
     assert as_alice(db, "import", *map(str, sorted(folder.glob("*.yaml")))).exit_code == 0
-    batch = CliRunner().invoke(main, ["batch", str(folder), "-o", str(tmp_path / "batch"), "--no-pdf", "-q"])
+    batch = CliRunner().invoke(
+        main, ["batch", str(folder), "-o", str(tmp_path / "batch"), "--no-pdf", "-q"]
+    )
     assert batch.exit_code == 0, batch.output
     assert run("export", "-o", str(tmp_path / "export"), "--db", db).exit_code == 0
     for name in ("registry.ndjson", "studies.csv", "segments.csv"):
-        assert (tmp_path / "export" / name).read_text() == (tmp_path / "batch" / name).read_text(), name
+        assert (tmp_path / "export" / name).read_text() == (
+            tmp_path / "batch" / name
+        ).read_text(), name
     assert as_alice(db, "sign", "DEMO-0002").exit_code == 0
     assert run("export", "-o", str(tmp_path / "final"), "--final-only", "--db", db).exit_code == 0
     lines = (tmp_path / "final" / "registry.ndjson").read_text().splitlines()
@@ -120,7 +152,9 @@ def test_export_writes_the_same_registry_and_tables_as_batch(db: str, tmp_path: 
     assert run("verify", "--expect-head", head, "--db", db).exit_code == 0
 
 
-def test_deidentified_export_holds_no_names(db: str, tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+def test_deidentified_export_holds_no_names(
+    db: str, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
     monkeypatch.setenv("SEGREPORT_DEID_KEY", "a test key of enough length")
     path = write_study(tmp_path / "in", study_data())
     as_alice(db, "import", str(path))
@@ -129,12 +163,18 @@ def test_deidentified_export_holds_no_names(db: str, tmp_path: Path, monkeypatch
     assert "Brennan Quillfeather" not in registry and "DEMO-0001" not in registry
 
 
-ACTIONS = st.lists(st.sampled_from(["import-change", "sign", "amend", "addendum"]), min_size=1, max_size=6)
+ACTIONS = st.lists(
+    st.sampled_from(["import-change", "sign", "amend", "addendum"]), min_size=1, max_size=6
+)
 
 
-@settings(max_examples=8, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(
+    max_examples=8, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+)
 @given(actions=ACTIONS)
-def test_any_sequence_keeps_every_signed_pdf_byte_identical(tmp_path_factory: pytest.TempPathFactory, actions: list[str]) -> None:
+def test_any_sequence_keeps_every_signed_pdf_byte_identical(
+    tmp_path_factory: pytest.TempPathFactory, actions: list[str]
+) -> None:
     from hashlib import sha256
 
     from reporting.store import history, service, signing, users, versions
@@ -142,7 +182,9 @@ def test_any_sequence_keeps_every_signed_pdf_byte_identical(tmp_path_factory: py
     from reporting.store.errors import StoreError
 
     tmp = tmp_path_factory.mktemp("prop")
-    db = service.init_store(str(tmp / "s.db"), "alice", full_name=None, password=PASSWORD, origin=Origin.CLI)
+    db = service.init_store(
+        str(tmp / "s.db"), "alice", full_name=None, password=PASSWORD, origin=Origin.CLI
+    )
     who = users.authenticate(db, "alice", PASSWORD, origin=Origin.CLI)
     data = study_data()
     versions.import_files(db, [write_study(tmp / "in", data)], who, origin=Origin.CLI)
@@ -157,7 +199,9 @@ def test_any_sequence_keeps_every_signed_pdf_byte_identical(tmp_path_factory: py
                 signed[s.version] = s.pdf_sha256
             elif action == "amend":
                 path = write_study(tmp / "amend", data)
-                s = signing.amend(db, "DEMO-0001", who, path=path, reason=f"step {step}", origin=Origin.CLI)
+                s = signing.amend(
+                    db, "DEMO-0001", who, path=path, reason=f"step {step}", origin=Origin.CLI
+                )
                 signed[s.version] = s.pdf_sha256
             else:
                 s = signing.amend(db, "DEMO-0001", who, addendum=f"note {step}", origin=Origin.CLI)

@@ -23,7 +23,9 @@ CLI = Origin.CLI
 
 @pytest.fixture
 def db(store_url: str) -> Database:
-    return service.init_store(store_url, "alice", full_name="Dr Alice Example", password=PASSWORD, origin=CLI)
+    return service.init_store(
+        store_url, "alice", full_name="Dr Alice Example", password=PASSWORD, origin=CLI
+    )
 
 
 def login(db: Database) -> users.Person:
@@ -64,10 +66,14 @@ def test_upgrade_from_the_first_schema_keeps_data_and_triggers(tmp_path: Path) -
     from alembic import command
 
     url = resolve_url(str(tmp_path / "old.db"))
-    engine = __import__("reporting.store.engine", fromlist=["make_engine"]).make_engine(url, foreign_keys=False)
+    engine = __import__("reporting.store.engine", fromlist=["make_engine"]).make_engine(
+        url, foreign_keys=False
+    )
     with engine.begin() as conn:
         command.upgrade(migrate.alembic_config(conn), "0001")  # type: ignore[arg-type]
-        conn.exec_driver_sql("INSERT INTO studies (id, study_id, created_at) VALUES (1, 'S-1', 't')")
+        conn.exec_driver_sql(
+            "INSERT INTO studies (id, study_id, created_at) VALUES (1, 'S-1', 't')"
+        )
         conn.exec_driver_sql(
             "INSERT INTO versions (study_pk, version, status, author, created_at, content, content_sha256) "
             """VALUES (1, 1, 'preliminary', 'a', 't', CAST('{"study":{"study":{"date":"2026-01-02"}}}' AS BLOB), 'x')"""
@@ -85,7 +91,12 @@ def test_upgrade_from_the_first_schema_keeps_data_and_triggers(tmp_path: Path) -
 @pytest.mark.parametrize("table", ["versions", "signatures", "events", "studies"])
 def test_database_refuses_update_and_delete(db: Database, tmp_path: Path, table: str) -> None:
     signed_study(db, tmp_path)
-    column = {"versions": "author", "signatures": "meaning", "events": "actor", "studies": "patient_id"}[table]
+    column = {
+        "versions": "author",
+        "signatures": "meaning",
+        "events": "actor",
+        "studies": "patient_id",
+    }[table]
     for statement in (f"UPDATE {table} SET {column} = 'mallory'", f"DELETE FROM {table}"):
         with pytest.raises(Exception, match="append-only"):  # bad: rewriting history
             raw(db, statement)
@@ -106,16 +117,38 @@ def drop_trigger(db: Database, table: str) -> None:
 @pytest.mark.parametrize(
     ("table", "statement", "message"),
     [
-        ("versions", "UPDATE versions SET content = {blob}", "study DEMO-0001 version 1: the stored content does not match"),
-        ("signatures", "UPDATE signatures SET pdf = {blob}", "signature of study DEMO-0001 version 1: the stored PDF does not match"),
-        ("signatures", "UPDATE signatures SET record_json = {blob}", "the stored record does not match"),
-        ("signatures", "UPDATE signatures SET meaning = 'authorship only'", "meaning differs from event"),
-        ("events", "UPDATE events SET actor = 'mallory' WHERE action = 'sign'", "column actor differs from the hashed event"),
+        (
+            "versions",
+            "UPDATE versions SET content = {blob}",
+            "study DEMO-0001 version 1: the stored content does not match",
+        ),
+        (
+            "signatures",
+            "UPDATE signatures SET pdf = {blob}",
+            "signature of study DEMO-0001 version 1: the stored PDF does not match",
+        ),
+        (
+            "signatures",
+            "UPDATE signatures SET record_json = {blob}",
+            "the stored record does not match",
+        ),
+        (
+            "signatures",
+            "UPDATE signatures SET meaning = 'authorship only'",
+            "meaning differs from event",
+        ),
+        (
+            "events",
+            "UPDATE events SET actor = 'mallory' WHERE action = 'sign'",
+            "column actor differs from the hashed event",
+        ),
         ("versions", "UPDATE versions SET author = 'mallory'", "author differs from event"),
     ],
     ids=["content", "pdf", "record", "meaning", "event-column", "version-author"],
 )
-def test_tampering_is_found_by_verify(db: Database, tmp_path: Path, table: str, statement: str, message: str) -> None:
+def test_tampering_is_found_by_verify(
+    db: Database, tmp_path: Path, table: str, statement: str, message: str
+) -> None:
     signed_study(db, tmp_path)
     head = verify(db).head
     drop_trigger(db, table)  # an attacker with the database first removes the trigger
@@ -132,7 +165,9 @@ def test_rewritten_store_is_found_only_with_an_external_head(db: Database, tmp_p
     for table in ("signatures", "versions", "events"):
         drop_trigger(db, table)
     # the owner of the database removes the addendum consistently: rows and their events
-    raw(db, "DELETE FROM signatures WHERE version_pk IN (SELECT id FROM versions WHERE version = 2)")
+    raw(
+        db, "DELETE FROM signatures WHERE version_pk IN (SELECT id FROM versions WHERE version = 2)"
+    )
     raw(db, "DELETE FROM versions WHERE version = 2")
     raw(db, "DELETE FROM events WHERE version = 2")
     assert verify(db).versions == 1  # the rewritten store is consistent in itself…
@@ -140,7 +175,9 @@ def test_rewritten_store_is_found_only_with_an_external_head(db: Database, tmp_p
         verify(db, kept)  # …which only a head kept elsewhere reveals
 
 
-def test_two_amendments_of_one_version_at_once_one_wins(db: Database, tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+def test_two_amendments_of_one_version_at_once_one_wins(
+    db: Database, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
     signed_study(db, tmp_path)
     barrier = threading.Barrier(2, timeout=30)
     original = signing._render
@@ -187,13 +224,21 @@ def test_unreachable_postgresql_shows_url_without_password() -> None:
     with pytest.raises(StoreError) as caught:
         service.open_store(url)
     message = str(caught.value)
-    assert "s3cret-pw" not in message and "lab:***@" in message and "cannot use the database" in message
+    assert (
+        "s3cret-pw" not in message
+        and "lab:***@" in message
+        and "cannot use the database" in message
+    )
 
 
-def test_locked_sqlite_store_is_a_clear_error(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+def test_locked_sqlite_store_is_a_clear_error(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
     from reporting.store import engine
 
-    db = service.init_store(str(tmp_path / "s.db"), "alice", full_name=None, password=PASSWORD, origin=CLI)
+    db = service.init_store(
+        str(tmp_path / "s.db"), "alice", full_name=None, password=PASSWORD, origin=CLI
+    )
     monkeypatch.setattr(engine, "BUSY_TIMEOUT_MS", 200)
     other = Database(db.url, engine.make_engine(db.url))
     with db.write() as held:  # another process holds the write lock

@@ -47,7 +47,9 @@ def _actor(func: F) -> F:
         is_flag=True,
         help="Read passwords from standard input, one per line (the acting user's first).",
     )(func)
-    return click.option("--as", "actor", required=True, metavar="USER", help="The acting user.")(func)
+    return click.option("--as", "actor", required=True, metavar="USER", help="The acting user.")(
+        func
+    )
 
 
 class _Passwords:
@@ -81,9 +83,13 @@ def store() -> None:
 
 @store.command("init")
 @_db
-@click.option("--admin", required=True, metavar="NAME", help="User id of the first user (admin and reader).")
+@click.option(
+    "--admin", required=True, metavar="NAME", help="User id of the first user (admin and reader)."
+)
 @click.option("--full-name", help="Printed name of the first user [default: NAME].")
-@click.option("--password-stdin", is_flag=True, help="Read the new admin's password from standard input.")
+@click.option(
+    "--password-stdin", is_flag=True, help="Read the new admin's password from standard input."
+)
 def init(db: str | None, admin: str, full_name: str | None, password_stdin: bool) -> None:
     """Create a new store and its first user (the only unauthenticated act)."""
     from reporting.store.service import init_store
@@ -119,11 +125,25 @@ def user() -> None:
 
 @user.command("add")
 @click.argument("name")
-@click.option("--role", "roles", multiple=True, required=True, type=click.Choice(ROLES), help="Role (repeatable).")
+@click.option(
+    "--role",
+    "roles",
+    multiple=True,
+    required=True,
+    type=click.Choice(ROLES),
+    help="Role (repeatable).",
+)
 @click.option("--full-name", help="Printed name shown on signed reports [default: NAME].")
 @_actor
 @_db
-def user_add(name: str, roles: tuple[str, ...], full_name: str | None, actor: str, password_stdin: bool, db: str | None) -> None:
+def user_add(
+    name: str,
+    roles: tuple[str, ...],
+    full_name: str | None,
+    actor: str,
+    password_stdin: bool,
+    db: str | None,
+) -> None:
     """Add user NAME with a temporary password (it cannot sign until NAME changes it)."""
     from reporting.store.users import Role, add
 
@@ -131,7 +151,15 @@ def user_add(name: str, roles: tuple[str, ...], full_name: str | None, actor: st
         passwords = _Passwords(password_stdin)
         database, who = _login(db, actor, passwords, Role.ADMIN)
         new = passwords.read(f"Temporary password for {name}", new=True)
-        add(database, name, full_name=full_name or name, roles=[Role(r) for r in roles], password=new, actor=who.name, origin=Origin.CLI)
+        add(
+            database,
+            name,
+            full_name=full_name or name,
+            roles=[Role(r) for r in roles],
+            password=new,
+            actor=who.name,
+            origin=Origin.CLI,
+        )
         click.echo(f"Added user {name} ({', '.join(sorted(roles))})", err=True)
 
 
@@ -197,31 +225,54 @@ def import_(paths: tuple[Path, ...], actor: str, password_stdin: bool, db: str |
 
 @store.command("sign")
 @click.argument("study_id")
-@click.option("--meaning", metavar="TEXT", help="Meaning of the signature [default: reviewed and approved as the final report].")
+@click.option(
+    "--meaning",
+    metavar="TEXT",
+    help="Meaning of the signature [default: reviewed and approved as the final report].",
+)
 @_actor
 @_db
-def sign(study_id: str, meaning: str | None, actor: str, password_stdin: bool, db: str | None) -> None:
+def sign(
+    study_id: str, meaning: str | None, actor: str, password_stdin: bool, db: str | None
+) -> None:
     """Sign the latest version of STUDY_ID (password re-entered)."""
     from reporting.store.signing import sign as run_sign
 
     with _user_errors():
         database, who = _login(db, actor, _Passwords(password_stdin))
         signed = run_sign(database, study_id, who, meaning=meaning, origin=Origin.CLI)
-        click.echo(f"Signed {signed.study_id} v{signed.version} ({signed.status.value}); PDF sha256 {signed.pdf_sha256}")
+        click.echo(
+            f"Signed {signed.study_id} v{signed.version} ({signed.status.value}); PDF sha256 {signed.pdf_sha256}"
+        )
 
 
 @store.command("amend")
 @click.argument("study_id")
 @click.argument("file", required=False, type=click.Path(path_type=Path))
-@click.option("--reason", metavar="TEXT", help="Why the signed version is replaced (needed with FILE).")
-@click.option("--addendum", metavar="TEXT", help="Text added to the signed report (instead of FILE).")
-@click.option("--correction", is_flag=True, help="The new version corrects an error (status corrected, not amended).")
+@click.option(
+    "--reason", metavar="TEXT", help="Why the signed version is replaced (needed with FILE)."
+)
+@click.option(
+    "--addendum", metavar="TEXT", help="Text added to the signed report (instead of FILE)."
+)
+@click.option(
+    "--correction",
+    is_flag=True,
+    help="The new version corrects an error (status corrected, not amended).",
+)
 @click.option("--meaning", metavar="TEXT", help="Meaning of the signature.")
 @_actor
 @_db
 def amend(
-    study_id: str, file: Path | None, reason: str | None, addendum: str | None, correction: bool,
-    meaning: str | None, actor: str, password_stdin: bool, db: str | None,
+    study_id: str,
+    file: Path | None,
+    reason: str | None,
+    addendum: str | None,
+    correction: bool,
+    meaning: str | None,
+    actor: str,
+    password_stdin: bool,
+    db: str | None,
 ) -> None:
     """Make and sign a new version of a signed study: from FILE (with --reason) or --addendum TEXT."""
     from reporting.store.signing import amend as run_amend
@@ -229,16 +280,34 @@ def amend(
     with _user_errors():
         database, who = _login(db, actor, _Passwords(password_stdin))
         signed = run_amend(
-            database, study_id, who, path=file, addendum=addendum, reason=reason,
-            correction=correction, meaning=meaning, origin=Origin.CLI,
+            database,
+            study_id,
+            who,
+            path=file,
+            addendum=addendum,
+            reason=reason,
+            correction=correction,
+            meaning=meaning,
+            origin=Origin.CLI,
         )
-        click.echo(f"Signed {signed.study_id} v{signed.version} ({signed.status.value}); PDF sha256 {signed.pdf_sha256}")
+        click.echo(
+            f"Signed {signed.study_id} v{signed.version} ({signed.status.value}); PDF sha256 {signed.pdf_sha256}"
+        )
 
 
 @store.command("show")
 @click.argument("study_id")
-@click.option("--version", "number", type=click.IntRange(min=1), help="Version [default: the latest].")
-@click.option("-o", "--output", "outdir", required=True, type=click.Path(file_okay=False, path_type=Path), help="Folder for the study, record and PDF.")
+@click.option(
+    "--version", "number", type=click.IntRange(min=1), help="Version [default: the latest]."
+)
+@click.option(
+    "-o",
+    "--output",
+    "outdir",
+    required=True,
+    type=click.Path(file_okay=False, path_type=Path),
+    help="Folder for the study, record and PDF.",
+)
 @_db
 def show(study_id: str, number: int | None, outdir: Path, db: str | None) -> None:
     """Write a version's study, record and PDF (a signed version's exactly as signed)."""
@@ -262,11 +331,18 @@ def history(study_id: str, as_json: bool, db: str | None) -> None:
 
     with _user_errors():
         data = run_history(open_store(db), study_id)
-    click.echo(json.dumps(data, indent=2, ensure_ascii=False) if as_json else history_text(data), nl=as_json)
+    click.echo(
+        json.dumps(data, indent=2, ensure_ascii=False) if as_json else history_text(data),
+        nl=as_json,
+    )
 
 
 @store.command("verify")
-@click.option("--expect-head", metavar="HEX", help="A chain head kept outside the store (from a signed PDF or an export).")
+@click.option(
+    "--expect-head",
+    metavar="HEX",
+    help="A chain head kept outside the store (from a signed PDF or an export).",
+)
 @_db
 def verify(expect_head: str | None, db: str | None) -> None:
     """Recompute every hash; print the chain head; exit 1 naming the first broken link."""
@@ -285,12 +361,29 @@ def verify(expect_head: str | None, db: str | None) -> None:
 
 
 @store.command("export")
-@click.option("-o", "--output", "outdir", required=True, type=click.Path(file_okay=False, path_type=Path), help="Folder for records, registry and tables.")
-@click.option("--deidentify", is_flag=True, help="De-identify every record (as `batch --deidentify`).")
-@click.option("--deid-key-file", type=click.Path(dir_okay=False, path_type=Path), help="Secret key for the hashed ids [default: $SEGREPORT_DEID_KEY].")
-@click.option("--final-only", is_flag=True, help="Signed versions only (studies never signed are left out).")
+@click.option(
+    "-o",
+    "--output",
+    "outdir",
+    required=True,
+    type=click.Path(file_okay=False, path_type=Path),
+    help="Folder for records, registry and tables.",
+)
+@click.option(
+    "--deidentify", is_flag=True, help="De-identify every record (as `batch --deidentify`)."
+)
+@click.option(
+    "--deid-key-file",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Secret key for the hashed ids [default: $SEGREPORT_DEID_KEY].",
+)
+@click.option(
+    "--final-only", is_flag=True, help="Signed versions only (studies never signed are left out)."
+)
 @_db
-def export(outdir: Path, deidentify: bool, deid_key_file: Path | None, final_only: bool, db: str | None) -> None:
+def export(
+    outdir: Path, deidentify: bool, deid_key_file: Path | None, final_only: bool, db: str | None
+) -> None:
     """Write the registry and tables `batch` writes, from the store."""
     from reporting.store.export import export as run_export
     from reporting.store.service import open_store

@@ -67,7 +67,9 @@ def from_file(path: Path) -> Content:
         ("perfusion_curves", study.perfusion_curves),
         ("territory_map", study.territory_map),
     ):
-        if relative is None or (field == "territory_map" and "/" not in relative and "." not in relative):
+        if relative is None or (
+            field == "territory_map" and "/" not in relative and "." not in relative
+        ):
             continue
         try:
             files[relative] = (path.parent / relative).read_text(encoding="utf-8")
@@ -83,7 +85,9 @@ def parse(data: bytes) -> Content:
     value = json.loads(data)
     raw = value["study"]
     # canonical JSON sorts keys; the stages go back into protocol order
-    raw["stages"] = {s.value: raw["stages"][s.value] for s in STAGE_ORDER if s.value in raw["stages"]}
+    raw["stages"] = {
+        s.value: raw["stages"][s.value] for s in STAGE_ORDER if s.value in raw["stages"]
+    }
     study = study_from_data(raw, source="stored study")
     addenda = tuple(value.get("addenda", ()))
     return Content(study, dict(value["files"]), addenda, bytes(data), sha256_hex(bytes(data)))
@@ -109,7 +113,9 @@ def analyse(content: Content, *, final: bool) -> Analysis:
         for name, text in content.files.items():
             target = (base / name).resolve()
             if not target.is_relative_to(base.resolve()):
-                raise InputError(f"stored {content.study_id}", f"file name {name!r} leaves the folder")
+                raise InputError(
+                    f"stored {content.study_id}", f"file name {name!r} leaves the folder"
+                )
             target.parent.mkdir(parents=True, exist_ok=True)
             target.write_text(text, encoding="utf-8")
         study_path = base / STUDY_FILE

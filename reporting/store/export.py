@@ -49,7 +49,9 @@ def _chosen(db: Database, final_only: bool) -> Iterator[tuple[str, bytes, bytes 
     """(study id, content bytes, signed record or None) of each exported study, by study id."""
     with db.read() as session:
         query = (
-            select(StudyRow.study_id, VersionRow.content, SignatureRow.record_json, VersionRow.version)
+            select(
+                StudyRow.study_id, VersionRow.content, SignatureRow.record_json, VersionRow.version
+            )
             .join(VersionRow, VersionRow.study_pk == StudyRow.id)
             .outerjoin(SignatureRow, SignatureRow.version_pk == VersionRow.id)
             .order_by(StudyRow.study_id, VersionRow.version.desc())
@@ -72,7 +74,9 @@ def export(
         outdir.mkdir(parents=True, exist_ok=True)
         aggregates = Aggregates(outdir, str, redact=key is not None)
     except OSError as exc:
-        raise OutputError(str(outdir), f"cannot write the export folder: {exc.strerror or exc}") from None
+        raise OutputError(
+            str(outdir), f"cannot write the export folder: {exc.strerror or exc}"
+        ) from None
     with db.read() as session:
         head = audit.chain_head(session)
     try:

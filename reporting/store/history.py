@@ -81,7 +81,9 @@ def history_text(data: dict[str, Any]) -> str:
     lines = [f"Study {data['study_id']} (patient {data['patient_id'] or 'not given'})", "Versions:"]
     for v in data["versions"]:
         sig = v["signature"]
-        signed = f"; signed by {sig['signer']} at {sig['signed_at']} ({sig['meaning']})" if sig else ""
+        signed = (
+            f"; signed by {sig['signer']} at {sig['signed_at']} ({sig['meaning']})" if sig else ""
+        )
         lines.append(
             f"  v{v['version']} {v['status']}: {v['author']} at {v['created_at']}, "
             f"{v['reason']}; content {v['content_sha256'][:12]}{signed}"
@@ -131,7 +133,9 @@ class PriorStudy:
 def prior_signed(session: Session, patient_id: str, before: dt.date) -> PriorStudy | None:
     """The latest signed study of ``patient_id`` dated before ``before`` (its newest signed version)."""
     row = session.execute(
-        select(StudyRow.study_id, VersionRow.version, VersionRow.study_date, SignatureRow.record_json)
+        select(
+            StudyRow.study_id, VersionRow.version, VersionRow.study_date, SignatureRow.record_json
+        )
         .join(VersionRow, VersionRow.study_pk == StudyRow.id)
         .join(SignatureRow, SignatureRow.version_pk == VersionRow.id)
         .where(StudyRow.patient_id == patient_id, VersionRow.study_date < before.isoformat())

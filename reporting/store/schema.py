@@ -58,9 +58,7 @@ class StudyRow(Base):
 
 class VersionRow(Base):
     __tablename__ = "versions"
-    __table_args__ = (
-        UniqueConstraint("study_pk", "version", name="uq_versions_study_version"),
-    )
+    __table_args__ = (UniqueConstraint("study_pk", "version", name="uq_versions_study_version"),)
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
     study_pk: Mapped[int] = mapped_column(ForeignKey("studies.id"), index=True)

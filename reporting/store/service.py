@@ -24,7 +24,9 @@ def open_store(db: str | None) -> Database:
     return migrate.open_database(resolve_url(db))
 
 
-def init_store(db: str | None, admin: str, *, full_name: str | None, password: str, origin: Origin) -> Database:
+def init_store(
+    db: str | None, admin: str, *, full_name: str | None, password: str, origin: Origin
+) -> Database:
     """Create a new store and its first user (roles admin and reader)."""
     url = resolve_url(db)
     check_new_password(password, f"user {admin}")
@@ -37,11 +39,19 @@ def init_store(db: str | None, admin: str, *, full_name: str | None, password: s
     if path is None:
         with database.read() as session:
             if inspect(session.connection()).has_table("alembic_version"):
-                raise StoreError(database.shown, "already holds a store; `store init` creates a new store only")
+                raise StoreError(
+                    database.shown, "already holds a store; `store init` creates a new store only"
+                )
     try:
         migrate.upgrade(url)
         with database.write() as session:
-            audit.append(session, action="store_init", actor=admin, origin=origin, detail={"schema": migrate.HEAD})
+            audit.append(
+                session,
+                action="store_init",
+                actor=admin,
+                origin=origin,
+                detail={"schema": migrate.HEAD},
+            )
             create(
                 session,
                 admin,
@@ -55,12 +65,23 @@ def init_store(db: str | None, admin: str, *, full_name: str | None, password: s
     except BaseException:
         database.dispose()
         if path is not None:
-            for leftover in (path, path.with_name(path.name + "-wal"), path.with_name(path.name + "-shm")):
+            for leftover in (
+                path,
+                path.with_name(path.name + "-wal"),
+                path.with_name(path.name + "-shm"),
+            ):
                 leftover.unlink(missing_ok=True)
         raise
     return database
 
 
-def act_as(database: Database, name: str, password: str, *, role: Role | None = None, origin: Origin = Origin.CLI) -> Person:
+def act_as(
+    database: Database,
+    name: str,
+    password: str,
+    *,
+    role: Role | None = None,
+    origin: Origin = Origin.CLI,
+) -> Person:
     """Authenticate the acting user (``--as``)."""
     return authenticate(database, name, password, role=role, origin=origin)

@@ -173,10 +173,20 @@ def sign(
                 "again (amend it: `segreport store amend`)",
             )
         stored = content.parse(row.content)
-        number, status, pk, head = row.version, VersionStatus(row.status), row.id, audit.chain_head(session)
+        number, status, pk, head = (
+            row.version,
+            VersionStatus(row.status),
+            row.id,
+            audit.chain_head(session),
+        )
     rendered = _render(
-        stored, who, number=number, status=effective_status(status, True), meaning=meaning,
-        head=head, signed_at=now(),
+        stored,
+        who,
+        number=number,
+        status=effective_status(status, True),
+        meaning=meaning,
+        head=head,
+        signed_at=now(),
     )
     with db.write() as session:
         study, row = versions.get_version(session, study_id, None)
@@ -223,20 +233,31 @@ def amend(
         base_pk, base_number, head = base.id, base.version, audit.chain_head(session)
     signed_at = now()
     if addendum is not None:
-        stored = content.with_addendum(old, {"text": addendum, "author": who.full_name, "at": signed_at})
+        stored = content.with_addendum(
+            old, {"text": addendum, "author": who.full_name, "at": signed_at}
+        )
         status, reason = VersionStatus.APPENDED, reason or "addendum"
     else:
         assert path is not None
         stored = content.from_file(path)
         _same_study(stored, old, path)
         if stored.study == old.study and stored.files == old.files:
-            raise InputError(str(path), f"unchanged from the signed version {base_number}; nothing to amend")
+            raise InputError(
+                str(path), f"unchanged from the signed version {base_number}; nothing to amend"
+            )
         stored = content.build(stored.study, stored.files, old.addenda)
         status = VersionStatus.CORRECTED if correction else VersionStatus.AMENDED
     number = base_number + 1
     rendered = _render(
-        stored, who, number=number, status=status, meaning=_text(meaning, "--meaning") or DEFAULT_MEANING,
-        head=head, signed_at=signed_at, supersedes=base_number, reason=reason,
+        stored,
+        who,
+        number=number,
+        status=status,
+        meaning=_text(meaning, "--meaning") or DEFAULT_MEANING,
+        head=head,
+        signed_at=signed_at,
+        supersedes=base_number,
+        reason=reason,
     )
     with db.write() as session:
         study, current = versions.get_version(session, study_id, None)
@@ -247,8 +268,15 @@ def amend(
                 f"(by {current.author}); nothing was written — review it and amend again",
             )
         row = versions.add_version(
-            session, study, stored, number=number, parent=base_number, status=status,
-            author=who.name, reason=reason, origin=origin,
+            session,
+            study,
+            stored,
+            number=number,
+            parent=base_number,
+            status=status,
+            author=who.name,
+            reason=reason,
+            origin=origin,
             action="addendum" if status is VersionStatus.APPENDED else "amend",
         )
         signed = _store_signature(session, study, row, rendered, origin=origin)

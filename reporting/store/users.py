@@ -142,16 +142,15 @@ def authenticate(
     where = f"--as {name}"
     with db.read() as session:
         user = find(session, name)
-        if user is None:
-            found = None
-        else:
-            found = (user.password_hash, user.locked, person(user))
+        found = None if user is None else (user.password_hash, user.locked, person(user))
     if found is None:
         _failure(db, name, "unknown user", origin, known=False)
         raise AuthError(where, "unknown user (or wrong password)")
     stored, locked, who = found
     if locked:
-        raise AuthError(where, "the account is locked; an admin must unlock it (`store user unlock`)")
+        raise AuthError(
+            where, "the account is locked; an admin must unlock it (`store user unlock`)"
+        )
     try:
         hasher().verify(stored, password)
     except (VerificationError, InvalidHashError):
@@ -181,10 +180,16 @@ def _failure(db: Database, name: str, why: str, origin: Origin, *, known: bool) 
             locked = user.failed_attempts >= MAX_FAILED_ATTEMPTS
             user.locked = locked
         audit.append(
-            session, action="auth_failed", actor=None, origin=origin, detail={"user": name, "why": why}
+            session,
+            action="auth_failed",
+            actor=None,
+            origin=origin,
+            detail={"user": name, "why": why},
         )
         if locked:
-            audit.append(session, action="user_locked", actor=None, origin=origin, detail={"user": name})
+            audit.append(
+                session, action="user_locked", actor=None, origin=origin, detail={"user": name}
+            )
     log.info("failed sign-in for %s: %s", name, why)
     return locked
 
@@ -222,7 +227,9 @@ def unlock(db: Database, name: str, *, actor: str, origin: Origin) -> None:
             raise StoreError(f"user {name}", "unknown user")
         user.locked = False
         user.failed_attempts = 0
-        audit.append(session, action="user_unlock", actor=actor, origin=origin, detail={"user": name})
+        audit.append(
+            session, action="user_unlock", actor=actor, origin=origin, detail={"user": name}
+        )
 
 
 def add(

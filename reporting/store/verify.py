@@ -43,14 +43,16 @@ class Verified:
 def verify(db: Database, expect_head: str | None = None) -> Verified:
     if expect_head is not None:
         expect_head = expect_head.strip().lower()
-        if len(expect_head) < MIN_HEAD_PREFIX or any(c not in "0123456789abcdef" for c in expect_head):
-            raise StoreError("--expect-head", f"give the chain head as hex (at least {MIN_HEAD_PREFIX} digits)")
+        if len(expect_head) < MIN_HEAD_PREFIX or any(
+            c not in "0123456789abcdef" for c in expect_head
+        ):
+            raise StoreError(
+                "--expect-head", f"give the chain head as hex (at least {MIN_HEAD_PREFIX} digits)"
+            )
     with db.read() as session:
         events = session.scalars(select(EventRow).order_by(EventRow.seq)).all()
         head = _chain(db.shown, events)
-        by_version = {
-            (e.study_id, e.version, e.action): e for e in events if e.version is not None
-        }
+        by_version = {(e.study_id, e.version, e.action): e for e in events if e.version is not None}
         rows = session.execute(
             select(VersionRow, StudyRow.study_id).join(StudyRow, StudyRow.id == VersionRow.study_pk)
         ).all()
@@ -70,7 +72,9 @@ def verify(db: Database, expect_head: str | None = None) -> Verified:
             if e.action in VERSION_ACTIONS and key not in found:
                 raise IntegrityFailure(db.shown, f"{audit.describe(e)}: its version row is missing")
             if e.action == "sign" and key not in signed:
-                raise IntegrityFailure(db.shown, f"{audit.describe(e)}: its signature row is missing")
+                raise IntegrityFailure(
+                    db.shown, f"{audit.describe(e)}: its signature row is missing"
+                )
     at = None
     if expect_head is not None:
         at = next((e.seq for e in events if e.hash.startswith(expect_head)), None)
@@ -84,25 +88,34 @@ def verify(db: Database, expect_head: str | None = None) -> Verified:
 
 
 def _chain(where: str, events: Iterable[EventRow]) -> str:
-    prev, seq = audit.GENESIS, 0
-    for e in events:
-        seq += 1
+    prev = audit.GENESIS
+    for seq, e in enumerate(events, start=1):
         name = audit.describe(e)
         if e.seq != seq:
             raise IntegrityFailure(where, f"event {seq} is missing (next is {name})")
         if e.prev_hash != prev:
-            raise IntegrityFailure(where, f"{name}: does not link to event {seq - 1} (previous hash differs)")
+            raise IntegrityFailure(
+                where, f"{name}: does not link to event {seq - 1} (previous hash differs)"
+            )
         if sha256_hex(bytes(e.body)) != e.hash:
             raise IntegrityFailure(where, f"{name}: its hash does not match its stored bytes")
         body = audit.body_of(e)
         columns = {
-            "seq": e.seq, "at": e.at, "actor": e.actor, "action": e.action,
-            "study_id": e.study_id, "version": e.version, "origin": e.origin,
-            "host": e.host, "prev_hash": e.prev_hash,
+            "seq": e.seq,
+            "at": e.at,
+            "actor": e.actor,
+            "action": e.action,
+            "study_id": e.study_id,
+            "version": e.version,
+            "origin": e.origin,
+            "host": e.host,
+            "prev_hash": e.prev_hash,
         }
         changed = sorted(k for k, v in columns.items() if body.get(k) != v)
         if changed:
-            raise IntegrityFailure(where, f"{name}: column {', '.join(changed)} differs from the hashed event")
+            raise IntegrityFailure(
+                where, f"{name}: column {', '.join(changed)} differs from the hashed event"
+            )
         prev = e.hash
     return prev
 
@@ -126,15 +139,23 @@ def _version(where: str, row: VersionRow, sid: str, by: dict[Any, EventRow]) -> 
         )
 
 
-def _signature(where: str, sig: SignatureRow, row: VersionRow, sid: str, by: dict[Any, EventRow]) -> None:
+def _signature(
+    where: str, sig: SignatureRow, row: VersionRow, sid: str, by: dict[Any, EventRow]
+) -> None:
     name = f"signature of study {sid} version {row.version}"
     if sha256_hex(bytes(sig.record_json)) != sig.record_sha256:
-        raise IntegrityFailure(where, f"{name}: the stored record does not match its SHA-256 (altered)")
+        raise IntegrityFailure(
+            where, f"{name}: the stored record does not match its SHA-256 (altered)"
+        )
     if sha256_hex(bytes(sig.pdf)) != sig.pdf_sha256:
-        raise IntegrityFailure(where, f"{name}: the stored PDF does not match its SHA-256 (altered)")
+        raise IntegrityFailure(
+            where, f"{name}: the stored PDF does not match its SHA-256 (altered)"
+        )
     event = by.get((sid, row.version, "sign"))
     if event is None:
         raise IntegrityFailure(where, f"{name}: no audit event records it")
     changed = _differs(signature_facts(sig, row), audit.body_of(event))
     if changed:
-        raise IntegrityFailure(where, f"{name}: {', '.join(changed)} differs from {audit.describe(event)}")
+        raise IntegrityFailure(
+            where, f"{name}: {', '.join(changed)} differs from {audit.describe(event)}"
+        )

@@ -96,13 +96,17 @@ def get_version(session: Session, study_id: str, number: int | None) -> tuple[St
         select(VersionRow).where(VersionRow.study_pk == study.id, VersionRow.version == number)
     ).first()
     if row is None:
-        count = session.scalar(select(func.max(VersionRow.version)).where(VersionRow.study_pk == study.id))
+        count = session.scalar(
+            select(func.max(VersionRow.version)).where(VersionRow.study_pk == study.id)
+        )
         raise StoreError(f"study {study_id}", f"has no version {number} (versions 1–{count})")
     return study, row
 
 
 def signature_of(session: Session, version: VersionRow) -> SignatureRow | None:
-    return session.scalars(select(SignatureRow).where(SignatureRow.version_pk == version.id)).first()
+    return session.scalars(
+        select(SignatureRow).where(SignatureRow.version_pk == version.id)
+    ).first()
 
 
 def add_version(
@@ -159,7 +163,10 @@ def import_files(
         try:
             stored = content.from_file(Path(path))
         except ReportingError as exc:
-            problems += [p if isinstance(p, InputError) else InputError(str(path), str(p)) for p in problems_of(exc)]
+            problems += [
+                p if isinstance(p, InputError) else InputError(str(path), str(p))
+                for p in problems_of(exc)
+            ]
             continue
         if stored.study_id in seen:
             problems.append(
@@ -188,8 +195,16 @@ def _import_one(
         session.add(study)
         session.flush()
         add_version(
-            session, study, stored, number=1, parent=None, status=VersionStatus.PRELIMINARY,
-            author=who.name, reason="imported", origin=origin, action="import",
+            session,
+            study,
+            stored,
+            number=1,
+            parent=None,
+            status=VersionStatus.PRELIMINARY,
+            author=who.name,
+            reason="imported",
+            origin=origin,
+            action="import",
         )
         return Imported(path, stored.study_id, 1, True)
     if study.patient_id != stored.patient_id:
@@ -208,8 +223,15 @@ def _import_one(
             "`segreport store amend` (with a reason), not by importing",
         )
     add_version(
-        session, study, stored, number=last.version + 1, parent=last.version,
-        status=VersionStatus.PRELIMINARY, author=who.name, reason="changed file imported",
-        origin=origin, action="import",
+        session,
+        study,
+        stored,
+        number=last.version + 1,
+        parent=last.version,
+        status=VersionStatus.PRELIMINARY,
+        author=who.name,
+        reason="changed file imported",
+        origin=origin,
+        action="import",
     )
     return Imported(path, stored.study_id, last.version + 1, True)
