@@ -76,9 +76,8 @@ def make_engine(url: URL, *, foreign_keys: bool = True) -> Engine:
     if url.get_backend_name() == "postgresql":
         engine = create_engine(url, poolclass=NullPool, connect_args={"connect_timeout": 10})
         return engine
-    engine = create_engine(
-        url, poolclass=NullPool, connect_args={"timeout": BUSY_TIMEOUT_MS / 1000}
-    )
+    # pooled: the connection set-up below runs once per connection, not once per transaction
+    engine = create_engine(url, connect_args={"timeout": BUSY_TIMEOUT_MS / 1000})
 
     @event.listens_for(engine, "connect")
     def _connect(dbapi_connection: Any, _record: Any) -> None:

@@ -18,61 +18,91 @@ from sqlalchemy.orm import Session
 from reporting.files import all_or_nothing, write_atomic
 from reporting.store import content, versions
 from reporting.store.engine import Database
+from reporting.store.errors import StoreError
 from reporting.store.schema import EventRow, SignatureRow, StudyRow, VersionRow
 from reporting.store.status import VersionStatus, effective_status
+
+VERSION_COLUMNS = (
+    VersionRow.version,
+    VersionRow.parent_version,
+    VersionRow.status,
+    VersionRow.author,
+    VersionRow.created_at,
+    VersionRow.reason,
+    VersionRow.content_sha256,
+)
+SIGNATURE_COLUMNS = (
+    SignatureRow.id,
+    SignatureRow.signer,
+    SignatureRow.signer_name,
+    SignatureRow.signed_at,
+    SignatureRow.meaning,
+    SignatureRow.record_sha256,
+    SignatureRow.pdf_sha256,
+)
+EVENT_COLUMNS = (
+    EventRow.seq,
+    EventRow.at,
+    EventRow.actor,
+    EventRow.action,
+    EventRow.version,
+    EventRow.origin,
+    EventRow.host,
+)
 
 
 def history(db: Database, study_id: str) -> dict[str, Any]:
     """Versions, signatures and events of ``study_id`` (the ``store history --json`` shape)."""
     with db.read() as session:
-        study, _ = versions.get_version(session, study_id, None)
+        study = versions.study_row(session, study_id)
+        if study is None:
+            raise StoreError(f"study {study_id}", "not in the store")
         rows = session.execute(
-            select(VersionRow, SignatureRow)
+            select(*VERSION_COLUMNS, *SIGNATURE_COLUMNS)
             .outerjoin(SignatureRow, SignatureRow.version_pk == VersionRow.id)
             .where(VersionRow.study_pk == study.id)
             .order_by(VersionRow.version)
         ).all()
-        events = session.scalars(
-            select(EventRow).where(EventRow.study_id == study_id).order_by(EventRow.seq)
+        events = session.execute(
+            select(*EVENT_COLUMNS).where(EventRow.study_id == study_id).order_by(EventRow.seq)
         ).all()
         return {
             "study_id": study_id,
             "patient_id": study.patient_id,
-            "versions": [_version(v, s) for v, s in rows],
+            "versions": [_version(row) for row in rows],
             "events": [
-                {
-                    "seq": e.seq,
-                    "at": e.at,
-                    "actor": e.actor,
-                    "action": e.action,
-                    "version": e.version,
-                    "origin": e.origin,
-                    "host": e.host,
-                }
+                dict(
+                    zip(
+                        ("seq", "at", "actor", "action", "version", "origin", "host"),
+                        e,
+                        strict=True,
+                    )
+                )
                 for e in events
             ],
         }
 
 
-def _version(v: VersionRow, s: SignatureRow | None) -> dict[str, Any]:
+def _version(row: Any) -> dict[str, Any]:
+    (number, parent, status, author, created, reason, digest, sig_id, *sig) = row
+    signed = sig_id is not None
     return {
-        "version": v.version,
-        "parent_version": v.parent_version,
-        "status": effective_status(VersionStatus(v.status), s is not None).value,
-        "author": v.author,
-        "created_at": v.created_at,
-        "reason": v.reason,
-        "content_sha256": v.content_sha256,
-        "signature": None
-        if s is None
-        else {
-            "signer": s.signer,
-            "signer_name": s.signer_name,
-            "signed_at": s.signed_at,
-            "meaning": s.meaning,
-            "record_sha256": s.record_sha256,
-            "pdf_sha256": s.pdf_sha256,
-        },
+        "version": number,
+        "parent_version": parent,
+        "status": effective_status(VersionStatus(status), signed).value,
+        "author": author,
+        "created_at": created,
+        "reason": reason,
+        "content_sha256": digest,
+        "signature": dict(
+            zip(
+                ("signer", "signer_name", "signed_at", "meaning", "record_sha256", "pdf_sha256"),
+                sig,
+                strict=True,
+            )
+        )
+        if signed
+        else None,
     }
 
 
@@ -130,27 +160,46 @@ class PriorStudy:
     record_json: bytes
 
 
-def prior_signed(session: Session, patient_id: str, before: dt.date) -> PriorStudy | None:
-    """The latest signed study of ``patient_id`` dated before ``before`` (its newest signed version)."""
-    row = session.execute(
+def _prior_query(patient_id: Any, before: Any) -> Any:
+    return (
         select(
             StudyRow.study_id, VersionRow.version, VersionRow.study_date, SignatureRow.record_json
         )
         .join(VersionRow, VersionRow.study_pk == StudyRow.id)
         .join(SignatureRow, SignatureRow.version_pk == VersionRow.id)
-        .where(StudyRow.patient_id == patient_id, VersionRow.study_date < before.isoformat())
+        .where(StudyRow.patient_id == patient_id, VersionRow.study_date < before)
         .order_by(VersionRow.study_date.desc(), VersionRow.id.desc())
         .limit(1)
-    ).first()
+    )
+
+
+def _prior(row: Any) -> PriorStudy | None:
     if row is None:
         return None
     return PriorStudy(row[0], row[1], dt.date.fromisoformat(row[2]), bytes(row[3]))
 
 
+def prior_signed(session: Session, patient_id: str, before: dt.date) -> PriorStudy | None:
+    """The latest signed study of ``patient_id`` dated before ``before`` (its newest signed version).
+
+    One query on indexed columns: the patient's studies (``studies.patient_id``), their versions
+    (``versions.study_pk``) and signatures (``signatures.version_pk``), newest date first.
+    """
+    return _prior(session.execute(_prior_query(patient_id, before.isoformat())).first())
+
+
 def prior_for(db: Database, study_id: str) -> PriorStudy | None:
-    """The prior study of ``study_id`` (by its latest version's date), if any."""
+    """The prior study of ``study_id`` (by its latest version's date), if any: one query."""
+    me = (
+        select(StudyRow.patient_id, VersionRow.study_date)
+        .join(VersionRow, VersionRow.study_pk == StudyRow.id)
+        .where(StudyRow.study_id == study_id)
+        .order_by(VersionRow.version.desc())
+        .limit(1)
+        .subquery()
+    )
+    query = _prior_query(
+        select(me.c.patient_id).scalar_subquery(), select(me.c.study_date).scalar_subquery()
+    )
     with db.read() as session:
-        study, row = versions.get_version(session, study_id, None)
-        if study.patient_id is None or row.study_date is None:
-            return None
-        return prior_signed(session, study.patient_id, dt.date.fromisoformat(row.study_date))
+        return _prior(session.execute(query).first())
