@@ -21,7 +21,7 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
-from sqlalchemy import Engine, create_engine, event, text
+from sqlalchemy import Connection, Engine, create_engine, event, text
 from sqlalchemy.engine import URL, make_url
 from sqlalchemy.exc import ArgumentError, DBAPIError, OperationalError
 from sqlalchemy.orm import Session
@@ -111,6 +111,12 @@ class Database:
         """A session for reading (a deferred transaction, rolled back at the end)."""
         with database_errors(self.shown), Session(self.engine) as session:
             yield session
+
+    @contextmanager
+    def connect(self) -> Iterator[Connection]:
+        """A plain connection for quick reads (SQLAlchemy Core), rolled back at the end."""
+        with database_errors(self.shown), self.engine.connect() as conn:
+            yield conn
 
     @contextmanager
     def write(self) -> Iterator[Session]:
