@@ -13,7 +13,7 @@ from store_support import PASSWORD, cheap_argon2, pg_socket, store_url, study_da
 
 from reporting.store import migrate, service, signing, triggers, users, versions
 from reporting.store.canonical import Origin
-from reporting.store.engine import Database, resolve_url
+from reporting.store.engine import Database, make_engine, resolve_url
 from reporting.store.errors import ConflictError, IntegrityFailure, StoreError
 from reporting.store.verify import verify
 
@@ -66,9 +66,7 @@ def test_upgrade_from_the_first_schema_keeps_data_and_triggers(tmp_path: Path) -
     from alembic import command
 
     url = resolve_url(str(tmp_path / "old.db"))
-    engine = __import__("reporting.store.engine", fromlist=["make_engine"]).make_engine(
-        url, foreign_keys=False
-    )
+    engine = make_engine(url, foreign_keys=False)
     with engine.begin() as conn:
         command.upgrade(migrate.alembic_config(conn), "0001")  # type: ignore[arg-type]
         conn.exec_driver_sql(
