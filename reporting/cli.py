@@ -21,6 +21,7 @@ import click
 
 from reporting import __version__
 from reporting.errors import ReportingError, problems_of
+from reporting.store.command import store_group
 from reporting.wording import CAUTION_LINE
 
 F = TypeVar("F", bound=Callable[..., Any])
@@ -624,3 +625,6 @@ def dicom(
             click.echo(f"Warning: {objects.warning}", err=True)
         for path in write_dicom(r.analysis, objects, outdir):
             click.echo(f"Wrote {path}")
+
+
+main.add_command(store_group())  # `segreport store …`, loaded on first use

@@ -21,6 +21,7 @@ from reporting.errors import InputError
 from reporting.render import narrative, style
 from reporting.render.pdf.header import report_title
 from reporting.render.pdf.page import MARGIN, PAPERS, NumberedCanvas, footer
+from reporting.render.pdf.signature import SignatureBlock
 from reporting.render.pdf.story import build_story
 from reporting.render.pdf.styles import paragraph_styles
 from reporting.results import Analysis
@@ -29,9 +30,17 @@ log = logging.getLogger(__name__)
 
 
 def pdf_bytes(
-    analysis: Analysis, *, paper: str = "A4", templates_dir: Path | str | None = None
+    analysis: Analysis,
+    *,
+    paper: str = "A4",
+    templates_dir: Path | str | None = None,
+    signature: SignatureBlock | None = None,
 ) -> bytes:
-    """The referring-doctor report of ``analysis`` as PDF bytes (A4 or Letter)."""
+    """The referring-doctor report of ``analysis`` as PDF bytes (A4 or Letter).
+
+    ``signature`` (from the report store) replaces the blank sign-off with the electronic
+    signature and, for an amendment, names the superseded version on page 1.
+    """
     size = PAPERS.get(paper.upper())
     if size is None:
         raise InputError("paper", f"unknown paper size {paper!r}; use A4 or Letter")
@@ -67,7 +76,7 @@ def pdf_bytes(
         bottomPadding=0,
     )
     doc.addPageTemplates([PageTemplate(id="page", frames=[frame], onPage=footer(analysis, fonts))])
-    story = build_story(analysis, doc.width, styles, fonts, templates_dir)
+    story = build_story(analysis, doc.width, styles, fonts, templates_dir, signature)
     doc.build(story, canvasmaker=NumberedCanvas)
     log.debug("built the PDF of %s", analysis.study.id)
     return buffer.getvalue()

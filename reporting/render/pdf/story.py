@@ -20,6 +20,7 @@ from reporting.render import curves, diagram, narrative, style
 from reporting.render.diagram import MapSpec
 from reporting.render.legend import draw_legend, legend_items
 from reporting.render.pdf.header import answer_box, header
+from reporting.render.pdf.signature import SignatureBlock, signed_block, supersession_note
 from reporting.render.pdf.styles import Styles, dash, paragraph, section_heading
 from reporting.render.scheme import MapKind
 from reporting.render.style import Fonts
@@ -36,9 +37,12 @@ def build_story(
     st: Styles,
     fonts: Fonts,
     templates_dir: Path | str | None,
+    signature: SignatureBlock | None = None,
 ) -> list[Flowable]:
     story: list[Flowable] = []
     story += header(analysis, width, st)
+    if signature is not None:
+        story += supersession_note(signature, st)
     story.append(Spacer(1, 5))
     story.append(answer_box(analysis, width, st))
     story.append(Spacer(1, 6))
@@ -71,7 +75,9 @@ def build_story(
         )
     )
     story.append(Spacer(1, 8))
-    story.append(_sign_off(analysis, width, st))
+    story.append(
+        _sign_off(analysis, width, st) if signature is None else signed_block(signature, width, st)
+    )
     return story
 
 

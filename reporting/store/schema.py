@@ -1,0 +1,108 @@
+"""The store's tables (SQLAlchemy 2 declarative models).
+
+``studies`` holds a study's identity (its id and patient, fixed at first import); ``versions`` every
+version of it with the canonical study bytes and their SHA-256; ``signatures`` the signed record
+JSON and PDF bytes with their SHA-256; ``events`` the append-only audit trail, each row holding the
+canonical JSON bytes it was hashed from and the hash of its predecessor. ``users`` is the only
+table whose rows change (passwords, lockout), and every change to it is an audited event.
+
+Versions, signatures and events (and studies) are append-only in the database as well: the
+migrations install triggers refusing UPDATE and DELETE (and TRUNCATE on PostgreSQL), see
+:mod:`reporting.store.triggers`.
+"""
+
+from __future__ import annotations
+
+from sqlalchemy import (
+    Boolean,
+    ForeignKey,
+    Index,
+    Integer,
+    LargeBinary,
+    String,
+    Text,
+    UniqueConstraint,
+)
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
+
+HEX_SHA256 = 64
+APPEND_ONLY_TABLES = ("studies", "versions", "signatures", "events")
+
+
+class Base(DeclarativeBase):
+    pass
+
+
+class User(Base):
+    __tablename__ = "users"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    name: Mapped[str] = mapped_column(String(64), unique=True)
+    full_name: Mapped[str] = mapped_column(String(200))
+    roles: Mapped[str] = mapped_column(String(100))  # comma-separated Role values, sorted
+    password_hash: Mapped[str] = mapped_column(String(200))
+    must_change_password: Mapped[bool] = mapped_column(Boolean, default=False)
+    failed_attempts: Mapped[int] = mapped_column(Integer, default=0)
+    locked: Mapped[bool] = mapped_column(Boolean, default=False)
+    created_at: Mapped[str] = mapped_column(String(40))
+
+
+class StudyRow(Base):
+    __tablename__ = "studies"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    study_id: Mapped[str] = mapped_column(String(64), unique=True)
+    patient_id: Mapped[str | None] = mapped_column(String(64), index=True)
+    created_at: Mapped[str] = mapped_column(String(40))
+
+
+class VersionRow(Base):
+    __tablename__ = "versions"
+    __table_args__ = (UniqueConstraint("study_pk", "version", name="uq_versions_study_version"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    study_pk: Mapped[int] = mapped_column(ForeignKey("studies.id"), index=True)
+    version: Mapped[int] = mapped_column(Integer)
+    parent_version: Mapped[int | None] = mapped_column(Integer)
+    status: Mapped[str] = mapped_column(String(20))  # VersionStatus at creation
+    author: Mapped[str] = mapped_column(String(64))
+    created_at: Mapped[str] = mapped_column(String(40))
+    reason: Mapped[str | None] = mapped_column(Text)
+    content: Mapped[bytes] = mapped_column(LargeBinary)
+    content_sha256: Mapped[str] = mapped_column(String(HEX_SHA256))
+    study_date: Mapped[str | None] = mapped_column(String(10))
+
+
+Index("ix_versions_study_date", VersionRow.study_date)
+
+
+class SignatureRow(Base):
+    __tablename__ = "signatures"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    version_pk: Mapped[int] = mapped_column(ForeignKey("versions.id"), unique=True)
+    signer: Mapped[str] = mapped_column(String(64))
+    signer_name: Mapped[str] = mapped_column(String(200))
+    signed_at: Mapped[str] = mapped_column(String(40))
+    meaning: Mapped[str] = mapped_column(String(200))
+    record_json: Mapped[bytes] = mapped_column(LargeBinary)
+    record_sha256: Mapped[str] = mapped_column(String(HEX_SHA256))
+    pdf: Mapped[bytes] = mapped_column(LargeBinary)
+    pdf_sha256: Mapped[str] = mapped_column(String(HEX_SHA256))
+    chain_head: Mapped[str] = mapped_column(String(HEX_SHA256))  # printed on the PDF
+
+
+class EventRow(Base):
+    __tablename__ = "events"
+
+    seq: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=False)
+    at: Mapped[str] = mapped_column(String(40))
+    actor: Mapped[str | None] = mapped_column(String(64))
+    action: Mapped[str] = mapped_column(String(40))
+    study_id: Mapped[str | None] = mapped_column(String(64), index=True)
+    version: Mapped[int | None] = mapped_column(Integer)
+    origin: Mapped[str] = mapped_column(String(10))
+    host: Mapped[str] = mapped_column(String(255))
+    body: Mapped[bytes] = mapped_column(LargeBinary)  # the canonical JSON that was hashed
+    prev_hash: Mapped[str] = mapped_column(String(HEX_SHA256))
+    hash: Mapped[str] = mapped_column(String(HEX_SHA256), unique=True)

@@ -1,0 +1,214 @@
+"""``segreport store …`` through the command line: password input, located errors, exit codes,
+and the export against ``segreport batch --no-pdf`` on the same files."""
+
+from __future__ import annotations
+
+import json
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner, Result
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from store_support import PASSWORD, cheap_argon2, study_data, write_study
+
+from reporting.cli import main
+
+__all__ = ["cheap_argon2"]
+
+
+def run(*args: str, stdin: str = "") -> Result:
+    return CliRunner().invoke(main, ["store", *args], input=stdin, catch_exceptions=False)
+
+
+@pytest.fixture
+def db(tmp_path: Path) -> str:
+    path = str(tmp_path / "s.db")
+    result = run(
+        "init",
+        "--db",
+        path,
+        "--admin",
+        "alice",
+        "--full-name",
+        "Dr Alice Example",
+        "--password-stdin",
+        stdin=PASSWORD + "\n",
+    )
+    assert result.exit_code == 0, result.output
+    return path
+
+
+def as_alice(db: str, *args: str, extra: str = "") -> Result:
+    return run(
+        *args, "--db", db, "--as", "alice", "--password-stdin", stdin=PASSWORD + "\n" + extra
+    )
+
+
+def test_help_does_not_import_the_store_libraries() -> None:
+    code = (
+        "import sys\nfrom click.testing import CliRunner\nfrom reporting.cli import main\n"
+        "CliRunner().invoke(main, ['--help'])\n"
+        "print([m for m in ('sqlalchemy', 'alembic', 'argon2', 'psycopg') if m in sys.modules])"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"
+
+
+def test_store_workflow_through_the_command_line(db: str, tmp_path: Path) -> None:
+    path = write_study(tmp_path / "in", study_data())
+    assert as_alice(db, "import", str(path)).exit_code == 0
+    signed = as_alice(db, "sign", "DEMO-0001", "--meaning", "reviewed and approved")
+    assert signed.exit_code == 0, signed.output
+    result = run("history", "DEMO-0001", "--json", "--db", db)
+    data = json.loads(result.output)
+    assert data["study_id"] == "DEMO-0001" and data["versions"][0]["status"] == "final"
+    verify = run("verify", "--db", db)
+    head = verify.stdout.strip().splitlines()[-1]
+    assert verify.exit_code == 0 and len(head) == 64
+    assert run("verify", "--db", db, "--expect-head", head).exit_code == 0
+    out = run("show", "DEMO-0001", "--version", "1", "-o", str(tmp_path / "show"), "--db", db)
+    assert out.exit_code == 0
+    from pypdf import PdfReader
+
+    text = "".join(
+        PdfReader(tmp_path / "show" / "DEMO-0001.v1.pdf").pages[-1].extract_text().split()
+    )
+    printed = re.search(r"Auditchainhead([0-9a-f]{64})", text)
+    assert printed is not None, text
+    # the head printed at signing is an earlier link of the same chain
+    assert printed.group(1) != head
+    assert run("verify", "--db", db, "--expect-head", printed.group(1)).exit_code == 0
+    assert run("verify", "--db", db, "--expect-head", "ab" * 32).exit_code == 1
+    assert data["versions"][0]["signature"]["pdf_sha256"] in signed.output
+
+
+@pytest.mark.parametrize(
+    ("args", "stdin", "message"),
+    [
+        (
+            ("sign", "DEMO-0001"),
+            "wrong password here\n",
+            "Error: --as alice: wrong password",
+        ),  # bad: wrong password
+        (
+            ("amend", "DEMO-0001", "FILE"),
+            PASSWORD + "\n",
+            "Error: --reason: an amendment needs a reason",
+        ),  # bad: no reason
+        (
+            ("sign", "NOPE-1"),
+            PASSWORD + "\n",
+            "Error: study NOPE-1: not in the store",
+        ),  # bad: unknown study
+        (("sign", "DEMO-0001"), "", "Error: --password-stdin: no line"),  # bad: no password given
+    ],
+    ids=["wrong-password", "amend-without-reason", "unknown-study", "no-password"],
+)
+def test_bad_input_is_one_located_error_line(
+    db: str, tmp_path: Path, args: tuple[str, ...], stdin: str, message: str
+) -> None:
+    path = write_study(tmp_path / "in", study_data())
+    as_alice(db, "import", str(path))
+    as_alice(db, "sign", "DEMO-0001") if "amend" in args else None
+    args = tuple(str(path) if a == "FILE" else a for a in args)
+    result = run(*args, "--db", db, "--as", "alice", "--password-stdin", stdin=stdin)
+    assert result.exit_code == 1
+    assert result.stderr.strip().splitlines()[-1].startswith(message), result.stderr
+    assert "Traceback" not in result.output
+
+
+def test_commands_other_than_init_refuse_to_create_a_store(tmp_path: Path) -> None:
+    path = tmp_path / "none.db"
+    result = run("history", "X", "--db", str(path))
+    assert result.exit_code == 1 and "no store here" in result.stderr and not path.exists()
+
+
+def test_export_writes_the_same_registry_and_tables_as_batch(db: str, tmp_path: Path) -> None:
+    folder = tmp_path / "studies"
+    for name in ("DEMO-0001", "DEMO-0002", "DEMO-0003"):
+        data = study_data(name)
+        # in the store only signing makes a report final; a file's own claim is not carried over
+        data["study"]["report_status"] = "preliminary"
+        write_study(folder, data)
+    assert as_alice(db, "import", *map(str, sorted(folder.glob("*.yaml")))).exit_code == 0
+    batch = CliRunner().invoke(
+        main, ["batch", str(folder), "-o", str(tmp_path / "batch"), "--no-pdf", "-q"]
+    )
+    assert batch.exit_code == 0, batch.output
+    assert run("export", "-o", str(tmp_path / "export"), "--db", db).exit_code == 0
+    for name in ("registry.ndjson", "studies.csv", "segments.csv"):
+        assert (tmp_path / "export" / name).read_text() == (
+            tmp_path / "batch" / name
+        ).read_text(), name
+    assert as_alice(db, "sign", "DEMO-0002").exit_code == 0
+    assert run("export", "-o", str(tmp_path / "final"), "--final-only", "--db", db).exit_code == 0
+    lines = (tmp_path / "final" / "registry.ndjson").read_text().splitlines()
+    assert [json.loads(x)["study"]["id"] for x in lines] == ["DEMO-0002"]
+    head = (tmp_path / "final" / "chain-head.txt").read_text().strip()
+    assert run("verify", "--expect-head", head, "--db", db).exit_code == 0
+
+
+def test_deidentified_export_holds_no_names(
+    db: str, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    monkeypatch.setenv("SEGREPORT_DEID_KEY", "a test key of enough length")
+    path = write_study(tmp_path / "in", study_data())
+    as_alice(db, "import", str(path))
+    assert run("export", "-o", str(tmp_path / "deid"), "--deidentify", "--db", db).exit_code == 0
+    registry = (tmp_path / "deid" / "registry.ndjson").read_text()
+    assert "Brennan Quillfeather" not in registry and "DEMO-0001" not in registry
+
+
+ACTIONS = st.lists(
+    st.sampled_from(["import-change", "sign", "amend", "addendum"]), min_size=1, max_size=6
+)
+
+
+@settings(
+    max_examples=8, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+)
+@given(actions=ACTIONS)
+def test_any_sequence_keeps_every_signed_pdf_byte_identical(
+    tmp_path_factory: pytest.TempPathFactory, actions: list[str]
+) -> None:
+    from hashlib import sha256
+
+    from reporting.store import history, service, signing, users, versions
+    from reporting.store.canonical import Origin
+    from reporting.store.errors import StoreError
+
+    tmp = tmp_path_factory.mktemp("prop")
+    db = service.init_store(
+        str(tmp / "s.db"), "alice", full_name=None, password=PASSWORD, origin=Origin.CLI
+    )
+    who = users.authenticate(db, "alice", PASSWORD, origin=Origin.CLI)
+    data = study_data()
+    versions.import_files(db, [write_study(tmp / "in", data)], who, origin=Origin.CLI)
+    signed: dict[int, str] = {}
+    for step, action in enumerate(actions):
+        data["stages"]["peak"]["heart_rate_bpm"] = 120 + step
+        try:
+            if action == "import-change":
+                versions.import_files(db, [write_study(tmp / "in", data)], who, origin=Origin.CLI)
+            elif action == "sign":
+                s = signing.sign(db, "DEMO-0001", who, origin=Origin.CLI)
+                signed[s.version] = s.pdf_sha256
+            elif action == "amend":
+                path = write_study(tmp / "amend", data)
+                s = signing.amend(
+                    db, "DEMO-0001", who, path=path, reason=f"step {step}", origin=Origin.CLI
+                )
+                signed[s.version] = s.pdf_sha256
+            else:
+                s = signing.amend(db, "DEMO-0001", who, addendum=f"note {step}", origin=Origin.CLI)
+                signed[s.version] = s.pdf_sha256
+        except StoreError:
+            pass  # refused acts (signing twice, amending unsigned, importing over signed) write nothing
+        for number, digest in signed.items():
+            pdf = history.show(db, "DEMO-0001", number, tmp / "show")[2].read_bytes()
+            assert sha256(pdf).hexdigest() == digest
+    db.dispose()
