@@ -14,7 +14,7 @@ from the store (``store verify --expect-head``).
 from __future__ import annotations
 
 import logging
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from pathlib import Path
 
 from sqlalchemy import select
@@ -66,13 +66,31 @@ def _chosen(db: Database, final_only: bool) -> Iterator[tuple[str, bytes, bytes 
             yield sid, bytes(data), bytes(record) if record is not None else None
 
 
+def _labeller(key: bytes | None) -> Callable[[str], str]:
+    """How the export names a failing study: its id, or a keyed hash of it when de-identifying."""
+    if key is None:
+        return str
+    from reporting.deidentify import keyed_hash
+
+    return lambda sid: "F-" + keyed_hash(key, "source", sid)
+
+
+def _problem(problem: ReportingError, key: bytes | None) -> Problem:
+    """A stored study's problem; nothing from the input when de-identifying (as batch does)."""
+    if key is None:
+        return Problem("", str(problem))
+    from reporting.batch import redact
+
+    return redact.invalid(getattr(problem, "location", ""))
+
+
 def export(
     db: Database, outdir: Path, *, key: bytes | None = None, final_only: bool = False
 ) -> list[Path]:
     """Write the export into ``outdir``; return the aggregate files written."""
     try:
         outdir.mkdir(parents=True, exist_ok=True)
-        aggregates = Aggregates(outdir, str, redact=key is not None)
+        aggregates = Aggregates(outdir, _labeller(key))
     except OSError as exc:
         raise OutputError(
             str(outdir), f"cannot write the export folder: {exc.strerror or exc}"
@@ -93,7 +111,7 @@ def export(
                     failed = StudyResult(
                         source=sid,
                         status=Status.FAILED,
-                        problems=tuple(Problem("", str(p)) for p in problems_of(exc)),
+                        problems=tuple(_problem(p, key) for p in problems_of(exc)),
                     )
                     aggregates.failure(failed)
                     continue
