@@ -332,13 +332,9 @@ def qa(
     second_reading: Path | None,
 ) -> None:
     """Lab quality review of RECORDS (a folder of records or a registry.ndjson) against angiography."""
-    from reporting.files import all_or_nothing, write_atomic
     from reporting.qa import review_json, review_pdf_bytes, run_agreement, run_review
 
-    if pdf_path is not None and _is_stdout(pdf_path) and _is_stdout(output):
-        raise click.UsageError(
-            "the review JSON and the --pdf cannot both go to stdout; give -o FILE"
-        )
+    _refuse_two_stdouts(output, pdf_path, "review")
 
     thresholds = {
         name: value
@@ -357,20 +353,35 @@ def qa(
             **thresholds,
         )
         agreement = run_agreement(records, second_reading) if second_reading else None
-        text = review_json(review)
         pdf = review_pdf_bytes(review, agreement) if pdf_path is not None else None
-        written = [p for p in (output, pdf_path) if p is not None and not _is_stdout(p)]
-        with all_or_nothing(written):
-            if pdf is not None and pdf_path in written:
-                write_atomic(pdf_path, pdf)
-            if output in written:
-                write_atomic(output, text)
-        if _is_stdout(output):
-            _emit(text, None)
-        elif pdf is not None and pdf_path not in written:
-            _emit(pdf, None)
-        for path in written:
-            click.echo(f"Wrote {path}", err=True)
+        _emit_json_and_pdf(review_json(review), output, pdf, pdf_path)
+
+
+def _refuse_two_stdouts(output: Path | None, pdf_path: Path | None, what: str) -> None:
+    if pdf_path is not None and _is_stdout(pdf_path) and _is_stdout(output):
+        raise click.UsageError(
+            f"the {what} JSON and the --pdf cannot both go to stdout; give -o FILE"
+        )
+
+
+def _emit_json_and_pdf(
+    text: str, output: Path | None, pdf: bytes | None, pdf_path: Path | None
+) -> None:
+    """Write the JSON and the optional PDF (both or neither); whichever names stdout is printed."""
+    from reporting.files import all_or_nothing, write_atomic
+
+    written = [p for p in (output, pdf_path) if p is not None and not _is_stdout(p)]
+    with all_or_nothing(written):
+        if pdf is not None and pdf_path in written:
+            write_atomic(pdf_path, pdf)
+        if output in written:
+            write_atomic(output, text)
+    if _is_stdout(output):
+        _emit(text, None)
+    elif pdf is not None and pdf_path not in written:
+        _emit(pdf, None)
+    for path in written:
+        click.echo(f"Wrote {path}", err=True)
 
 
 @main.command()
@@ -390,22 +401,14 @@ def qa(
 )
 def agreement(records_a: Path, records_b: Path, output: Path | None, pdf_path: Path | None) -> None:
     """Agreement of two readers: RECORDS_A and RECORDS_B matched by study id (Cohen's kappa)."""
-    from reporting.files import all_or_nothing, write_atomic
-    from reporting.qa import agreement_json, run_agreement, write_agreement_pdf
+    from reporting.qa import agreement_json, run_agreement
+    from reporting.qa.pdf.agreement import agreement_pdf_bytes
 
+    _refuse_two_stdouts(output, pdf_path, "agreement")
     with _user_errors():
         result = run_agreement(records_a, records_b)
-        text = agreement_json(result)
-        written = [p for p in (output, pdf_path) if p is not None]
-        with all_or_nothing(written):
-            if pdf_path is not None:
-                write_agreement_pdf(result, pdf_path)
-            if output is not None:
-                write_atomic(output, text)
-        if output is None:
-            click.echo(text, nl=False)
-        for path in written:
-            click.echo(f"Wrote {path}", err=True)
+        pdf = agreement_pdf_bytes(result) if pdf_path is not None else None
+        _emit_json_and_pdf(agreement_json(result), output, pdf, pdf_path)
 
 
 @main.command()

@@ -157,12 +157,20 @@ def read_text(path: Path, *, what: str = "file", max_bytes: int = MAX_DOCUMENT_B
         raise InputError(where, f"not UTF-8 text (byte {exc.start})") from None
 
 
+class OverlongInteger(str):
+    """The digits of a JSON integer beyond Python's digit limit, kept as text.
+
+    Validation reports it at its field; callers that must refuse any such number (the entry
+    server's request bodies) recognise it by this type.
+    """
+
+
 def _json_int(text: str) -> int | str:
     # An integer beyond Python's digit limit stays text: validation reports it at its field.
     try:
         return int(text)
     except ValueError:
-        return text
+        return OverlongInteger(text)
 
 
 def parse_json(text: str, where: str) -> Any:

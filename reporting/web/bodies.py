@@ -14,7 +14,7 @@ import logging
 import math
 from typing import Any
 
-from reporting.documents import MAX_NESTING, parse_json
+from reporting.documents import MAX_NESTING, OverlongInteger, parse_json
 from reporting.errors import InputError
 
 log = logging.getLogger(__name__)
@@ -52,6 +52,12 @@ def check_value(data: Any, source: str) -> None:
                 if isinstance(key, str) and (problem := _unicode_problem(key)):
                     raise InputError(_where(source, path), f"a key {problem}")
                 stack.append((item, [*path, str(key)], depth + 1))
+        elif isinstance(value, OverlongInteger):
+            raise InputError(
+                _where(source, path),
+                f"a number has more than {_JSON_INT_DIGITS_LIMIT} digits "
+                f"(at most {MAX_INTEGER_DIGITS} are accepted)",
+            )
         elif isinstance(value, str):
             if problem := _unicode_problem(value):
                 raise InputError(_where(source, path), problem)
