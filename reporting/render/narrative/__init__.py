@@ -12,6 +12,7 @@ templates). This module holds the public names only.
 
 from __future__ import annotations
 
+from reporting.render.narrative.conduct import reader_paragraphs
 from reporting.render.narrative.document import (
     HTML_TEMPLATE,
     TEXT_TEMPLATE,
@@ -28,7 +29,6 @@ from reporting.render.narrative.document import (
     reader_impression_in_headline,
     text_blocks,
 )
-from reporting.render.narrative.conduct import reader_paragraphs
 from reporting.render.narrative.impression import risk_fact, summary
 from reporting.render.narrative.sections import stress_paragraphs
 from reporting.render.narrative.words import signed
@@ -38,17 +38,17 @@ __all__ = [
     "HTML_TEMPLATE",
     "TEXT_TEMPLATE",
     "Audience",
-    "computed_impression_text",
-    "impression_differs",
-    "impression_state_line",
-    "reader_impression_in_headline",
-    "reader_paragraphs",
     "Narrative",
     "Section",
     "build_narrative",
+    "computed_impression_text",
     "environment",
+    "impression_differs",
+    "impression_state_line",
     "narrative_html",
     "narrative_text",
+    "reader_impression_in_headline",
+    "reader_paragraphs",
     "risk_fact",
     "shown_percent",
     "shown_target_bpm",

@@ -16,16 +16,22 @@ from pathlib import Path
 import jinja2
 
 from reporting.errors import InputError
+from reporting.notes import REFERRER_NOTES, NoteKind
 from reporting.render.narrative.conduct import conduct_paragraphs, reader_paragraphs
-from reporting.render.narrative.impression import high_risk_paragraphs, impression, summary
+from reporting.render.narrative.impression import (
+    Question,
+    high_risk_paragraphs,
+    impression,
+    question,
+    summary,
+)
+from reporting.render.narrative.methods import sources
 from reporting.render.narrative.sections import (
     kinetics_paragraphs,
     perfusion_paragraphs,
     stress_paragraphs,
     wall_motion_paragraphs,
 )
-from reporting.notes import REFERRER_NOTES, NoteKind
-from reporting.render.narrative.methods import sources
 from reporting.results import Analysis, ImpressionStatus
 
 TEXT_TEMPLATE = "narrative.txt.j2"
@@ -156,6 +162,10 @@ def build_narrative(
 
 
 def _kept(analysis: Analysis, kind: NoteKind) -> bool:
+    """Printed for the referrer: a finding, or a reader note the reader kept; the viability note
+    only when the headline does not already answer a viability question."""
+    if kind is NoteKind.VIABILITY and question(analysis) is Question.VIABILITY:
+        return False
     return kind in REFERRER_NOTES or kind in analysis.study.kept_notes
 
 

@@ -16,6 +16,7 @@ from __future__ import annotations
 from enum import StrEnum
 
 from reporting.model import STRESS_STAGES, Stage
+from reporting.notes import NoteKind
 from reporting.render.narrative.words import (
     EXTENT_WORDS,
     FINDING_LABELS,
@@ -33,7 +34,6 @@ from reporting.results import (
     RiskLevel,
     TerritoryStatus,
 )
-from reporting.notes import NoteKind
 from reporting.scoring import WallMotionResponse
 from reporting.segments import Territory
 from reporting.wording import shown_percent, shown_target_bpm, stage_words
@@ -73,7 +73,7 @@ def viability_answer(analysis: Analysis) -> str:
     sustained = [
         n for n in c.viable_segments if by_response[n] is WallMotionResponse.SUSTAINED_IMPROVEMENT
     ]
-    dysfunctional = len(c.viable_segments) + len(c.fixed_segments)
+    dysfunctional = len(abnormal_at_baseline(analysis))
     if Stage.LOW_DOSE not in analysis.stages:
         return "Viability not assessable: no low-dose stage was imaged."
     if not dysfunctional:
@@ -96,14 +96,22 @@ def viability_answer(analysis: Analysis) -> str:
     )
     if any(n.kind is NoteKind.VIABILITY for n in analysis.notes):
         return (
-            f"{head}; {len(biphasic)} biphasic segments is a number that has predicted recovery "
-            "of global function after revascularisation in dobutamine studies, though recovery "
-            "is not certain."
+            f"{head}; with {len(biphasic)} biphasic segments, recovery of global function after "
+            "revascularisation is likely, though not certain."
         )
     return (
         f"{head}; fewer biphasic segments than predicted recovery of global function, so global "
         "recovery is less likely, though viable segments may regain function."
     )
+
+
+def abnormal_at_baseline(analysis: Analysis) -> list[int]:
+    """Segments abnormal (score above 1) at their baseline stage: the dysfunctional myocardium."""
+    return [
+        s.number
+        for s in analysis.segments
+        if s.baseline_stage is not None and (s.wall_motion.get(s.baseline_stage) or 0) > 1
+    ]
 
 
 def ischemia_answer(analysis: Analysis) -> str:
@@ -224,7 +232,7 @@ def shared_supply_sentence(analysis: Analysis) -> str:
     shared = [s for s in analysis.segments if s.shared_supply and s.number in matters]
     if not shared:
         return ""
-    others = numbers(dict.fromkeys(t.value for s in shared for t in s.shared_supply))
+    others = " or ".join(dict.fromkeys(t.value for s in shared for t in s.shared_supply))
     verb = "is" if len(shared) == 1 else "are"
     return (
         f"{sentence_case(segments_phrase([s.number for s in shared]))} {verb} often supplied by "
