@@ -104,7 +104,7 @@ def wall_motion_paragraphs(analysis: Analysis) -> list[str]:
     out = []
     for stage in analysis.stages:
         if stage not in analysis.segments[0].wall_motion:
-            text = f"{stage_label(analysis, stage)}: wall motion not scored."
+            text = f"{stage_label(analysis, stage)}: wall motion not scored yet."
         else:
             text = f"{stage_label(analysis, stage)}: {stage_wall_motion(analysis, stage)}"
         h = analysis.haemodynamics.get(stage)
