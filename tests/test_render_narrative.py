@@ -118,6 +118,9 @@ Image quality and protocol notes
 Impression
 Inducible ischaemia of the inferior wall at a good workload, with angina and ST depression.
 
+Recommendations
+Optimise anti-anginal treatment; consider coronary angiography if symptoms persist.
+
 Computed findings
 Positive for inducible ischaemia in the RCA territory; limited ischaemia: 2 segments. Intermediate risk: limited inducible ischaemia and intermediate-risk Duke treadmill score.
 LAD (segments 1, 2, 7, 8, 13, 14 and 17): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak exercise.
@@ -125,9 +128,6 @@ LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality at rest or stress
 RCA (segments 3, 4, 9, 10 and 15): inducible ischaemia in 2 of 5 segments (4 and 10), at worst hypokinetic at peak exercise. Territory WMSI 1.00 at rest, 1.40 at peak exercise.
 Territories follow the map 'Standard coronary territories (right-dominant)'.
 Segments 4 and 10 are often supplied by another artery (LCx), so the territory named is the usual one, not a certain one.
-
-Recommendations
-Optimise anti-anginal treatment; consider coronary angiography if symptoms persist.
 
 Stress and adequacy
 Treadmill exercise stress echocardiography; 17-segment model.

@@ -116,13 +116,15 @@ def build_narrative(
 ) -> Narrative:
     """Decide every sentence of the narrative for its audience."""
     referrer = audience is Audience.REFERRER
+    reader, *computed = impression_sections(analysis, audience)
     sections = [
-        *impression_sections(analysis, audience),
+        reader,  # the reader's words first, their recommendations next, then the computed findings
         Section(
             "recommendations",
             "Recommendations",
             reader_paragraphs(analysis.study.recommendations),
         ),
+        *computed,
         Section(
             "stress", "Stress and adequacy", tuple(stress_paragraphs(analysis, cite=not referrer))
         ),
