@@ -231,6 +231,7 @@ def analyze(
         conclusion=answer,
         notes=notes,
         cautions=list(CAUTIONS),
+        order=study.order,
     )
     from reporting.impression import with_impression_state
 

@@ -9,6 +9,7 @@ exit code 1 (click's usage errors exit 2). Heavy modules are imported inside the
 from __future__ import annotations
 
 import datetime as dt
+import io
 import os
 import sys
 from collections.abc import Callable, Iterator
@@ -39,15 +40,35 @@ def _user_errors() -> Iterator[None]:
         sys.exit(1)
 
 
-def _emit(text: str, output: Path | None) -> None:
-    """Print ``text``, or write it atomically to ``output`` and say so on stderr."""
+_STDOUT_NAMES = frozenset({"-", "/dev/stdout", "/dev/fd/1", "/proc/self/fd/1"})
+
+
+def _is_stdout(output: Path | None) -> bool:
+    """Whether ``-o`` names standard output: none given, ``-``, ``/dev/stdout`` or another name of it."""
+    if output is None or str(output) in _STDOUT_NAMES:
+        return True
+    try:
+        target, stdout = os.stat(output), os.fstat(sys.stdout.fileno())
+    except (OSError, ValueError, AttributeError, io.UnsupportedOperation):
+        return False
+    return (target.st_dev, target.st_ino) == (stdout.st_dev, stdout.st_ino)
+
+
+def _emit(data: str | bytes, output: Path | None) -> None:
+    """Print ``data`` when ``output`` is standard output (see :func:`_is_stdout`), else write it
+    atomically to ``output`` and say so on stderr."""
     from reporting.files import write_atomic
 
-    if output is None:
-        click.echo(text, nl=False)
-    else:
-        write_atomic(output, text)
+    if not _is_stdout(output):
+        assert output is not None
+        write_atomic(output, data)
         click.echo(f"Wrote {output}", err=True)
+    elif isinstance(data, bytes):
+        stream = click.get_binary_stream("stdout")
+        stream.write(data)
+        stream.flush()
+    else:
+        click.echo(data, nl=False)
 
 
 def _lab_options(func: F) -> F:
@@ -85,7 +106,7 @@ def main() -> None:
     "-o",
     "--output",
     type=click.Path(dir_okay=False, path_type=Path),
-    help="Write the record here instead of to stdout.",
+    help="Write the record here (- for stdout, the default).",
 )
 @_lab_options
 def analyze(
@@ -197,11 +218,14 @@ def serve(port: int, studies_dir: Path, settings_path: Path | None) -> None:
 
     with _user_errors():
         settings = load_settings(settings_path)
-    click.echo(
-        f"Score entry for {studies_dir.resolve()} on http://127.0.0.1:{port}/ (Ctrl+C stops)",
-        err=True,
-    )
-    run_server(studies_dir, port=port, settings=settings)
+        run_server(
+            studies_dir,
+            port=port,
+            settings=settings,
+            on_ready=lambda url: click.echo(
+                f"Score entry for {studies_dir.resolve()} on {url} (Ctrl+C stops)", err=True
+            ),
+        )
 
 
 @main.command()
@@ -258,13 +282,13 @@ def schema(outdir: Path | None) -> None:
     "-o",
     "--output",
     type=click.Path(dir_okay=False, path_type=Path),
-    help="Write the review JSON here instead of to stdout.",
+    help="Write the review JSON here (- for stdout, the default).",
 )
 @click.option(
     "--pdf",
     "pdf_path",
     type=click.Path(dir_okay=False, path_type=Path),
-    help="Also write the quality PDF here.",
+    help="Also write the quality PDF here (- for stdout, with -o FILE).",
 )
 @click.option(
     "--stenosis",
@@ -308,7 +332,12 @@ def qa(
 ) -> None:
     """Lab quality review of RECORDS (a folder of records or a registry.ndjson) against angiography."""
     from reporting.files import all_or_nothing, write_atomic
-    from reporting.qa import review_json, run_agreement, run_review, write_review_pdf
+    from reporting.qa import review_json, review_pdf_bytes, run_agreement, run_review
+
+    if pdf_path is not None and _is_stdout(pdf_path) and _is_stdout(output):
+        raise click.UsageError(
+            "the review JSON and the --pdf cannot both go to stdout; give -o FILE"
+        )
 
     thresholds = {
         name: value
@@ -328,14 +357,17 @@ def qa(
         )
         agreement = run_agreement(records, second_reading) if second_reading else None
         text = review_json(review)
-        written = [p for p in (output, pdf_path) if p is not None]
+        pdf = review_pdf_bytes(review, agreement) if pdf_path is not None else None
+        written = [p for p in (output, pdf_path) if p is not None and not _is_stdout(p)]
         with all_or_nothing(written):
-            if pdf_path is not None:
-                write_review_pdf(review, pdf_path, agreement=agreement)
-            if output is not None:
+            if pdf is not None and pdf_path in written:
+                write_atomic(pdf_path, pdf)
+            if output in written:
                 write_atomic(output, text)
-        if output is None:
-            click.echo(text, nl=False)
+        if _is_stdout(output):
+            _emit(text, None)
+        elif pdf is not None and pdf_path not in written:
+            _emit(pdf, None)
         for path in written:
             click.echo(f"Wrote {path}", err=True)
 
@@ -347,15 +379,32 @@ def qa(
     "-o",
     "--output",
     type=click.Path(dir_okay=False, path_type=Path),
-    help="Write the agreement JSON here instead of to stdout.",
+    help="Write the agreement JSON here (- for stdout, the default).",
 )
-def agreement(records_a: Path, records_b: Path, output: Path | None) -> None:
+@click.option(
+    "--pdf",
+    "pdf_path",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Also write the agreement as a PDF here.",
+)
+def agreement(records_a: Path, records_b: Path, output: Path | None, pdf_path: Path | None) -> None:
     """Agreement of two readers: RECORDS_A and RECORDS_B matched by study id (Cohen's kappa)."""
-    from reporting.qa import agreement_json, run_agreement
+    from reporting.files import all_or_nothing, write_atomic
+    from reporting.qa import agreement_json, run_agreement, write_agreement_pdf
 
     with _user_errors():
-        text = agreement_json(run_agreement(records_a, records_b))
-        _emit(text, output)
+        result = run_agreement(records_a, records_b)
+        text = agreement_json(result)
+        written = [p for p in (output, pdf_path) if p is not None]
+        with all_or_nothing(written):
+            if pdf_path is not None:
+                write_agreement_pdf(result, pdf_path)
+            if output is not None:
+                write_atomic(output, text)
+        if output is None:
+            click.echo(text, nl=False)
+        for path in written:
+            click.echo(f"Wrote {path}", err=True)
 
 
 @main.command()
@@ -364,7 +413,7 @@ def agreement(records_a: Path, records_b: Path, output: Path | None) -> None:
     "-o",
     "--output",
     type=click.Path(dir_okay=False, path_type=Path),
-    help="Write the fits (CSV) here instead of to stdout.",
+    help="Write the fits (CSV) here (- for stdout, the default).",
 )
 @click.option(
     "--segment-model",
@@ -500,18 +549,78 @@ def batch(
     "-o",
     "--output",
     type=click.Path(dir_okay=False, path_type=Path),
-    help="Write the Bundle here instead of to stdout.",
+    help="Write the Bundle here (- for stdout, the default).",
 )
 @_lab_options
 def fhir_bundle(
     study: Path, output: Path | None, settings_path: Path | None, territory_map: str | None
 ) -> None:
-    """Write STUDY as an HL7 FHIR R4 Bundle (JSON): report, observations and patient."""
-    from reporting.analysis import analyze_file
+    """Write STUDY as an HL7 FHIR R4 transaction Bundle (JSON), preliminary (unsigned).
+
+    Patient, practitioners, the order, the DiagnosticReport with the PDF and its observations.
+    """
     from reporting.export.fhir import bundle_json
+    from reporting.interop.from_file import release_from_file
 
     with _user_errors():
-        text = bundle_json(
-            analyze_file(study, settings_path=settings_path, territory_map=territory_map)
+        r = release_from_file(study, settings_path=settings_path, territory_map=territory_map)
+        _emit(bundle_json(r.analysis, pdf=r.pdf, release=r.release, settings=r.settings), output)
+
+
+@main.command("hl7")
+@click.argument("study", type=click.Path(path_type=Path))
+@click.option(
+    "-o",
+    "--output",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Write the message here instead of to stdout.",
+)
+@_lab_options
+def hl7_message(
+    study: Path, output: Path | None, settings_path: Path | None, territory_map: str | None
+) -> None:
+    """Write STUDY as an HL7 v2.5.1 ORU^R01 result message, preliminary (status P)."""
+    from reporting.interop.from_file import release_from_file
+    from reporting.interop.hl7 import oru_message
+
+    with _user_errors():
+        r = release_from_file(study, settings_path=settings_path, territory_map=territory_map)
+        _emit(oru_message(r.analysis, r.pdf, r.release), output)
+
+
+@main.command("dicom")
+@click.argument("study", type=click.Path(path_type=Path))
+@click.option(
+    "-o",
+    "--output",
+    "outdir",
+    required=True,
+    type=click.Path(file_okay=False, path_type=Path),
+    help="Folder for <id>.sr.dcm (Comprehensive SR) and <id>.pdf.dcm (Encapsulated PDF).",
+)
+@click.option(
+    "--new-study",
+    is_flag=True,
+    help="File the result as a new study when the imaging study's UID is not known (it will not file with the images).",
+)
+@_lab_options
+def dicom(
+    study: Path,
+    outdir: Path,
+    new_study: bool,
+    settings_path: Path | None,
+    territory_map: str | None,
+) -> None:
+    """Write STUDY as a DICOM Comprehensive SR and Encapsulated PDF, unverified (unsigned)."""
+    from reporting.interop.dicom_files import dicom_objects, write_dicom
+    from reporting.interop.from_file import release_from_file
+
+    with _user_errors():
+        r = release_from_file(study, settings_path=settings_path, territory_map=territory_map)
+        objects = dicom_objects(
+            r.analysis, r.pdf, r.release, settings=r.settings, new_study=new_study
         )
-        _emit(text, output)
+        if objects.warning:
+            click.echo(f"Warning: {objects.warning}", err=True)
+        for path in write_dicom(r.analysis, objects, outdir):
+            click.echo(f"Wrote {path}")

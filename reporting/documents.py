@@ -1,7 +1,9 @@
 """Reading YAML and JSON documents safely: the parsing half of every load boundary.
 
 Study files, lab settings and territory maps all come through here, so each gets the same
-protection: a size limit, text checks (empty, binary, not UTF-8), no YAML aliases (an alias bomb
+protection: only a regular file is opened (a named pipe, a device such as ``/dev/zero`` or a link to
+one is refused before anything is read), its size is checked before reading and no more than the
+limit is ever read (:func:`read_bytes_limited`, also used for curve CSVs and records); then text checks (empty, binary, not UTF-8), no YAML aliases (an alias bomb
 cannot expand), no duplicate keys, a nesting limit (deep nesting would exhaust the parser's stack),
 and every parser failure — including values such as ``2026-02-30`` that YAML accepts but cannot
 build — reported as an :class:`~reporting.errors.InputError` with the file and, where known, the line.
@@ -10,9 +12,11 @@ build — reported as an :class:`~reporting.errors.InputError` with the file and
 from __future__ import annotations
 
 import json
+import os
+import stat
 from importlib import resources
 from pathlib import Path
-from typing import Any
+from typing import Any, BinaryIO
 
 import yaml
 
@@ -36,19 +40,113 @@ _CLOSING = (yaml.BlockEndToken, yaml.FlowMappingEndToken, yaml.FlowSequenceEndTo
 _BUILD_ERRORS = (ValueError, KeyError, TypeError, OverflowError, RecursionError)
 
 
+def _not_regular(mode: int) -> str | None:
+    """What a non-regular file is, in words; ``None`` for a regular file."""
+    if stat.S_ISREG(mode):
+        return None
+    if stat.S_ISFIFO(mode):
+        return "a named pipe (FIFO)"
+    if stat.S_ISCHR(mode) or stat.S_ISBLK(mode):
+        return "a device"
+    if stat.S_ISSOCK(mode):
+        return "a socket"
+    return "not a regular file"
+
+
+def _open_regular(path: Path, what: str) -> tuple[int, int]:
+    """An open read-only descriptor of ``path`` and its size, refusing anything but a regular file.
+
+    The type is checked with ``stat`` before opening (opening a device or a pipe can block or have
+    effects) and again on the open descriptor, so a file swapped in between is refused too.
+    """
+    where = str(path)
+    try:
+        info = os.stat(path)  # follows symbolic links: a link to /dev/zero is a device
+        if stat.S_ISDIR(info.st_mode):
+            raise InputError(where, f"is a folder, not a {what}")
+        kind = _not_regular(info.st_mode)
+        if kind is None:
+            fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | os.O_CLOEXEC)
+            try:
+                info = os.fstat(fd)
+            except OSError:
+                os.close(fd)
+                raise
+            kind = _not_regular(info.st_mode)
+            if kind is not None:
+                os.close(fd)
+    except FileNotFoundError:
+        raise InputError(where, f"cannot read {what}: no such file") from None
+    except IsADirectoryError:
+        raise InputError(where, f"is a folder, not a {what}") from None
+    except OSError as exc:
+        raise InputError(where, f"cannot read {what}: {exc.strerror or exc}") from None
+    if kind is not None:
+        raise InputError(where, f"is {kind}, not a regular file; a {what} must be a regular file")
+    return fd, info.st_size
+
+
+def _read_up_to(fd: int, limit: int) -> bytes:
+    """Up to ``limit`` bytes from ``fd`` (fewer only at the end of the file)."""
+    chunks: list[bytes] = []
+    while limit > 0 and (chunk := os.read(fd, min(limit, 1 << 20))):
+        chunks.append(chunk)
+        limit -= len(chunk)
+    return b"".join(chunks)
+
+
+def read_bytes_limited(path: Path, *, what: str = "file", max_bytes: int) -> bytes:
+    """The bytes of the regular file ``path``, refused when larger than ``max_bytes``.
+
+    The size is checked before reading and at most ``max_bytes + 1`` bytes are ever read (a file
+    growing while it is read is refused too), so a huge or sparse file costs neither time nor
+    memory. Every failure is an :class:`InputError` located at ``path``.
+    """
+    fd, size = _open_regular(path, what)
+    where = str(path)
+    try:
+        if size > max_bytes:
+            raise InputError(where, f"file is {size:,} bytes; a {what} is at most {max_bytes:,}")
+        # Read what stat announced plus one byte: more means the file grew, so read on to the limit.
+        raw = _read_up_to(fd, size + 1)
+        if len(raw) > size:
+            raw += _read_up_to(fd, max_bytes + 1 - len(raw))
+    except OSError as exc:
+        raise InputError(where, f"cannot read {what}: {exc.strerror or exc}") from None
+    finally:
+        os.close(fd)
+    if len(raw) > max_bytes:
+        raise InputError(
+            where, f"file is over {max_bytes:,} bytes; a {what} is at most {max_bytes:,}"
+        )
+    return raw
+
+
+def open_regular(path: Path, *, what: str = "file") -> BinaryIO:
+    """``path`` opened for binary reading; anything but a regular file is an :class:`InputError`.
+
+    For readers that stream (line by line) and bound each read themselves.
+    """
+    fd, _size = _open_regular(path, what)
+    return os.fdopen(fd, "rb")
+
+
+def read_head(path: Path, limit: int, *, what: str = "file") -> bytes:
+    """At most the first ``limit`` bytes of the regular file ``path`` (for listings and peeks).
+
+    Refuses what :func:`read_bytes_limited` refuses except size: a large file gives its head.
+    """
+    with open_regular(path, what=what) as handle:
+        try:
+            return handle.read(limit)
+        except OSError as exc:
+            raise InputError(str(path), f"cannot read {what}: {exc.strerror or exc}") from None
+
+
 def read_text(path: Path, *, what: str = "file", max_bytes: int = MAX_DOCUMENT_BYTES) -> str:
     """The UTF-8 text of ``path``, or an :class:`InputError` saying why it cannot be read."""
     where = str(path)
-    try:
-        raw = path.read_bytes()
-    except IsADirectoryError:
-        raise InputError(where, f"is a folder, not a {what}") from None
-    except FileNotFoundError:
-        raise InputError(where, f"cannot read {what}: no such file") from None
-    except OSError as exc:
-        raise InputError(where, f"cannot read {what}: {exc.strerror or exc}") from None
-    if len(raw) > max_bytes:
-        raise InputError(where, f"file is {len(raw):,} bytes; a {what} is at most {max_bytes:,}")
+    raw = read_bytes_limited(path, what=what, max_bytes=max_bytes)
     if not raw.strip():
         raise InputError(where, "file is empty")
     if b"\x00" in raw:
@@ -57,6 +155,14 @@ def read_text(path: Path, *, what: str = "file", max_bytes: int = MAX_DOCUMENT_B
         return raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
         raise InputError(where, f"not UTF-8 text (byte {exc.start})") from None
+
+
+def _json_int(text: str) -> int | str:
+    # An integer beyond Python's digit limit stays text: validation reports it at its field.
+    try:
+        return int(text)
+    except ValueError:
+        return text
 
 
 def parse_json(text: str, where: str) -> Any:
@@ -71,7 +177,7 @@ def parse_json(text: str, where: str) -> Any:
         return out
 
     try:
-        return json.loads(text, object_pairs_hook=no_duplicates)
+        return json.loads(text, object_pairs_hook=no_duplicates, parse_int=_json_int)
     except json.JSONDecodeError as exc:
         raise InputError(
             f"{where}: line {exc.lineno}, column {exc.colno}", f"invalid JSON: {exc.msg}"
@@ -106,6 +212,31 @@ def _mapping(loader: yaml.SafeLoader, node: yaml.MappingNode) -> dict[Any, Any]:
 
 
 _StrictLoader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _mapping)
+
+
+class _LenientLoader(_StrictLoader):
+    """:class:`_StrictLoader`, except that a value YAML recognises but cannot build stays text.
+
+    ``2026-02-30``, an integer of 5000 digits or ``!!bool maybe`` stays the text it was written
+    as, so validation reports it at its field beside every other problem instead of one parser
+    error hiding the rest. Used only when the strict load fails (a wrapper per value costs time).
+    """
+
+
+def _as_text_when_unbuildable(tag: str) -> None:
+    build = _StrictLoader.yaml_constructors[tag]
+
+    def lenient(loader: yaml.SafeLoader, node: yaml.ScalarNode) -> Any:
+        try:
+            return build(loader, node)
+        except _BUILD_ERRORS:
+            return str(node.value)
+
+    _LenientLoader.add_constructor(tag, lenient)
+
+
+for _tag in ("timestamp", "int", "float", "bool"):
+    _as_text_when_unbuildable(f"tag:yaml.org,2002:{_tag}")
 
 
 def _check_events(text: str) -> None:
@@ -154,7 +285,10 @@ def parse_yaml(text: str, where: str) -> Any:
     try:
         if _needs_event_check(text):
             _check_events(text)
-        return yaml.load(text, Loader=_StrictLoader)
+        try:
+            return yaml.load(text, Loader=_StrictLoader)
+        except _BUILD_ERRORS:
+            return yaml.load(text, Loader=_LenientLoader)  # the value is reported at its field
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark
         at = f"{where}: line {mark.line + 1}, column {mark.column + 1}" if mark else where
@@ -179,17 +313,59 @@ def read_yaml(path: Path, *, what: str) -> Any:
     return parse_yaml(read_text(path, what=what), str(path))
 
 
+def check_suffix(path: Path, suffixes: tuple[str, ...] = (".yaml", ".yml", ".json")) -> Path:
+    """``path`` itself when its suffix is one of ``suffixes``, else an :class:`InputError`."""
+    if path.suffix.lower() not in suffixes:
+        raise InputError(
+            str(path), f"unknown file type {path.suffix or '(none)'!r}; use {', '.join(suffixes)}"
+        )
+    return path
+
+
+def parse_document(text: str, path: Path) -> Any:
+    """Parse the text of ``path`` as JSON (``.json``) or YAML (anything else)."""
+    where = str(path)
+    return parse_json(text, where) if path.suffix.lower() == ".json" else parse_yaml(text, where)
+
+
 def read_document(
     path: Path, *, what: str = "study file", suffixes: tuple[str, ...] = (".yaml", ".yml", ".json")
 ) -> Any:
     """Read and parse a YAML or JSON file, chosen by its suffix."""
-    suffix = path.suffix.lower()
-    if suffix not in suffixes:
-        raise InputError(
-            str(path), f"unknown file type {path.suffix or '(none)'!r}; use {', '.join(suffixes)}"
-        )
-    text = read_text(path, what=what)
-    return parse_json(text, str(path)) if suffix == ".json" else parse_yaml(text, str(path))
+    return parse_document(read_text(check_suffix(path, suffixes), what=what), path)
+
+
+def key_lines(text: str) -> dict[tuple[str, ...], int]:
+    """The line (1-based) of every key and list item in YAML or JSON ``text``, by its path.
+
+    A path is the keys and list indexes from the top, as text (``("stages", "peak",
+    "wall_motion")``). Used to locate validation problems, so it runs only when a file has some;
+    text it cannot read gives an empty mapping (the problems are then shown without lines).
+    """
+    lines: dict[tuple[str, ...], int] = {}
+
+    def walk(node: yaml.Node, path: tuple[str, ...]) -> None:
+        if isinstance(node, yaml.MappingNode):
+            for key, value in node.value:
+                if isinstance(key, yaml.ScalarNode):
+                    inner = (*path, str(key.value))
+                    lines.setdefault(inner, key.start_mark.line + 1)
+                    walk(value, inner)
+        elif isinstance(node, yaml.SequenceNode):
+            for index, item in enumerate(node.value):
+                inner = (*path, str(index))
+                lines.setdefault(inner, item.start_mark.line + 1)
+                walk(item, inner)
+
+    try:
+        if _needs_event_check(text):
+            _check_events(text)  # no aliases, bounded nesting: composing cannot blow up
+        root = yaml.compose(text, Loader=_SafeLoader)
+    except (yaml.YAMLError, RecursionError, ValueError):
+        return {}
+    if root is not None:
+        walk(root, ())
+    return lines
 
 
 def peek_yaml_text(text: str, keys: tuple[str, ...]) -> str | None:

@@ -8,11 +8,13 @@ line, all of them at once.
 
 from __future__ import annotations
 
+from collections.abc import Iterator, Mapping
 from pathlib import Path
 from typing import Any
 
 from pydantic import ValidationError
 
+from reporting.documents import check_suffix, key_lines, parse_document, read_text
 from reporting.documents import read_document as read_document  # re-exported for callers
 from reporting.errors import InputError, InputErrors
 from reporting.model import Study
@@ -21,14 +23,25 @@ STUDY_SUFFIXES = (".yaml", ".yml", ".json")
 
 
 def load_study(path: Path | str) -> Study:
-    """Read, parse and validate the study file at ``path``."""
+    """Read, parse and validate the study file at ``path``.
+
+    Each validation problem is located by its field and by its line in the file
+    (``study.yaml: line 12: stages.peak.wall_motion``), in line order.
+    """
     path = Path(path)
-    data = read_document(path, what="study file", suffixes=STUDY_SUFFIXES)
-    return study_from_data(data, source=str(path))
+    text = read_text(check_suffix(path, STUDY_SUFFIXES), what="study file")
+    data = parse_document(text, path)
+    return study_from_data(data, source=str(path), lines=_LazyLines(text))
 
 
-def study_from_data(data: Any, *, source: str = "study") -> Study:
-    """Validate already-parsed data; problems are located inside ``source``."""
+def study_from_data(
+    data: Any, *, source: str = "study", lines: Mapping[tuple[str, ...], int] | None = None
+) -> Study:
+    """Validate already-parsed data; problems are located inside ``source``.
+
+    ``lines`` (the line of each key path, from :func:`~reporting.documents.key_lines`) adds the
+    line of each problem to its location and puts the problems in line order.
+    """
     if not isinstance(data, dict):
         raise InputError(
             source,
@@ -37,7 +50,43 @@ def study_from_data(data: Any, *, source: str = "study") -> Study:
     try:
         return Study.model_validate(data)
     except ValidationError as exc:
-        raise InputErrors([_located(dict(e), source) for e in exc.errors()]) from None
+        located = [_located(dict(e), source, lines) for e in exc.errors()]
+        located.sort(key=lambda item: item[0] or 0)  # stable: same line keeps pydantic's order
+        raise InputErrors([problem for _, problem in located]) from None
+
+
+class _LazyLines(Mapping[tuple[str, ...], int]):
+    """:func:`key_lines` of a text, worked out on first use (only files with problems pay)."""
+
+    def __init__(self, text: str) -> None:
+        self._text = text
+        self._lines: dict[tuple[str, ...], int] | None = None
+
+    def _get(self) -> dict[tuple[str, ...], int]:
+        if self._lines is None:
+            self._lines = key_lines(self._text)
+        return self._lines
+
+    def __getitem__(self, key: tuple[str, ...]) -> int:
+        return self._get()[key]
+
+    def __iter__(self) -> Iterator[tuple[str, ...]]:
+        return iter(self._get())
+
+    def __len__(self) -> int:
+        return len(self._get())
+
+
+def _line(loc: list[Any], lines: Mapping[tuple[str, ...], int] | None) -> int | None:
+    """The line of the deepest part of ``loc`` found in the file."""
+    if not lines:
+        return None
+    path = tuple(str(p) for p in loc if p != "[key]")
+    for end in range(len(path), 0, -1):
+        line = lines.get(path[:end])
+        if line is not None:
+            return line
+    return None
 
 
 # --- pydantic errors -> located, readable problems ------------------------------------------------
@@ -45,8 +94,12 @@ def study_from_data(data: Any, *, source: str = "study") -> Study:
 _SCORE_KINDS = {"wall_motion": "wall-motion", "perfusion": "perfusion"}
 
 
-def _located(error: dict[str, Any], source: str) -> InputError:
+def _located(
+    error: dict[str, Any], source: str, lines: Mapping[tuple[str, ...], int] | None = None
+) -> tuple[int | None, InputError]:
+    """The problem of one pydantic error, readable and located, with its line when known."""
     loc = list(error["loc"])
+    line = _line(loc, lines)
     kind = error["type"]
     problem = str(error["msg"])
     segment: int | None = None
@@ -88,6 +141,8 @@ def _located(error: dict[str, Any], source: str) -> InputError:
         problem = f"text is longer than {error.get('ctx', {}).get('max_length')} characters"
     elif kind in ("int_parsing", "float_parsing", "int_type", "float_type"):
         problem = f"{_shown(error['input'])} is not a number"
+    elif kind == "int_parsing_size":
+        problem = f"{_shown(error['input'])} has too many digits to be a number here"
     elif kind == "int_from_float":
         problem = f"{_shown(error['input'])} is not a whole number"
     elif kind in ("date_from_datetime_parsing", "date_parsing", "date_type"):
@@ -97,7 +152,8 @@ def _located(error: dict[str, Any], source: str) -> InputError:
     if segment is not None and not problem.startswith("segment"):
         problem = f"segment {segment}: {problem}"
     path = ".".join(str(p) for p in loc if p != "[key]")
-    return InputError(f"{source}: {path}" if path else source, problem)
+    where = source if line is None else f"{source}: line {line}"
+    return line, InputError(f"{where}: {path}" if path else where, problem)
 
 
 def _key_problem(loc: list[Any], message: str) -> str:

@@ -1,8 +1,8 @@
 """Input models: a stress-echo study as the reader enters it.
 
 A :class:`Study` is valid once built: segment numbers exist in the declared segment model, scores
-lie on the declared scales, stages come in protocol order and the study id is safe to use in a file
-name. Each field's ``description`` becomes the published JSON Schema of the study file
+lie on the declared scales, stages are put in protocol order (a file may list them in any order:
+the names fix the order) and the study id is safe to use in a file name. Each field's ``description`` becomes the published JSON Schema of the study file
 (``schemas/study.schema.json``). Scores are entered either as one character per segment
 (``"111111 111111 1111 1"``, ``x`` for not visualised) or as a mapping of segment number to score.
 """
@@ -16,6 +16,7 @@ from enum import StrEnum
 from typing import Annotated, Any, Literal
 
 from pydantic import (
+    AfterValidator,
     BaseModel,
     BeforeValidator,
     ConfigDict,
@@ -249,6 +250,14 @@ PerfusionScores = Annotated[
 ]
 
 
+def _in_protocol_order(value: Any) -> Any:
+    """Stages sorted into protocol order (a file may list them in any order, e.g. sorted keys)."""
+    if not isinstance(value, dict):
+        return value
+    rank = {name: i for i, name in enumerate(_STAGE_VALUES)}
+    return dict(sorted(value.items(), key=lambda item: rank.get(item[0], len(rank))))
+
+
 class _Input(BaseModel):
     model_config = ConfigDict(
         extra="forbid", frozen=True, str_strip_whitespace=True, allow_inf_nan=False
@@ -369,6 +378,90 @@ class Contrast(_Input):
     )
 
 
+# --- Order identity (issue #16): what the hospital's order, archive and clinicians call this study.
+# Limits are those of the fields the values travel in; a longer value is refused, never cut.
+ACCESSION_NUMBER_MAX = 16
+"""DICOM Accession Number is SH, at most 16 characters (PS3.5 table 6.2-1)."""
+ORDER_NUMBER_MAX = 22
+"""HL7 v2.5.1 ORC-2/ORC-3 (Placer/Filler Order Number, EI) length 22 [S, HL7 v2.5.1 ch. 4]."""
+UID_MAX = 64
+"""DICOM UI: at most 64 characters, digits in dot-separated components without leading zeros."""
+PERSON_NAME_MAX = 64
+"""DICOM PN: at most 64 characters per component group."""
+CLINICIAN_ID_MAX = 16
+"""DICOM SH (and HL7 XCN.1 fits it): the clinician's staff number."""
+_UID_PATTERN = re.compile(r"^(0|[1-9][0-9]*)(\.(0|[1-9][0-9]*))*$")
+
+
+def _limited(limit: int, field: str) -> Any:
+    """A check that refuses text over ``limit`` characters or holding backslashes/control chars."""
+
+    def check(value: str) -> str:
+        if len(value) > limit:
+            raise PydanticCustomError(
+                "too_long",
+                "{value} is {length} characters; {field} holds at most {limit} (refused, not cut)",
+                {"value": repr(value[:80]), "length": len(value), "field": field, "limit": limit},
+            )
+        if "\\" in value or any(ord(c) < 32 for c in value):
+            raise PydanticCustomError(
+                "bad_character",
+                "{value} holds a backslash or control character, which {field} does not allow",
+                {"value": repr(value[:80]), "field": field},
+            )
+        return value
+
+    return AfterValidator(check)
+
+
+def _uid(value: str) -> str:
+    if len(value) > UID_MAX or not _UID_PATTERN.fullmatch(value):
+        raise PydanticCustomError(
+            "uid",
+            "{value} is not a DICOM UID (digits in dot-separated parts, no leading zeros, at most 64 characters)",
+            {"value": repr(value[:80])},
+        )
+    return value
+
+
+class Clinician(_Input):
+    """A clinician named on the order: the performing or the interpreting one."""
+
+    name: Annotated[str, _limited(PERSON_NAME_MAX, "a DICOM person name")] = Field(
+        min_length=1, description="Name as printed, e.g. 'Dr Ada Quill' (at most 64 characters)."
+    )
+    id: Annotated[str, _limited(CLINICIAN_ID_MAX, "a DICOM SH staff identifier")] | None = Field(
+        default=None,
+        min_length=1,
+        description="Staff number in the hospital (at most 16 characters).",
+    )
+
+
+class Order(_Input):
+    """The order and imaging study this result belongs to, so it files beside the images."""
+
+    accession_number: (
+        Annotated[str, _limited(ACCESSION_NUMBER_MAX, "DICOM Accession Number (SH)")] | None
+    ) = Field(default=None, min_length=1, description="Accession number (at most 16 characters).")
+    placer_order_number: (
+        Annotated[str, _limited(ORDER_NUMBER_MAX, "HL7 Placer Order Number (ORC-2)")] | None
+    ) = Field(
+        default=None, min_length=1, description="Requesting system's order number (at most 22)."
+    )
+    filler_order_number: (
+        Annotated[str, _limited(ORDER_NUMBER_MAX, "HL7 Filler Order Number (ORC-3)")] | None
+    ) = Field(default=None, min_length=1, description="Performing lab's order number (at most 22).")
+    study_instance_uid: Annotated[str, AfterValidator(_uid)] | None = Field(
+        default=None, description="Study Instance UID of the imaging study in the archive."
+    )
+    performing: Clinician | None = Field(
+        default=None, description="Clinician who performed the study."
+    )
+    interpreting: Clinician | None = Field(
+        default=None, description="Clinician who interpreted the study (else the reader)."
+    )
+
+
 class Study(_Input):
     """A stress-echo study: identification, protocol, and scores per stage."""
 
@@ -401,8 +494,9 @@ class Study(_Input):
         max_length=500,
         description="standard, left_dominant, or a path to a lab map (YAML) relative to the study file.",
     )
-    stages: dict[Stage, StageData] = Field(
-        min_length=1, description="Stages in protocol order: any of rest, low_dose, peak, recovery."
+    stages: Annotated[dict[Stage, StageData], BeforeValidator(_in_protocol_order)] = Field(
+        min_length=1,
+        description="Any of rest, low_dose, peak, recovery, in any order: the names fix the order.",
     )
     exercise: Exercise | None = Field(
         default=None, description="Exercise results (treadmill or bicycle studies)."
@@ -467,6 +561,10 @@ class Study(_Input):
     )
     vasodilator: Vasodilator | None = Field(
         default=None, description="Vasodilator agent and dose (vasodilator studies only)."
+    )
+    order: Order | None = Field(
+        default=None,
+        description="Order and imaging-study identity: accession and order numbers, Study Instance UID, clinicians.",
     )
 
     @model_validator(mode="wrap")
@@ -549,18 +647,8 @@ def _study_problems(
     on: dt.date | None,
     age_years: int | None,
 ) -> list[InitErrorDetails]:
-    """Checks that need the whole study: stage order, scores against the model, age."""
+    """Checks that need the whole study: scores against the model, age."""
     problems: list[InitErrorDetails] = []
-    names = [name for name in stages if name in _STAGE_VALUES]
-    if names != sorted(names, key=_STAGE_VALUES.index):
-        given = ", ".join(names)
-        problems.append(
-            _problem(
-                ("stages",),
-                f"stages must come in protocol order (rest, low_dose, peak, recovery); given {given}",
-                given,
-            )
-        )
     for stage, by_kind in stages.items():
         for kind, scores in by_kind.items():
             where = ("stages", stage, kind)

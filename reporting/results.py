@@ -15,7 +15,7 @@ from typing import Any, Literal
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from reporting.kinetics.models import KineticsResult
-from reporting.model import Protocol, ReportStatus, Sex, Stage, Study
+from reporting.model import Order, Protocol, ReportStatus, Sex, Stage, Study
 from reporting.notes import NoteKind as NoteKind
 from reporting.procedure import (
     Arrhythmia,
@@ -615,3 +615,7 @@ class Analysis(_Result):
     )
     notes: list[Note] = Field(description="Image-quality, protocol and interpretation notes.")
     cautions: list[str] = Field(description="Cautions that accompany every report.")
+    order: Order | None = Field(
+        default=None,
+        description="Order and imaging-study identity (accession, order numbers, Study Instance UID, clinicians); null when not given or de-identified.",
+    )

@@ -129,6 +129,22 @@ class Settings(BaseModel):
     lab_address: str | None = Field(
         max_length=300, description="Lab address or contact line for report headers."
     )
+    lab_uid_root: str | None = Field(
+        default=None,
+        max_length=40,
+        pattern=r"^[1-9][0-9]*(\.(0|[1-9][0-9]*))*$",
+        description="The lab's registered DICOM UID root; new UIDs go under it (else 2.25.<UUID>).",
+    )
+    lab_code_system_uri: str | None = Field(
+        default=None,
+        max_length=200,
+        description="FHIR system URI of the lab's own code system (lab-local codes); without it those codes travel as text only.",
+    )
+    lab_identifier_system_uri: str | None = Field(
+        default=None,
+        max_length=200,
+        description="FHIR system URI base for the lab's identifiers (report, observations, orders); without it identifiers carry a value only.",
+    )
     wmsi_excludes_apex: bool = Field(
         description="Leave the apical cap (segment 17) out of WMSI, keeping it for perfusion."
     )
@@ -175,6 +191,17 @@ class Settings(BaseModel):
             raise ValueError("kinetics_beta_min_per_s must be below kinetics_beta_max_per_s")
         return self
 
+    @model_validator(mode="after")
+    def _real_system_uris(self) -> Settings:
+        for name in ("lab_code_system_uri", "lab_identifier_system_uri"):
+            value = getattr(self, name)
+            if value is not None and not _is_real_uri(value):
+                raise ValueError(
+                    f"{name} must be an absolute http(s) or urn: URI the lab controls, "
+                    f"not a placeholder; got {value!r}"
+                )
+        return self
+
     def cited(self, name: str) -> str:
         """The source of setting ``name``; a lab's own value says so and keeps the default's source."""
         source = self.sources()[name]
@@ -189,6 +216,24 @@ class Settings(BaseModel):
     def sources() -> dict[str, str]:
         """The published source of each default, by setting name."""
         return {name: entry["source"] for name, entry in _defaults_file().items()}
+
+
+_PLACEHOLDER_HOSTS = (".invalid", ".example", ".test", ".localhost", "example.com", "example.org")
+
+
+def _is_real_uri(value: str) -> bool:
+    """An absolute http(s)/urn URI whose host is not a reserved placeholder (RFC 2606)."""
+    if value.startswith("urn:"):
+        return len(value) > 4 and " " not in value
+    scheme, sep, rest = value.partition("://")
+    host = rest.split("/", 1)[0].lower()
+    return (
+        bool(sep)
+        and scheme in ("http", "https")
+        and "." in host
+        and " " not in value
+        and not any(host == h.lstrip(".") or host.endswith(h) for h in _PLACEHOLDER_HOSTS)
+    )
 
 
 def _shown(value: Any) -> str:

@@ -288,3 +288,114 @@ def test_run_agreement_reports_both_sides(tmp_path: Path) -> None:
         f"{tmp_path / 'a'}: no such file or folder",
         f"{tmp_path / 'b'}: no such file or folder",
     ]
+
+
+# --- the agreement PDF ---------------------------------------------------------------------------
+
+
+def _pdf(data: bytes) -> tuple[int, str]:
+    import io
+
+    from pypdf import PdfReader
+
+    pages = PdfReader(io.BytesIO(data)).pages
+    # Table cells come out one per line: compare on text with the whitespace collapsed.
+    return len(pages), " ".join(" ".join(p.extract_text() for p in pages).split())
+
+
+def test_agreement_pdf_prints_the_kappas_scikit_learn_computes(
+    readers: tuple[list[Analysis], list[Analysis]],
+) -> None:
+    from reporting.qa.pdf import agreement_pdf_bytes
+
+    set_a, set_b = readers
+    result = build_agreement(set_a, set_b)
+    data = agreement_pdf_bytes(result)
+    assert data == agreement_pdf_bytes(result)  # reportlab invariant mode: byte-stable
+    pages, text = _pdf(data)
+    assert pages == 1
+    # Peak wall motion of, recomputed from the records with scikit-learn.
+    pairs: list[tuple[int, int]] = []
+    for sid in ("R-1", "R-2", "R-3"):
+        a = next(r for r in set_a if r.study.id == sid)
+        b = next(r for r in set_b if r.study.id == sid)
+        pairs += [
+            (sa.wall_motion[Stage.PEAK] or 0, sb.wall_motion[Stage.PEAK] or 0)
+            for sa, sb in zip(a.segments, b.segments, strict=True)
+        ]
+    kappas = [sklearn_kappa(pairs, w, SCALE) for w in Weighting]
+    words = [landis_koch(k).value.replace("_", " ") for k in kappas]
+    row = f"Wall motion, peak 51 {100 * 48 / 51:.0f} % " + " ".join(
+        f"{k:.2f} {w}" for k, w in zip(kappas, words, strict=True)
+    )
+    assert row in text
+    # Ischaemia per patient: R-1 no/no, R-2 yes/yes, R-3 yes/no, R-6 no/no.
+    patient = sklearn_kappa([(0, 0), (1, 1), (1, 0), (0, 0)], Weighting.NONE, [0, 1])
+    assert f"Ischaemia, per patient 4 75 % {patient:.2f} {landis_koch(patient).value}" in text
+    assert f"R-3 {A} {B} ischaemia no ischaemia RCA / none" in text
+    assert "Read in set A only (1): R-4" in text and "Read in set B only (1): R-5" in text
+    assert "Different segment models, left out of the wall-motion kappas (1): R-6" in text
+    assert "Hoffmann R et al." in text  # sources
+    assert "Kappa depends on how common each score is" in text  # cautions
+
+
+def test_agreement_pdf_escapes_names_and_stays_within_two_pages() -> None:
+    # A hostile reader name must not break the markup; 80 disagreements are cut to fit.
+    hostile = "Dr <i>Slant</i> & Co"
+    set_a = [reading(f"D-{i:03d}", "112211 111111 1111 1", reader=hostile) for i in range(80)]
+    set_b = [reading(f"D-{i:03d}", NORMAL, reader=B) for i in range(80)]
+    from reporting.qa.pdf import agreement_pdf_bytes
+
+    pages, text = _pdf(agreement_pdf_bytes(build_agreement(set_a, set_b)))
+    assert pages <= 2
+    assert hostile in text
+    assert "more in the agreement JSON" in text
+
+
+def test_agreement_command_writes_json_and_pdf(
+    tmp_path: Path, readers: tuple[list[Analysis], list[Analysis]]
+) -> None:
+    from click.testing import CliRunner
+
+    from reporting.cli import main
+
+    folders = []
+    for name, records in zip(("a", "b"), readers, strict=True):
+        folder = tmp_path / name
+        folder.mkdir()
+        for r in records:
+            (folder / f"{r.study.id}.record.json").write_text(record_json(r), encoding="utf-8")
+        folders.append(str(folder))
+    pdf, out = tmp_path / "agreement.pdf", tmp_path / "agreement.json"
+    result = CliRunner().invoke(main, ["agreement", *folders, "--pdf", str(pdf), "-o", str(out)])
+    assert result.exit_code == 0, result.output
+    assert json.loads(out.read_text(encoding="utf-8"))["matched_studies"] == 4
+    pages, text = _pdf(pdf.read_bytes())
+    assert pages == 1 and "Stress echo reader agreement" in text
+    assert f"Wrote {pdf}" in result.stderr
+    # Without -o the JSON goes to stdout and the PDF is still written.
+    pdf.unlink()
+    result = CliRunner().invoke(main, ["agreement", *folders, "--pdf", str(pdf)])
+    assert result.exit_code == 0 and json.loads(result.stdout)["matched_studies"] == 4
+    assert pdf.is_file()
+
+
+def test_agreement_command_with_bad_records_writes_nothing(tmp_path: Path) -> None:
+    from click.testing import CliRunner
+
+    from reporting.cli import main
+
+    (tmp_path / "a").mkdir()
+    # Broken JSON in reader A's only record: nothing can be compared.
+    (tmp_path / "a" / "R-1.record.json").write_text("{", encoding="utf-8")
+    pdf = tmp_path / "agreement.pdf"
+    result = CliRunner().invoke(
+        main, ["agreement", str(tmp_path / "a"), str(tmp_path / "b"), "--pdf", str(pdf)]
+    )
+    assert result.exit_code == 1
+    assert result.stderr.splitlines() == [
+        f"Error: {tmp_path / 'a' / 'R-1.record.json'}: invalid JSON: Expecting property name "
+        "enclosed in double quotes (column 2)",
+        f"Error: {tmp_path / 'b'}: no such file or folder",
+    ]
+    assert not pdf.exists()

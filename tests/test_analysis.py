@@ -315,7 +315,7 @@ def test_study_round_trips_through_json(rest: str, peak: dict[int, int | None]) 
     ],
 )
 def test_heart_rate_recovery(recovery: int | None, abnormal: bool | None) -> None:
-    # In stress echo the patient lies down at once: the cut-off is 18 bpm (FACTS §6, Watanabe 2001).
+    # In stress echo the patient lies down at once: the cut-off is 18 bpm (Watanabe J et al., Circulation 2001;104:1911).
     exercise = {
         "duration_min": 9,
         "max_st_deviation_mm": 1,

@@ -3,7 +3,11 @@
 from __future__ import annotations
 
 import json
+import os
+import subprocess
+import sys
 from pathlib import Path
+from typing import Any
 
 import pytest
 from click.testing import CliRunner
@@ -144,3 +148,84 @@ def test_schema_command(tmp_path: Path) -> None:
     assert json.loads(printed.stdout)["$id"].endswith("record-1.schema.json")
     written = CliRunner().invoke(main, ["schema", "-o", str(tmp_path)])
     assert written.exit_code == 0 and (tmp_path / "study-1.schema.json").exists()
+
+
+# --- -o - and -o /dev/stdout print; outputs never replace a pipe or a device (#11 item 4) ---------
+
+# Every command that writes one file, as (id, arguments before -o).
+ONE_FILE_COMMANDS = [
+    ("analyze", lambda demo, tmp: ["analyze", str(demo / "DEMO-0004.yaml")]),
+    ("fhir", lambda demo, tmp: ["fhir", str(demo / "DEMO-0004.yaml")]),
+    (
+        "curves",
+        lambda demo, tmp: ["curves", str(demo / "DEMO-0006.curves.csv"), "--segment-model", "17"],
+    ),
+    ("agreement", lambda demo, tmp: ["agreement", str(demo), str(demo)]),
+    ("qa", lambda demo, tmp: ["qa", str(demo), "--angio", str(_angio(tmp))]),
+]
+
+
+@pytest.mark.parametrize("target", ["-", "/dev/stdout"])
+@pytest.mark.parametrize("command,args", ONE_FILE_COMMANDS, ids=[c[0] for c in ONE_FILE_COMMANDS])
+def test_dash_or_dev_stdout_prints(
+    demo: Path, tmp_path: Path, command: str, args: Any, target: str
+) -> None:
+    runner = CliRunner()
+    with runner.isolated_filesystem(temp_dir=tmp_path) as cwd:
+        plain = runner.invoke(main, args(demo, tmp_path))
+        printed = runner.invoke(main, [*args(demo, tmp_path), "-o", target])
+        assert printed.exit_code == 0, printed.output
+        assert printed.stdout == plain.stdout and printed.stdout.strip()
+        assert "Wrote" not in printed.stderr
+        assert list(Path(cwd).iterdir()) == []  # no file named "-" left behind
+
+
+def test_dev_stdout_of_a_real_process_is_the_output(demo: Path, tmp_path: Path) -> None:
+    # Outside the test runner /dev/stdout is the process's own stdout: a pipe here, a regular file
+    # when redirected; either way the record goes there and no file is replaced behind the shell.
+    command = [sys.executable, "-m", "reporting", "analyze", str(demo / "DEMO-0004.yaml")]
+    piped = subprocess.run([*command, "-o", "/dev/stdout"], capture_output=True, check=True)
+    redirected = tmp_path / "out.json"
+    with redirected.open("wb") as handle:
+        subprocess.run([*command, "-o", "/dev/stdout"], stdout=handle, check=True)
+    plain = subprocess.run(command, capture_output=True, check=True)
+    assert piped.stdout == plain.stdout == redirected.read_bytes()
+    assert json.loads(plain.stdout)["study"]["id"] == "DEMO-0004"
+
+
+def test_qa_pdf_to_stdout(demo: Path, tmp_path: Path) -> None:
+    out = tmp_path / "qa.json"
+    args = ["qa", str(demo), "--angio", str(_angio(tmp_path))]
+    result = CliRunner().invoke(main, [*args, "-o", str(out), "--pdf", "-"])
+    assert result.exit_code == 0, result.output
+    assert result.stdout_bytes.startswith(b"%PDF") and out.exists()
+    # Both the JSON (the default) and the PDF to stdout would mix them: a usage error.
+    both = CliRunner().invoke(main, [*args, "--pdf", "-"])
+    assert both.exit_code == 2 and "cannot both go to stdout" in both.stderr
+
+
+def _not_regular(kind: str, folder: Path) -> Path:
+    target = folder / "out.json"
+    if kind == "fifo":  # renaming over a pipe would cut off whoever reads it
+        os.mkfifo(target)
+    elif kind == "link-to-dev-null":  # a device behind a link: never replaced by a plain file
+        target.symlink_to("/dev/null")
+    return target
+
+
+@pytest.mark.parametrize("kind", ["fifo", "link-to-dev-null"])
+@pytest.mark.parametrize("command,args", ONE_FILE_COMMANDS, ids=[c[0] for c in ONE_FILE_COMMANDS])
+def test_output_over_a_pipe_or_device_is_refused(
+    demo: Path, tmp_path: Path, command: str, args: Any, kind: str
+) -> None:
+    target = _not_regular(kind, tmp_path)
+    before = os.lstat(target)
+    result = CliRunner().invoke(main, [*args(demo, tmp_path), "-o", str(target)])
+    assert result.exit_code == 1, result.output
+    what = "a named pipe (FIFO)" if kind == "fifo" else "a device"
+    assert result.stderr == (
+        f"Error: {target}: cannot write: it is {what}; only a regular file is replaced\n"
+    )
+    after = os.lstat(target)
+    assert (after.st_ino, after.st_mode) == (before.st_ino, before.st_mode)
+    assert sorted(p.name for p in tmp_path.iterdir() if p.name != "angio.csv") == ["out.json"]

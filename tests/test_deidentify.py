@@ -2,15 +2,19 @@
 
 from __future__ import annotations
 
+import csv
 import datetime as dt
 import json
-import typing
+import os
+import re
+import subprocess
+import sys
 from pathlib import Path
 from typing import Any
 
 import jsonschema  # type: ignore[import-untyped, unused-ignore]
 import pytest
-from pydantic import BaseModel
+import yaml
 
 from reporting.analysis import analyze_file
 from reporting.batch import BatchOptions, run_batch
@@ -25,10 +29,10 @@ from reporting.deidentify import (
 )
 from reporting.errors import ReportingError
 from reporting.model import Stage
-from reporting.results import Analysis
 
 KEY = b"an invented key for tests only, 32+ bytes"
-SCHEMA = Path(__file__).parent.parent / "schemas" / "record-1.schema.json"
+ROOT = Path(__file__).parent.parent
+SCHEMA = ROOT / "schemas" / "record-1.schema.json"
 
 # One invented study per row; every value in IDENTIFIERS below must vanish from the extract.
 PEOPLE = [
@@ -129,8 +133,20 @@ def date_forms(iso: str) -> list[str]:
     ]
 
 
+# Lab map text and file names that must not reach the extract either (issue 11).
+MAP_TITLE = "Map drawn for Peregrine Ashdown-Vale by Dr Hesper Kilbride"
+MAP_SOURCE = "Drawn at Wrenhaven Moor Heart Centre, ward Heronsgate"
+HOSTILE_NAMES = [
+    "Dr_Kilbride_map",  # a lab map named after its author
+    "Quenby_broken_map",  # a broken lab map: its path would sit in the error's location
+    "Bartholomew_Quenby_curves_missing",  # a missing curve file: its path would be quoted
+    "1122334",  # an id written as a bare number: "id 1122334 was read as a number"
+]
+
+
 def identifiers() -> list[str]:
     found: set[str] = {LAB, "Wrenhaven", "Heronsgate", "Castellan", *TEXT.values()}
+    found |= {MAP_TITLE, MAP_SOURCE, *HOSTILE_NAMES}
     for sid, date, pid, name, born, _, reader, sonographer, referrer in PEOPLE:
         found |= {sid, pid, pid.removeprefix("MRN-"), name, reader, sonographer, referrer}
         found |= {
@@ -145,8 +161,41 @@ def identifiers() -> list[str]:
     return sorted(found)
 
 
+MAP_TERRITORIES = {
+    "17": {"LAD": [1, 2, 7, 8, 13, 14, 17], "RCA": [3, 4, 9, 10, 15, 16], "LCx": [5, 6, 11, 12]}
+}
+
+
+def hostile_inputs(indir: Path) -> None:
+    """Broken studies whose messages would quote numbers, dates and paths, and lab maps with names."""
+    folder = indir / "Ludovica_Tremayne"
+    # an id YAML reads as a number: the message would quote it
+    (folder / "1122334.yaml").write_text(
+        "schema_version: 1\nstudy: {id: 1122334, date: 2026-04-17}\nprotocol: dobutamine\n"
+        "stages: {rest: {wall_motion: '111111 111111 1111 1'}}\n",
+        encoding="utf-8",
+    )
+    # a date in the wrong form: the message would quote it
+    bad_date = study(PEOPLE[1])
+    bad_date["study"].update(id="WH-2026-0010", date="17/04/2026")
+    (folder / "WH-2026-0010.json").write_text(json.dumps(bad_date), encoding="utf-8")
+    # a curve file that is not there: the message would quote its path
+    missing = study(PEOPLE[2])
+    missing["study"]["id"] = "WH-2026-0011"
+    missing["perfusion_curves"] = "Bartholomew_Quenby_curves_missing.csv"
+    (folder / "WH-2026-0011.json").write_text(json.dumps(missing), encoding="utf-8")
+    # a broken lab map named by a study: the map's path would be the location
+    broken = {"title": MAP_TITLE, "territories": {"17": {"XYZ": [1]}}}
+    (folder / "Quenby_broken_map.yaml").write_text(yaml.safe_dump(broken), encoding="utf-8")
+    uses_broken = study(PEOPLE[2])
+    uses_broken["study"]["id"] = "WH-2026-0012"
+    uses_broken["territory_map"] = "Quenby_broken_map.yaml"
+    (folder / "WH-2026-0012.json").write_text(json.dumps(uses_broken), encoding="utf-8")
+
+
 @pytest.fixture(scope="module")
-def extract(tmp_path_factory: pytest.TempPathFactory) -> Path:
+def extract_run(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, str]:
+    """The extract folder, and everything the batch printed (with debug logging on)."""
     root = tmp_path_factory.mktemp("deid")
     indir = root / "in"
     curves = Path(__file__).parent.parent / "reporting" / "data" / "demo" / "DEMO-0006.curves.csv"
@@ -159,17 +208,38 @@ def extract(tmp_path_factory: pytest.TempPathFactory) -> Path:
             curve_name = f"{row[0]}_{row[3].replace(' ', '_')}_curves.csv"
             (path.parent / curve_name).write_bytes(curves.read_bytes())
             data["perfusion_curves"] = curve_name
+        if row is PEOPLE[2]:  # a lab map beside the study, with names in its text and file name
+            lab_map = {"title": MAP_TITLE, "source": MAP_SOURCE, "territories": MAP_TERRITORIES}
+            (path.parent / "Dr_Kilbride_map.yaml").write_text(yaml.safe_dump(lab_map))
+            data["territory_map"] = "Dr_Kilbride_map.yaml"
         path.write_text(json.dumps(data), encoding="utf-8")
     # a broken study whose error message would quote the name typed into a numeric field
     bad = study(PEOPLE[0])
     bad["study"]["id"] = "WH-2026-0009"
     bad["stages"]["rest"]["heart_rate_bpm"] = "Peregrine Ashdown-Vale"
     (indir / "Peregrine_Ashdown-Vale" / "WH-2026-0009.json").write_text(json.dumps(bad))
+    hostile_inputs(indir)
     out = root / "out"
-    options = BatchOptions(outdir=out, pdf=True, fhir=True, deidentify=True, deid_key=KEY)
-    summary = run_batch(indir, options, jobs=2)
-    assert (summary.done, summary.failed) == (3, 1), (out / "failures.csv").read_text()
-    return out
+    # The command as a lab runs it, with every logger at debug level, so the scan sees it all.
+    code = (
+        "import logging, sys; logging.basicConfig(level=logging.DEBUG); "
+        "from reporting.cli import main; sys.argv[0] = 'segreport'; main()"
+    )
+    args = ["batch", str(indir), "-o", str(out), "--deidentify", "--fhir", "--jobs", "2", "-q"]
+    env = {**os.environ, KEY_ENV: KEY.decode()}
+    run = subprocess.run(
+        [sys.executable, "-c", code, *args], capture_output=True, text=True, env=env, cwd=ROOT
+    )
+    printed = run.stdout + run.stderr
+    assert run.returncode == 1, printed  # studies failed
+    summary = "8 studies: 3 done, 0 skipped, 5 failed; 2 lab settings or territory map files"
+    assert summary in printed, printed
+    return out, printed
+
+
+@pytest.fixture(scope="module")
+def extract(extract_run: tuple[Path, str]) -> Path:
+    return extract_run[0]
 
 
 def test_key_is_required_with_a_clear_error(tmp_path: Path) -> None:
@@ -272,11 +342,21 @@ def test_every_output_byte_is_free_of_every_input_identifier(extract: Path) -> N
 
     for p in extract.glob("*.parquet"):
         contents[p.with_suffix(".decoded")] = pd.read_parquet(p).to_csv().encode()
-    for needle in identifiers():
+    paths = [str(extract.parent), extract.parent.name]  # where the inputs were: no path at all
+    for needle in identifiers() + paths:
         raw = needle.encode("utf-8")
         for p, data in contents.items():
             assert raw not in data, f"{needle!r} found in {p.name}"
             assert needle not in p.relative_to(extract).as_posix(), f"{needle!r} in a file name"
+
+
+def test_every_message_of_a_deidentified_batch_is_free_of_input(
+    extract_run: tuple[Path, str],
+) -> None:
+    extract, printed = extract_run
+    assert "Error: F-" in printed and "INFO:reporting.batch" in printed  # messages and logs seen
+    for needle in [*identifiers(), str(extract.parent), extract.parent.name]:
+        assert needle not in printed, f"{needle!r} printed: {printed}"
 
 
 def test_extract_has_no_pdf_and_names_files_by_hashed_id(extract: Path) -> None:
@@ -304,8 +384,14 @@ def test_extract_records_validate_and_group_old_ages(extract: Path) -> None:
 
 
 def test_failures_in_an_extract_name_no_file_or_value(extract: Path) -> None:
-    text = (extract / "failures.csv").read_text(encoding="utf-8")
-    assert "F-" in text and "heart_rate_bpm" in text
+    rows = list(csv.DictReader((extract / "failures.csv").open(encoding="utf-8")))
+    assert len(rows) >= 4
+    assert all(re.fullmatch(r"F-[0-9a-f]{24}", row["file"]) for row in rows)
+    # the location keeps the study format's own words; file names in it become "…"
+    assert {"stages.rest.heart_rate_bpm", "study.date", "study.id"} <= {r["location"] for r in rows}
+    assert any("…" in r["location"] for r in rows)
+    # no digit of any input survives in a message (ids, dates, values)
+    assert not any(re.search(r"\d", r["message"]) for r in rows)
 
 
 def test_pdf_writer_is_never_called_when_deidentifying(
@@ -320,77 +406,3 @@ def test_pdf_writer_is_never_called_when_deidentifying(
     (indir / "a.json").write_text(json.dumps(study(PEOPLE[2])))
     summary = run_batch(indir, BatchOptions(outdir=tmp_path / "out", deidentify=True, deid_key=KEY))
     assert summary.done == 1
-
-
-def _text_fields(model: type[BaseModel], prefix: str = "") -> list[str]:
-    found = []
-    for name, info in model.model_fields.items():
-        stack: list[Any] = [info.annotation]
-        text = False
-        while stack:
-            t = stack.pop()
-            if typing.get_origin(t) is typing.Literal:
-                continue
-            if isinstance(t, type) and issubclass(t, BaseModel):
-                found += _text_fields(t, f"{prefix}{name}.")
-            elif typing.get_args(t):
-                stack.extend(typing.get_args(t))
-            elif t in (str, dt.date, dt.datetime):
-                text = True
-        if text:
-            found.append(prefix + name)
-    return found
-
-
-# Each text or date field of the record and why de-identification treats it as it does.
-REVIEWED = {
-    "generator": "program version",
-    "study.id": "keyed hash",
-    "study.date": "removed (year kept)",
-    "study.lab": "removed",
-    "study.lab_address": "removed",
-    "study.reader": "removed",
-    "study.sonographer": "removed",
-    "study.referring_physician": "removed",
-    "study.indication": "removed unless keep_text",
-    "study.comments": "removed unless keep_text",
-    "study.referral_question": "removed (free text; deidentify builds the header without it)",
-    "study.impression": "removed (free text; deidentify builds the header without it)",
-    "study.recommendations": "removed (free text; deidentify builds the header without it)",
-    "study.other_findings": "removed (free text; deidentify builds the header without it)",
-    "patient.id": "keyed hash",
-    "patient.name": "removed",
-    "patient.birth_date": "removed",
-    "territory_map.name": "map name, no patient data",
-    "territory_map.title": "map title, no patient data",
-    "territory_map.source": "published source",
-    "haemodynamics.symptoms": "removed unless keep_text",
-    "contrast_agent": "removed unless keep_text",
-    "segments.name": "segment name",
-    "stress.adequacy_note": "computed; replaced when the age is withheld",
-    "stress.hr_recovery_source": "published source or the lab setting's value",
-    "conclusion.high_risk_findings.detail": "computed from scores",
-    "conclusion.high_risk_findings.source": "published source",
-    "notes.text": "computed from scores",
-    "notes.source": "published source",
-    "cautions": "fixed text",
-    "kinetics.model": "model formula",
-    "kinetics.source_file": "removed (file names may hold ids)",
-    "kinetics.segments.location": "curve file name replaced; stage, segment and lines kept",
-    "kinetics.segments.problems.location": "curve file name replaced",
-    "kinetics.segments.problems.detail": "computed from the curve values",
-    "kinetics.unassigned_curves.location": "curve file name replaced",
-    "kinetics.unassigned_curves.detail": "computed from the curve values",
-    "kinetics.unassigned_curves.stage": "stage label as written in the curve file",
-    "kinetics.cross_checks.text": "computed",
-    "kinetics.cross_checks.source": "published source",
-    "kinetics.criteria.name": "setting name",
-    "kinetics.criteria.source": "published source",
-    "conclusion.risk_criteria.detail": "computed from scores and measurements",
-    "conclusion.risk_criteria.source": "published source",
-}
-
-
-def test_every_text_field_of_the_record_was_reviewed_for_deidentification() -> None:
-    # A new text or date field may carry identifiers: review reporting/deidentify.py, then add it here.
-    assert sorted(_text_fields(Analysis)) == sorted(REVIEWED)

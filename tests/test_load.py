@@ -12,7 +12,7 @@ from click.testing import CliRunner
 from conftest import NORMAL_17, stages, study_dict
 
 from reporting.cli import main
-from reporting.errors import InputError
+from reporting.errors import InputError, InputErrors
 
 
 def _yaml(data: dict[str, Any]) -> str:
@@ -88,21 +88,6 @@ GALLERY: list[tuple[str, str, str | bytes, str, str]] = [
         _with(["stages", "stress"], {"heart_rate_bpm": 100}),
         "stages.stress",
         "unknown stage",
-    ),
-    # Peak before rest.
-    (
-        "stage-order",
-        "s.yaml",
-        _yaml(
-            study_dict(
-                stages={
-                    "peak": stages(peak=NORMAL_17)["peak"],
-                    "rest": stages(rest=NORMAL_17)["rest"],
-                }
-            )
-        ),
-        "stages",
-        "protocol order",
     ),
     # Text where a number belongs.
     (
@@ -205,27 +190,36 @@ GALLERY: list[tuple[str, str, str | bytes, str, str]] = [
         "nested more than 64 levels deep",
     ),
     ("deep-json", "s.json", "[" * 100_000 + "]" * 100_000, "s.json", "nested too deeply"),
-    # YAML accepts the shape of a date but not an impossible one.
+    # YAML accepts the shape of a date but not an impossible one: reported at its field and line.
     (
         "impossible-date",
         "s.yaml",
         GOOD.replace("'2026-10-14'", "2026-02-30"),
-        "s.yaml",
-        "day is out of range for month",
+        "line 4: study.date",
+        "'2026-02-30' is not a date (use YYYY-MM-DD)",
     ),
+    # An explicit tag YAML cannot build: the text it was written as, refused at its field.
     (
         "unknown-boolean",
         "s.yaml",
         GOOD.replace("schema_version: 1", "schema_version: !!bool maybe"),
-        "s.yaml",
-        "invalid YAML value",
+        "line 1: schema_version",
+        "'maybe' is not allowed",
     ),
+    # Beyond Python's digit limit for int(): still located at the field, not the whole file.
     (
         "huge-integer",
         "s.json",
         json.dumps(study_dict()).replace('"schema_version": 1', '"schema_version": ' + "9" * 5000),
-        "s.json",
-        "invalid JSON",
+        "line 1: schema_version",
+        "is not allowed",
+    ),
+    (
+        "huge-integer-yaml",
+        "s.yaml",
+        GOOD.replace("heart_rate_bpm: 70", "heart_rate_bpm: " + "9" * 5000),
+        "stages.rest.heart_rate_bpm",
+        "has too many digits to be a number here",
     ),
     # YAML reads 0012 as the octal number 10: ids must be text.
     (
@@ -362,9 +356,12 @@ def test_every_problem_is_listed_at_once(tmp_path: Path) -> None:
     assert result.exit_code == 1
     errors = [line for line in result.stderr.splitlines() if line.startswith("Error: ")]
     assert len(errors) == 4, result.stderr
+    lines = _yaml(data).splitlines()
+    peak = lines.index("  peak:")
+    line = next(i for i in range(peak, len(lines)) if "wall_motion:" in lines[i]) + 1
     assert (
-        f"Error: {study}: stages.peak.wall_motion: segment 17: wall-motion score 9 is out of range"
-        in result.stderr
+        f"Error: {study}: line {line}: stages.peak.wall_motion: segment 17: wall-motion score 9 "
+        "is out of range" in result.stderr
     )
 
 
@@ -375,7 +372,7 @@ def test_validate_lists_each_file(tmp_path: Path) -> None:
     result = CliRunner().invoke(main, ["validate", str(good), str(bad)])
     assert result.exit_code == 1
     assert f"ok: {good}" in result.stdout
-    assert f"Error: {bad}: protocol:" in result.stderr
+    assert f"Error: {bad}: line 8: protocol:" in result.stderr
     assert "1 of 2 file(s) have problems." in result.stderr
 
 
@@ -456,18 +453,6 @@ def test_nesting_limit_cannot_be_dodged(text: str) -> None:
         parse_yaml(text, "s.yaml")
 
 
-def test_order_problem_is_not_hidden_by_a_field_error(tmp_path: Path) -> None:
-    data = study_dict()
-    data["stages"] = {
-        "peak": stages(peak=NORMAL_17)["peak"],
-        "rest": {"heart_rate_bpm": 5, "wall_motion": NORMAL_17},
-    }
-    study = tmp_path / "s.yaml"
-    study.write_text(_yaml(data))
-    result = CliRunner().invoke(main, ["validate", str(study)])
-    assert "protocol order" in result.stderr and "heart_rate_bpm" in result.stderr
-
-
 def test_symlink_loop_is_a_located_error(tmp_path: Path) -> None:
     (tmp_path / "loop").symlink_to(tmp_path / "loop")
     study = tmp_path / "s.yaml"
@@ -477,3 +462,124 @@ def test_symlink_loop_is_a_located_error(tmp_path: Path) -> None:
     result = CliRunner().invoke(main, ["analyze", str(study)])
     assert result.exit_code == 1
     assert "perfusion_curves" in result.stderr and "Traceback" not in result.output
+
+
+# --- stages in any order, every problem with its line (#12 item 4) --------------------------------
+
+
+def _record(tmp_path: Path, name: str, text: str) -> dict[str, Any]:
+    study = tmp_path / name
+    study.write_text(text, encoding="utf-8")
+    result = CliRunner().invoke(main, ["analyze", str(study)])
+    assert result.exit_code == 0, result.stderr
+    return dict(json.loads(result.stdout))
+
+
+FOUR_STAGES = study_dict(
+    protocol="dobutamine",
+    stages=stages(
+        rest=NORMAL_17,
+        low_dose="111111 111111 1111 1",
+        peak="111111 111111 2211 1",  # apical segments worse at peak: ischaemic
+        recovery="111111 111111 2111 1",
+    ),
+)
+
+
+@pytest.mark.parametrize(
+    "name,text",
+    [
+        # JSON written with sorted keys: low_dose, peak, recovery, rest.
+        ("s.json", json.dumps(FOUR_STAGES, sort_keys=True, indent=1)),
+        ("s.yaml", yaml.safe_dump(FOUR_STAGES, sort_keys=True)),
+        # Reversed by hand.
+        (
+            "s.yaml",
+            _yaml({**FOUR_STAGES, "stages": dict(reversed(FOUR_STAGES["stages"].items()))}),
+        ),
+    ],
+    ids=["json-sorted-keys", "yaml-sorted-keys", "yaml-reversed"],
+)
+def test_stage_names_fix_the_order(tmp_path: Path, name: str, text: str) -> None:
+    # Oracle: the same study written in protocol order.
+    expected = _record(tmp_path, "ordered.yaml", _yaml(FOUR_STAGES))
+    got = _record(tmp_path, name, text)
+    assert list(got["wmsi"]) == ["rest", "low_dose", "peak", "recovery"]
+    assert got["segments"] == expected["segments"] and got["conclusion"] == expected["conclusion"]
+    assert got["conclusion"]["ischemia"] is True
+
+
+# A study with one problem on each marked line; the marker names the field reported there.
+MANY_PROBLEMS = """\
+schema_version: 1
+study:
+  id: T-0001
+  date: 2026-02-30            # PROBLEM study.date: February has no 30th (YAML cannot build it)
+patient:
+  age_years: 61
+  sex: f                      # PROBLEM patient.sex: an abbreviation, not one of the words
+  height_cm: 17O              # PROBLEM patient.height_cm: letter O typed for a zero
+protocol: treadmill
+stages:
+  peak:                       # (listed before rest: allowed, the names fix the order)
+    heart_rate_bpm: 1{digits}  # PROBLEM stages.peak.heart_rate_bpm: too many digits for int()
+    wall_motion: {{1: 1, 2: 7}}  # PROBLEM stages.peak.wall_motion: score 7 and 15 segments missing
+  rest:
+    systolic_bp_mmhg: !!bool perhaps   # PROBLEM stages.rest.systolic_bp_mmhg: not a boolean YAML knows
+    wall_motion: 111111 111111 1111 1
+    perfusion: 111111 111111 1111 9    # PROBLEM stages.rest.perfusion: perfusion scores stop at 3
+""".format(digits="0" * 5000)
+
+
+def test_validate_lists_every_problem_with_its_line(tmp_path: Path) -> None:
+    study = tmp_path / "s.yaml"
+    study.write_text(MANY_PROBLEMS, encoding="utf-8")
+    result = CliRunner().invoke(main, ["validate", str(study)])
+    assert result.exit_code == 1
+    errors = [line for line in result.stderr.splitlines() if line.startswith("Error: ")]
+    expected = [
+        (number, line.split("# PROBLEM ")[1].split(":")[0])
+        for number, line in enumerate(MANY_PROBLEMS.splitlines(), start=1)
+        if "# PROBLEM " in line
+    ]
+    for number, field in expected:
+        assert any(e.startswith(f"Error: {study}: line {number}: {field}: ") for e in errors), (
+            number,
+            field,
+            result.stderr,
+        )
+    # The wall-motion line has two problems (score 7, missing segments); no problem is unlined.
+    assert len(errors) == len(expected) + 1
+    numbers = [int(e.split(": line ")[1].split(":")[0]) for e in errors]
+    assert numbers == sorted(numbers)  # in file order
+
+
+def test_json_problems_have_lines_too(tmp_path: Path) -> None:
+    data = study_dict()
+    data["study"]["date"] = "2026-02-30"  # impossible date
+    data["stages"]["rest"]["heart_rate_bpm"] = "fast"  # text for a number
+    text = json.dumps(data, indent=2)
+    lines = text.splitlines()
+    study = tmp_path / "s.json"
+    study.write_text(text, encoding="utf-8")
+    result = CliRunner().invoke(main, ["validate", str(study)])
+    date_line = next(i for i, line in enumerate(lines, 1) if '"date"' in line)
+    rate_line = next(i for i, line in enumerate(lines, 1) if '"fast"' in line)
+    assert f"Error: {study}: line {date_line}: study.date: '2026-02-30' is not a date" in (
+        result.stderr
+    )
+    assert (
+        f"Error: {study}: line {rate_line}: stages.rest.heart_rate_bpm: 'fast' is not a number"
+        in (result.stderr)
+    )
+
+
+def test_data_without_a_file_has_no_lines() -> None:
+    # The entry page validates JSON it was sent: locations stay plain field paths.
+    from reporting.load import study_from_data
+
+    data = study_dict()
+    data["protocol"] = "swimming"  # not a protocol
+    with pytest.raises(InputErrors) as info:
+        study_from_data(data, source="study")
+    assert [p.location for p in info.value.problems] == ["study: protocol"]

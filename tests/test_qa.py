@@ -30,6 +30,7 @@ from reporting.qa.review import (
     review_json,
     run_review,
 )
+from reporting.qa.status import ReviewClass, review_class
 from reporting.results import Analysis, DiagnosticStatus
 from reporting.segments import Territory
 
@@ -82,6 +83,22 @@ def study(
 
 def record(study_id: str, **kwargs: Any) -> Analysis:
     return analyze(study_from_data(study(study_id, **kwargs)))
+
+
+def viability_study(study_id: str, *, reader: str | None = "Dr Ada Brightwater") -> dict[str, Any]:
+    """A low-dose viability study: akinetic anterior wall at rest improving at 10 μg/kg/min, no peak."""
+    data = study(study_id, reader=reader, date="2026-02-20")
+    rest = "111111 333111 3311 1"  # invented: anterior and apical segments akinetic at rest
+    data["stages"] = {
+        "rest": {"heart_rate_bpm": 70, "systolic_bp_mmhg": 120, "wall_motion": rest},
+        "low_dose": {
+            "heart_rate_bpm": 84,
+            "systolic_bp_mmhg": 130,
+            "dose_ug_kg_min": 10,
+            "wall_motion": "111111 222111 2211 1",
+        },
+    }
+    return data
 
 
 def write_records(folder: Path, records: list[Analysis]) -> Path:
@@ -488,7 +505,7 @@ _POOL = [
             ((Territory.LCX,), True),
         ]
     )
-]
+] + [analyze(study_from_data(viability_study("H-V1")))]
 
 _stenosis = st.dictionaries(
     st.sampled_from(list(Vessel)), st.floats(0, 100, allow_nan=False), max_size=4
@@ -507,7 +524,15 @@ def test_every_record_is_accounted_for(
     references = {k: Angiography(study_id=k, stenosis_percent=v) for k, v in angio_rows.items()}
     review = build_review(chosen, references, stenosis_percent=threshold)
     c = review.counts
-    assert c.records == c.outside_period + c.without_angiography + c.non_diagnostic + c.analysed
+    assert (
+        c.records
+        == c.outside_period
+        + c.without_angiography
+        + c.viability_only
+        + c.non_diagnostic
+        + c.analysed
+    )
+    assert review.non_diagnostic_rate.studies == c.records - c.outside_period
     assert review.per_patient.total == c.analysed
     assert all(review.per_territory[t].total == c.analysed for t in Territory)
     assert sum(g.studies for g in review.by_reader) == c.analysed
@@ -526,6 +551,140 @@ def test_every_record_is_accounted_for(
         if sens.value is not None:
             assert sens.ci_low is not None and sens.ci_high is not None
             assert sens.ci_low <= sens.value <= sens.ci_high
+
+
+# --- viability-only and non-diagnostic studies ------------------------------------------------
+
+
+def test_review_class_of_each_kind_of_study() -> None:
+    viability = analyze(study_from_data(viability_study("V-1")))
+    assert review_class(viability) is ReviewClass.VIABILITY_ONLY
+    # The same stages on a treadmill are an exercise test stopped early, not a viability study.
+    treadmill = viability_study("V-2")
+    treadmill["protocol"] = "treadmill"
+    del treadmill["stages"]["low_dose"]["dose_ug_kg_min"]
+    assert review_class(analyze(study_from_data(treadmill))) is ReviewClass.NON_DIAGNOSTIC
+    # Inadequate stress without ischaemia is non-diagnostic (Ballal RS et al., 1997)...
+    assert review_class(record("N-1", adequate=False)) is ReviewClass.NON_DIAGNOSTIC
+    # ...but ischaemia shown at submaximal stress still answers the question.
+    shown = record("N-2", adequate=False, ischemic=(Territory.LAD,))
+    assert review_class(shown) is ReviewClass.DIAGNOSTIC
+    assert review_class(record("N-3")) is ReviewClass.DIAGNOSTIC
+
+
+def test_review_class_reads_the_records_own_status() -> None:
+    # The record's conclusion.status is the one answer read: a study the analysis calls
+    # non-diagnostic for another reason (a territory not assessable) moves with it.
+    normal = record("N-4")
+    unread = normal.model_copy(
+        update={
+            "conclusion": normal.conclusion.model_copy(
+                update={"status": DiagnosticStatus.NON_DIAGNOSTIC}
+            )
+        }
+    )
+    assert review_class(normal) is ReviewClass.DIAGNOSTIC
+    assert review_class(unread) is ReviewClass.NON_DIAGNOSTIC
+
+
+@pytest.fixture(scope="module")
+def mixed_records(lab_records: list[Analysis]) -> list[Analysis]:
+    """The lab's records and a reader's viability-only and non-diagnostic studies."""
+    extra = [
+        analyze(study_from_data(viability_study("V-01"))),
+        analyze(study_from_data(viability_study("V-02", reader="Dr Tomas Quellenberg"))),
+        record("N-01", date="2026-02-03", adequate=False, reader="Dr Tomas Quellenberg"),
+        record("N-02", date="2026-02-04", adequate=False, reader="Dr Tomas Quellenberg"),
+        record("N-03", date="2026-02-05", adequate=False, reader=None),
+    ]
+    return [*lab_records, *extra]
+
+
+MIXED_ANGIO = {**LAB_ANGIO, "V-01": angio("V-01", LAD=95), "N-01": angio("N-01", RCA=40)}
+
+
+def test_viability_only_studies_stay_out_of_the_tables(mixed_records: list[Analysis]) -> None:
+    review = build_review(mixed_records, MIXED_ANGIO)
+    lab_only = build_review(mixed_records[:7], LAB_ANGIO)
+    # The added studies change no accuracy figure: none is a diagnostic study with angiography.
+    assert review.per_patient == lab_only.per_patient
+    assert review.per_territory == lab_only.per_territory
+    assert [s.study_id for s in review.viability_only] == ["V-01"]
+    assert review.viability_only[0].significant_vessels == [Vessel.LAD]
+    assert [s.study_id for s in review.non_diagnostic] == ["N-01", "Q-06"]
+    assert [s.study_id for s in review.without_angiography] == ["N-02", "N-03", "V-02", "Q-07"]
+    c = review.counts
+    assert (c.records, c.without_angiography, c.viability_only, c.non_diagnostic, c.analysed) == (
+        12,
+        4,
+        1,
+        2,
+        5,
+    )
+
+
+def test_non_diagnostic_rate_per_reader_matches_an_independent_count(
+    mixed_records: list[Analysis],
+) -> None:
+    # Oracle: the record JSON tallied with pandas, intervals from statsmodels (Wilson).
+    import pandas as pd
+
+    rows = []
+    for r in mixed_records:
+        data = json.loads(record_json(r))
+        stages = set(data["stages"])
+        viability = (
+            data["protocol"] == "dobutamine"
+            and "low_dose" in stages
+            and not stages & {"peak", "recovery"}
+        )
+        rows.append(
+            {
+                "reader": data["study"].get("reader") or "(none)",
+                "viability": viability,
+                "non_diagnostic": not viability
+                and data["conclusion"]["status"] == "non_diagnostic",
+            }
+        )
+    table = (
+        pd.DataFrame(rows)
+        .groupby("reader")
+        .agg(
+            studies=("viability", "size"),
+            viability=("viability", "sum"),
+            non_diagnostic=("non_diagnostic", "sum"),
+        )
+    )
+    review = build_review(mixed_records, MIXED_ANGIO)
+    ours = {r.reader or "(none)": r for r in review.non_diagnostic_by_reader}
+    assert sorted(ours) == sorted(table.index)
+    assert review.non_diagnostic_by_reader[-1].reader is None  # an unrecorded reader last
+    for reader, expected in table.iterrows():
+        got = ours[str(reader)]
+        denominator = int(expected["studies"] - expected["viability"])
+        assert (got.studies, got.viability_only) == (expected["studies"], expected["viability"])
+        assert got.non_diagnostic.numerator == expected["non_diagnostic"]
+        assert got.non_diagnostic.denominator == denominator
+        low, high = proportion_confint(
+            int(expected["non_diagnostic"]), denominator, alpha=0.05, method="wilson"
+        )
+        assert got.non_diagnostic.ci_low == pytest.approx(low, abs=1e-12)
+        assert got.non_diagnostic.ci_high == pytest.approx(high, abs=1e-12)
+    overall = review.non_diagnostic_rate
+    assert (overall.studies, overall.viability_only) == (12, 2)
+    assert (overall.non_diagnostic.numerator, overall.non_diagnostic.denominator) == (
+        int(table["non_diagnostic"].sum()),
+        10,
+    )
+
+
+def test_non_diagnostic_rate_counts_only_the_period(mixed_records: list[Analysis]) -> None:
+    review = build_review(
+        mixed_records, MIXED_ANGIO, date_from=dt.date(2026, 2, 1), date_to=dt.date(2026, 2, 28)
+    )
+    # February: Q-03, Q-04, V-01, V-02, N-01, N-02, N-03.
+    assert review.non_diagnostic_rate.studies == 7
+    assert review.non_diagnostic_rate.non_diagnostic.numerator == 3
 
 
 # --- the quality PDF ---------------------------------------------------------------------------
@@ -558,6 +717,28 @@ def test_pdf_content_and_stability(tmp_path: Path, lab_records: list[Analysis]) 
         "Per patient",
     ):
         assert expected in text, expected
+
+
+def test_pdf_shows_viability_only_and_the_non_diagnostic_rate_by_reader(
+    mixed_records: list[Analysis],
+) -> None:
+    review = build_review(mixed_records, MIXED_ANGIO)
+    pages, text = _pdf_text(review_pdf_bytes(review))
+    flat = " ".join(text.split())  # table cells come out one per line
+    assert pages == 2
+    assert "viability-only 1, non-diagnostic 2" in flat
+    assert "Viability-only (1): V-01" in text
+    assert "Non-diagnostic (2): N-01, Q-06" in text
+    assert "Non-diagnostic rate by reader" in text
+    # Dr Quellenberg read Q-02, Q-05, V-02, N-01 and N-02: 5 studies, 1 viability-only, and 2 of
+    # the other 4 non-diagnostic.
+    quellenberg = review.non_diagnostic_by_reader[1]
+    assert quellenberg.reader == "Dr Tomas Quellenberg"
+    low, high = proportion_confint(2, 4, alpha=0.05, method="wilson")
+    row = f"Dr Tomas Quellenberg 5 1 50 % (2/4) {100 * low:.0f}–{100 * high:.0f} %"
+    assert row in flat
+    overall = review.non_diagnostic_rate.non_diagnostic
+    assert f"All readers 12 2 {100 * overall.value:.0f} % ({overall.numerator}/10)" in flat
 
 
 def test_pdf_escapes_free_text_and_stays_within_two_pages() -> None:

@@ -251,7 +251,55 @@ def test_beta_falls_back_to_a_word_without_a_greek_glyph(demo6: Analysis) -> Non
     assert demo6.kinetics is not None
     fit = demo6.kinetics.segments[0]
     assert curves.stat_text(fit, style.MAP_FONTS).startswith("rest beta ")
-    assert "β" in curves.stat_text(fit, style.body_fonts()) or not style.body_fonts().embedded
+    # The packaged body font has β on every machine: no "or not embedded" escape.
+    assert style.body_fonts().embedded
+    assert "β" in curves.stat_text(fit, style.body_fonts())
+
+
+# Hides every system font folder, as on a machine without DejaVu; then prints the curve page text.
+_WITHOUT_SYSTEM_FONTS = """
+import builtins, io, os, pathlib, sys
+HIDDEN = ("/usr/share/fonts", "/usr/local/share/fonts", "/Library/Fonts", "C:/Windows/Fonts",
+          os.path.expanduser("~/.fonts"), os.path.expanduser("~/.local/share/fonts"))
+def hidden(path):
+    return str(path).startswith(HIDDEN)
+real_is_file, real_exists, real_open = pathlib.Path.is_file, pathlib.Path.exists, builtins.open
+pathlib.Path.is_file = lambda self, *a, **k: not hidden(self) and real_is_file(self, *a, **k)
+pathlib.Path.exists = lambda self, *a, **k: not hidden(self) and real_exists(self, *a, **k)
+def guarded_open(file, *args, **kwargs):
+    if isinstance(file, (str, os.PathLike)) and hidden(os.fspath(file)):
+        raise FileNotFoundError(file)
+    return real_open(file, *args, **kwargs)
+builtins.open = io.open = guarded_open
+from pypdf import PdfReader
+from reporting.analysis import analyze_file
+from reporting.render import pdf_bytes
+analysis = analyze_file(sys.argv[1])
+pdf = pdf_bytes(analysis)
+print(" ".join(" ".join(p.extract_text() for p in PdfReader(io.BytesIO(pdf)).pages).split()))
+"""
+
+
+def test_greek_letters_print_on_a_machine_without_system_fonts(tmp_path: Path) -> None:
+    # Issue 11 item 7: without a system DejaVu the old lookup fell back to a Latin-only font, and
+    # "β" came out as a replacement mark. The packaged font makes the machine's fonts irrelevant.
+    import subprocess
+    import sys
+
+    demo = resources.files("reporting.data").joinpath("demo")
+    for name in ("DEMO-0006.yaml", "DEMO-0006.curves.csv"):
+        (tmp_path / name).write_bytes(demo.joinpath(name).read_bytes())
+    done = subprocess.run(
+        [sys.executable, "-c", _WITHOUT_SYSTEM_FONTS, str(tmp_path / "DEMO-0006.yaml")],
+        capture_output=True,
+        text=True,
+        check=False,
+        cwd=Path(__file__).resolve().parent.parent,
+    )
+    assert done.returncode == 0, done.stderr
+    assert "y(t) = A(1 − e^(−βt)) + C" in done.stdout
+    assert "rest β " in done.stdout and "\ufffd" not in done.stdout
+    assert "cannot use the packaged font" not in done.stderr
 
 
 def test_grid_in_a_written_report(demo6: Analysis, tmp_path: Path) -> None:

@@ -29,7 +29,7 @@ def clock_deg(hour: float) -> float:
     return (90 + 30 * (12 - hour)) % 360
 
 
-# FACTS.md §1 (Cerqueira MD et al., Circulation 2002;105:539, fig. 1): segment 1 at 12 o'clock, then
+# the published standard (Cerqueira MD et al., Circulation 2002;105:539, fig. 1): segment 1 at 12 o'clock, then
 # anticlockwise 2 at 10, 3 at 8, 4 at 6, 5 at 4, 6 at 2; the mid ring repeats the angles; the apical
 # ring of the 16/17-segment models has 13 at 12, 14 at 9, 15 at 6, 16 at 3; 17 is the centre disc.
 BASAL_AND_MID = {1: 12, 2: 10, 3: 8, 4: 6, 5: 4, 6: 2}
@@ -59,7 +59,7 @@ CASES = [(m, n) for m in (16, 17, 18) for n in expected_geometry(m)]
 
 @pytest.mark.parametrize(("model", "number"), CASES, ids=[f"{m}-seg{n}" for m, n in CASES])
 def test_sector_centre_angle_and_ring_match_facts(model: int, number: int) -> None:
-    # Cerqueira et al., Circulation 2002, fig. 1; Lang et al., JASE 2015, fig. 3 (FACTS.md §1)
+    # Cerqueira et al., Circulation 2002, fig. 1; Lang et al., JASE 2015, fig. 3 (the published standard)
     ring, hour, span = expected_geometry(model)[number]
     sector = geometry.sectors(model)[number - 1]
     assert sector.number == number
@@ -78,7 +78,7 @@ def test_sector_centre_angle_and_ring_match_facts(model: int, number: int) -> No
 
 @pytest.mark.parametrize("model", [16, 17, 18])
 def test_rings_nest_from_basal_outside_to_apex_inside(model: int) -> None:
-    # FACTS.md §1: rings from outside in: basal, mid, apical, apex (Cerqueira 2002)
+    # the published standard: rings from outside in: basal, mid, apical, apex (Cerqueira 2002)
     by_ring: dict[Ring, set[tuple[float, float]]] = {}
     for s in geometry.sectors(model):
         by_ring.setdefault(s.ring, set()).add((s.r_inner, s.r_outer))
@@ -99,7 +99,7 @@ def test_sectors_of_a_ring_tile_the_full_circle(model: int) -> None:
 
 
 def test_orientation_anterior_top_septum_left_lateral_right_inferior_bottom() -> None:
-    # FACTS.md §1: anterior at top, septum on the viewer's left, lateral right, inferior bottom
+    # the published standard: anterior at top, septum on the viewer's left, lateral right, inferior bottom
     sectors = {s.number: s for s in geometry.sectors(17)}
     assert sectors[1].label_point()[1] > 0.5  # basal anterior: top
     assert sectors[4].label_point()[1] < -0.5  # basal inferior: bottom
@@ -114,7 +114,7 @@ def _analysis(name: str) -> Analysis:
 
 
 def _standard_17() -> tuple[Territory, ...]:
-    # Default map (Cerqueira 2002 via FACTS.md §1): LAD 1,2,7,8,13,14,17; RCA 3,4,9,10,15; LCx rest
+    # Default map (Cerqueira 2002 via the published standard): LAD 1,2,7,8,13,14,17; RCA 3,4,9,10,15; LCx rest
     lad = {1, 2, 7, 8, 13, 14, 17}
     rca = {3, 4, 9, 10, 15}
     return tuple(

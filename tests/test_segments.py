@@ -26,7 +26,7 @@ CERQUEIRA_NAMES = [
     "apical anterior", "apical septal", "apical inferior", "apical lateral", "apex",
 ]  # fmt: skip
 
-# Cerqueira 2002 (recommended assignment; FACTS.md §1 default map).
+# Cerqueira 2002 (recommended assignment; the published standard default map).
 CERQUEIRA_TERRITORIES = {
     Territory.LAD: [1, 2, 7, 8, 13, 14, 17],
     Territory.RCA: [3, 4, 9, 10, 15],
@@ -102,7 +102,7 @@ def test_every_segment_in_exactly_one_territory(name: str, model: SegmentModel) 
 
 
 def test_left_dominant_moves_inferior_wall_to_lcx() -> None:
-    # FACTS.md §1: left-dominant variant moves 3, 4, 9, 10, 15 to LCx (design choice, from memory).
+    # the published standard: left-dominant variant moves 3, 4, 9, 10, 15 to LCx (design choice, from memory).
     m = built_in_map("left_dominant")
     for n in (3, 4, 9, 10, 15):
         assert m.territory_of(17, n) is Territory.LCX

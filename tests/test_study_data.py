@@ -467,7 +467,7 @@ THREE_STAGES = {
 @pytest.mark.parametrize(
     ("protocol", "low", "peak"),
     [
-        # FACTS §3 exercise terms (common practice): workloads in exercise studies ...
+        # Exercise terms (common practice): workloads in exercise studies ...
         ("treadmill", "low workload", "peak exercise"),
         ("bicycle", "low workload", "peak exercise"),
         # ... and "low dose" for dobutamine only
@@ -511,7 +511,7 @@ def test_percent_of_predicted_is_shown_at_stress_stages_only() -> None:
 
 
 def test_percent_of_predicted_is_not_shown_for_vasodilator_stress() -> None:
-    # FACTS §3: the heart-rate target does not apply to vasodilator stress
+    # Common practice: the heart-rate target does not apply to vasodilator stress
     analysis = _analysed(**VASODILATOR)
     assert "% of predicted" not in _table_rows(analysis)[0]
     assert "% of predicted" not in _pdf_text(analysis)

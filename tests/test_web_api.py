@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 import io
 import json
 import warnings
@@ -23,6 +24,7 @@ with warnings.catch_warnings():
 
 from reporting.web import create_app
 
+TAB1 = {"x-client-id": "tab1"}  # the page's tab id, which owns its drafts
 PEAK_LAD = "111111 221111 2311 3"  # hypokinetic 7, 8, 13; akinetic 14 and the apex: LAD ischaemia
 
 
@@ -47,6 +49,11 @@ def studies(tmp_path: Path) -> Path:
 def client(studies: Path) -> TestClient:
     # the server answers only loopback host names, so the client says it is talking to 127.0.0.1
     return TestClient(create_app(studies), base_url="http://127.0.0.1")
+
+
+def etag_hex(content: bytes) -> str:
+    """The entity tag the server should send: SHA-256 of the stored bytes, quoted (RFC 9110 8.8.3)."""
+    return f'"{hashlib.sha256(content).hexdigest()}"'
 
 
 def problems(response: Any) -> list[str]:
@@ -159,7 +166,7 @@ def test_lab_map_outside_the_studies_folder_is_refused(client: TestClient, tmp_p
 def test_left_dominant_map_changes_territories_and_boundaries(client: TestClient) -> None:
     standard = client.post("/api/analyze", json=lad_study()).json()
     left = client.post("/api/analyze", json=lad_study(territory_map="left_dominant")).json()
-    # left-dominant variant: 3, 4, 9, 10, 15 to LCx (FACTS.md §1, design choice)
+    # left-dominant variant: 3, 4, 9, 10, 15 to LCx (the published standard, design choice)
     assert left["record"]["territories"]["LCx"]["segments"] == [3, 4, 5, 6, 9, 10, 11, 12, 15, 16]
     assert left["territory_boundaries"] != standard["territory_boundaries"]
 
@@ -172,9 +179,12 @@ def test_save_list_open_round_trip(client: TestClient, studies: Path) -> None:
     data["stages"]["peak"]["perfusion"] = {str(n): 1 for n in range(1, 18)} | {"14": "x"}
     response = client.put("/api/studies/T-0001", json=data)
     assert response.status_code == 200, response.text
-    assert response.json() == {"id": "T-0001", "file": "T-0001.yaml"}
+    body = response.json()
+    assert (body["id"], body["file"]) == ("T-0001", "T-0001.yaml")
 
     path = studies / "T-0001.yaml"
+    # the version is the hash of the bytes written, in the header and the body
+    assert body["etag"] == response.headers["etag"] == etag_hex(path.read_bytes())
     text = path.read_text(encoding="utf-8")
     assert "wall_motion: 111111 221111 2311 3" in text  # the character form, grouped by ring
     assert "perfusion: 111111 111111 1x11 1" in text
@@ -184,22 +194,35 @@ def test_save_list_open_round_trip(client: TestClient, studies: Path) -> None:
     assert not list(studies.glob(".*.part"))  # written through write_atomic
 
     listing = client.get("/api/studies").json()
-    assert [(s["id"], s["patient"], s["valid"]) for s in listing["studies"]] == [
-        ("T-0001", "Wren Adebayo-Lund", True)
+    assert [(s["id"], s["patient"], s["date"]) for s in listing["studies"]] == [
+        ("T-0001", "Wren Adebayo-Lund", "2026-10-14")
     ]
-    opened = client.get("/api/studies/T-0001").json()
+    got = client.get("/api/studies/T-0001")
+    assert got.headers["etag"] == body["etag"]
+    opened = got.json()
+    assert opened["etag"] == body["etag"]
     assert opened["file"] == "T-0001.yaml" and opened["problems"] == []
     assert opened["study"]["stages"]["peak"]["wall_motion"] == PEAK_LAD
     assert study_from_data(opened["study"]) == study_from_data(data)
 
 
-def test_save_refuses_to_replace_a_file_unless_asked(client: TestClient) -> None:
-    assert client.put("/api/studies/T-0001", json=lad_study()).status_code == 200
-    again = client.put("/api/studies/T-0001", json=lad_study(indication="second reading"))
-    assert again.status_code == 409
-    assert "T-0001.yaml already exists" in again.json()["detail"]
-    replaced = client.put("/api/studies/T-0001?overwrite=true", json=lad_study(indication="second"))
+def test_save_refuses_to_replace_a_file_without_if_match(client: TestClient, studies: Path) -> None:
+    first = client.put("/api/studies/T-0001", json=lad_study())
+    assert first.status_code == 200
+    before = (studies / "T-0001.yaml").read_bytes()
+    # no If-Match for an existing study: 428 Precondition Required (RFC 6585, section 3)
+    for address in ("/api/studies/T-0001", "/api/studies/T-0001?overwrite=true"):
+        again = client.put(address, json=lad_study(indication="second reading"))
+        assert again.status_code == 428
+        assert again.json()["detail"].startswith("T-0001.yaml: the study exists; send If-Match")
+    assert (studies / "T-0001.yaml").read_bytes() == before
+    replaced = client.put(
+        "/api/studies/T-0001",
+        json=lad_study(indication="second"),
+        headers={"if-match": first.headers["etag"]},
+    )
     assert replaced.status_code == 200
+    assert replaced.headers["etag"] != first.headers["etag"]
     assert client.get("/api/studies/T-0001").json()["study"]["indication"] == "second"
 
 
@@ -235,7 +258,8 @@ def test_opening_a_file_with_problems_gives_data_and_problems(
     body = client.get("/api/studies/T-0001").json()
     assert body["study"]["stages"]["peak"]["wall_motion"] == "11111"
     assert [p["location"] for p in body["problems"]] == ["T-0001.yaml: stages.peak.wall_motion"]
-    assert client.get("/api/studies").json()["studies"][0]["valid"] is False
+    # the listing reads only the head of each file, so it leaves the check to opening
+    assert client.get("/api/studies").json()["studies"][0]["valid"] is None
 
 
 def test_missing_study_is_404(client: TestClient) -> None:
@@ -249,22 +273,22 @@ def test_missing_study_is_404(client: TestClient) -> None:
 
 def test_drafts_keep_incomplete_work(client: TestClient, studies: Path) -> None:
     half_done = {"study": {"schema_version": 1, "stages": {"rest": {"wall_motion": {"1": 2}}}}}
-    saved = client.put("/api/drafts/untitled", json=half_done)
-    assert saved.status_code == 200 and saved.json()["id"] == "untitled"
-    stored = json.loads((studies / ".drafts" / "untitled.json").read_text(encoding="utf-8"))
-    assert stored["form"] == half_done
-    assert [d["id"] for d in client.get("/api/drafts").json()] == ["untitled"]
-    assert client.get("/api/drafts/untitled").json()["form"] == half_done
-    assert client.get("/api/studies").json()["drafts"][0]["id"] == "untitled"
-    assert client.delete("/api/drafts/untitled").json() == {"deleted": True}
-    assert client.get("/api/drafts/untitled").status_code == 404
+    saved = client.put("/api/drafts/tab1-1", json=half_done, headers=TAB1)
+    assert saved.status_code == 200 and saved.json()["id"] == "tab1-1"
+    stored = json.loads((studies / ".drafts" / "tab1-1.json").read_text(encoding="utf-8"))
+    assert stored["form"] == half_done and stored["client"] == "tab1"
+    assert [d["id"] for d in client.get("/api/drafts").json()] == ["tab1-1"]
+    assert client.get("/api/drafts/tab1-1").json()["form"] == half_done
+    assert client.get("/api/studies").json()["drafts"][0]["id"] == "tab1-1"
+    assert client.delete("/api/drafts/tab1-1", headers=TAB1).json() == {"deleted": True}
+    assert client.get("/api/drafts/tab1-1").status_code == 404
 
 
 def test_drafts_folder_can_live_elsewhere(tmp_path: Path) -> None:
     client = TestClient(
         create_app(tmp_path / "s", drafts_dir=tmp_path / "d"), base_url="http://127.0.0.1"
     )
-    assert client.put("/api/drafts/S-1", json={"study": {}}).status_code == 200
+    assert client.put("/api/drafts/S-1", json={"study": {}}, headers=TAB1).status_code == 200
     assert (tmp_path / "d" / "S-1.json").is_file()
 
 
@@ -428,7 +452,11 @@ def test_serve_binds_to_loopback_only(monkeypatch: pytest.MonkeyPatch, studies: 
     from reporting.web import serve
 
     seen: dict[str, Any] = {}
-    monkeypatch.setattr(uvicorn, "run", lambda app, **options: seen.update(options))
-    serve(studies, port=8799)
-    assert seen["host"] == "127.0.0.1" and seen["port"] == 8799
+
+    def run(server: uvicorn.Server, sockets: list[Any]) -> None:
+        seen.update(host=server.config.host, address=sockets[0].getsockname())
+
+    monkeypatch.setattr(uvicorn.Server, "run", run)
+    serve(studies, port=0)
+    assert seen["host"] == "127.0.0.1" and seen["address"][0] == "127.0.0.1"
     assert studies.is_dir()

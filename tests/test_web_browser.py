@@ -8,11 +8,13 @@ is missing). Nothing leaves 127.0.0.1.
 from __future__ import annotations
 
 import io
+import json
 import socket
 import threading
 import time
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from pathlib import Path
+from typing import Any
 
 import pytest
 import uvicorn
@@ -70,6 +72,36 @@ def _wait_for_file(path: Path, seconds: float = 8) -> None:
     while not path.exists():
         if time.monotonic() > deadline:
             pytest.fail(f"{path.name} was not written")
+        time.sleep(0.05)
+
+
+def _drafts(studies: Path) -> dict[str, dict[str, Any]]:
+    found = {}
+    for path in (studies / ".drafts").glob("*.json"):
+        try:
+            found[path.stem] = json.loads(path.read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            continue  # being replaced right now
+    return found
+
+
+def _wait_for_draft(
+    studies: Path, wanted: Callable[[dict[str, Any]], bool], seconds: float = 8
+) -> str:
+    deadline = time.monotonic() + seconds
+    while time.monotonic() < deadline:
+        for name, draft in _drafts(studies).items():
+            if wanted(draft):
+                return name
+        time.sleep(0.05)
+    pytest.fail("the draft was not written")
+
+
+def _wait_until(condition: Callable[[], bool], seconds: float = 8) -> None:
+    deadline = time.monotonic() + seconds
+    while not condition():
+        if time.monotonic() > deadline:
+            pytest.fail("the drafts folder did not settle")
         time.sleep(0.05)
 
 
@@ -141,9 +173,10 @@ def test_enter_a_study_by_clicks_and_keys_then_save_and_report(
             page.fill("#f-stages-peak-diastolic_bp_mmhg", "80")
             expect(page.locator("#f-stages-peak-diastolic_bp_mmhg-error")).to_be_hidden()
 
-            # nothing lost: the draft is in the browser and in the drafts folder
-            _wait_for_file(studies / ".drafts" / "E2E-0001.json")
-            assert "E2E-0001" in page.evaluate("localStorage.getItem('segreport:last')")
+            # nothing lost: the draft is in the browser and in the drafts folder, named by the tab
+            draft = _wait_for_draft(studies, lambda d: d["study_id"] == "E2E-0001")
+            assert draft == page.evaluate("sessionStorage.getItem('segreport:last')")
+            assert draft.startswith(page.evaluate("sessionStorage.getItem('segreport:client')"))
 
             # save: a study file the command line reads
             page.click("#save-button")
@@ -175,6 +208,103 @@ def test_enter_a_study_by_clicks_and_keys_then_save_and_report(
                 )
             ).to_have_attribute("aria-label", "Segment 14, apical septal, wall motion: 3 akinetic")
             page.screenshot(path=str(tmp_path / "entry.png"), full_page=True)
+            assert errors == []
+        finally:
+            browser.close()
+
+
+def test_two_tabs_the_second_save_shows_the_conflict_and_nothing_is_lost(
+    server: tuple[str, Path],
+) -> None:
+    """Two tabs on one study: the later save is refused (412), the page says what changed and
+    offers a reload or a copy; each tab's draft is its own, and no one's entries are lost."""
+    from playwright.sync_api import expect, sync_playwright
+
+    base, studies = server
+    studies.joinpath("T-0001.yaml").write_text(
+        "schema_version: 1\nstudy: {id: T-0001, date: 2026-10-14}\nprotocol: dobutamine\n"
+        "stages:\n  rest: {wall_motion: 111111 111111 1111 1}\n"
+        "  peak: {wall_motion: 111111 221111 2311 3}\n",
+        encoding="utf-8",
+    )
+    with sync_playwright() as pw:
+        browser = pw.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
+        try:
+            # one browser context = one browser: shared localStorage, a sessionStorage per tab
+            context = browser.new_context(viewport={"width": 1500, "height": 1000})
+            context.set_default_timeout(8000)
+            errors: list[str] = []
+            tab1, tab2 = context.new_page(), context.new_page()
+            for tab in (tab1, tab2):
+                tab.on("pageerror", lambda exc: errors.append(str(exc)))
+                tab.goto(base + "/?study=T-0001")
+                expect(tab.locator("#status")).to_contain_text("Opened T-0001.yaml")
+            client1 = tab1.evaluate("sessionStorage.getItem('segreport:client')")
+            client2 = tab2.evaluate("sessionStorage.getItem('segreport:client')")
+            assert client1 != client2
+
+            # tab 2 types first; its draft is autosaved under its own name
+            tab2.fill("#f-comments", "Second reader: apex looks akinetic")
+            draft2 = _wait_for_draft(studies, lambda d: d["client"] == client2)
+
+            # tab 1 edits and saves: accepted, and only tab 1's own draft is removed
+            tab1.fill("#f-indication", "Chest pain on exertion")
+            _wait_for_draft(studies, lambda d: d["client"] == client1)
+            tab1.click("#save-button")
+            expect(tab1.locator("#status")).to_contain_text("Saved T-0001.yaml")
+            saved_by_1 = studies.joinpath("T-0001.yaml").read_bytes()
+            assert b"Chest pain on exertion" in saved_by_1
+            _wait_until(lambda: set(_drafts(studies)) == {draft2})  # removal follows the save
+
+            # tab 2 saves the version it opened: refused, with what changed, nothing written
+            tab2.click("#save-button")
+            conflict = tab2.locator("#conflict")
+            expect(conflict).to_be_visible()
+            expect(tab2.locator("#conflict-title")).to_have_text(
+                "Not saved: T-0001 changed since you opened it"
+            )
+            expect(tab2.locator("#conflict-changes")).to_contain_text(
+                "indication: (empty) → “Chest pain on exertion”"
+            )
+            assert studies.joinpath("T-0001.yaml").read_bytes() == saved_by_1
+            expect(tab2.locator("#f-comments")).to_have_value("Second reader: apex looks akinetic")
+            assert "apex looks akinetic" in json.dumps(_drafts(studies)[draft2])
+
+            # save as a copy: both versions are now on disk, each whole
+            expect(tab2.locator("#conflict-copy-id")).to_have_value("T-0001-copy")
+            tab2.click("#conflict-copy")
+            expect(tab2.locator("#status")).to_contain_text(
+                "Saved your version as T-0001-copy.yaml"
+            )
+            expect(conflict).to_be_hidden()
+            copy = load_study(studies / "T-0001-copy.yaml")
+            assert copy.comments == "Second reader: apex looks akinetic"
+            assert copy.indication is None
+            assert load_study(studies / "T-0001.yaml").indication == "Chest pain on exertion"
+            assert studies.joinpath("T-0001.yaml").read_bytes() == saved_by_1
+            _wait_until(lambda: _drafts(studies) == {})
+
+            # tab 1 saves again on top of its own save (its version moved on with the save)
+            tab1.fill("#f-indication", "Chest pain on exertion, 3 months")
+            tab1.click("#save-button")
+            expect(tab1.locator("#status")).to_contain_text("Saved T-0001.yaml")
+            assert load_study(studies / "T-0001.yaml").indication == (
+                "Chest pain on exertion, 3 months"
+            )
+
+            # a reload offered after a conflict brings the stored version, keeping the edits' draft
+            tab2.goto(base + "/?study=T-0001")
+            tab1.fill("#f-indication", "changed again in tab 1")
+            tab1.click("#save-button")
+            expect(tab1.locator("#status")).to_contain_text("Saved T-0001.yaml")
+            tab2.fill("#f-comments", "tab 2 once more")
+            tab2.click("#save-button")
+            expect(tab2.locator("#conflict")).to_be_visible()
+            tab2.click("#conflict-reload")
+            expect(tab2.locator("#f-indication")).to_have_value("changed again in tab 1")
+            expect(tab2.locator("#status")).to_contain_text("your edits stay in the draft")
+            kept = _wait_for_draft(studies, lambda d: d["client"] == client2)
+            assert _drafts(studies)[kept]["form"]["study"]["comments"] == "tab 2 once more"
             assert errors == []
         finally:
             browser.close()

@@ -1,8 +1,8 @@
 """``registry.ndjson`` and ``failures.csv``: streamed into temporary files, renamed at the end.
 
 Nothing appears under its final name before :meth:`Aggregates.commit`, so an interrupted batch
-leaves no half-written aggregate. When de-identifying, failures name files by a keyed hash and the
-quoted input values in their messages are blanked out (a value may be an identifier).
+leaves no half-written aggregate. When de-identifying, failures name files by a keyed hash, and
+their problems were already rebuilt without any input value (see :mod:`reporting.batch.redact`).
 """
 
 from __future__ import annotations
@@ -10,7 +10,6 @@ from __future__ import annotations
 import contextlib
 import csv
 import os
-import re
 from collections.abc import Callable
 from pathlib import Path
 from typing import IO
@@ -22,16 +21,13 @@ REGISTRY = "registry.ndjson"
 FAILURES = "failures.csv"
 FAILURE_COLUMNS = ("file", "location", "message")
 
-_QUOTED = re.compile(r"'[^']*'|\"[^\"]*\"")
-
 
 class Aggregates:
     """The registry and the failure list of one batch run."""
 
-    def __init__(self, outdir: Path, label: Callable[[str], str], *, redact: bool) -> None:
+    def __init__(self, outdir: Path, label: Callable[[str], str]) -> None:
         self.outdir = outdir
         self.label = label
-        self.redact = redact
         self.targets: list[tuple[Path, Path]] = []
         self.handles: list[IO[str]] = []
         try:
@@ -56,11 +52,9 @@ class Aggregates:
 
     def failure(self, result: StudyResult) -> None:
         """Add one row per problem of a failed study."""
+        name = result.label if result.label is not None else self.label(result.source)
         for problem in result.problems:
-            location, message = problem.location, problem.message
-            if self.redact:
-                location, message = _redacted(location), _redacted(message)
-            self.failure_writer.writerow((self.label(result.source), location, message))
+            self.failure_writer.writerow((name, problem.location, problem.message))
 
     def commit(self) -> list[Path]:
         """Close the files and move them to their final names; return those names."""
@@ -78,8 +72,3 @@ class Aggregates:
         for temp, _ in self.targets:
             with contextlib.suppress(FileNotFoundError):
                 temp.unlink()
-
-
-def _redacted(text: str) -> str:
-    # Problem messages quote input values, which may be identifiers.
-    return _QUOTED.sub("'…'", text)

@@ -16,7 +16,8 @@ from pathlib import Path
 
 from reporting.batch.options import BatchOptions
 from reporting.batch.results import Problem
-from reporting.documents import parse_json, peek_yaml_text, read_text
+from reporting.batch.sources import NotAStudy, not_a_study
+from reporting.documents import parse_json, parse_yaml, peek_yaml_text, read_text
 from reporting.errors import ReportingError
 from reporting.load import STUDY_SUFFIXES
 
@@ -31,6 +32,8 @@ class Claim:
     """The earlier source (in input order) whose study has this id; ``None`` when this study owns it."""
     owner_id: str | None = None
     """The owner's id as written (it may differ in case)."""
+    not_a_study: NotAStudy | None = None
+    """Set when the file is a lab settings file or territory map, not a study: it is skipped."""
 
 
 def claim_key(study_id: str) -> str:
@@ -38,10 +41,11 @@ def claim_key(study_id: str) -> str:
     return study_id.casefold()
 
 
-def read_output_id(path: Path, options: BatchOptions) -> str | None:
+def read_output_id(path: Path, options: BatchOptions) -> str | NotAStudy | None:
     """The id ``path``'s outputs would be named after, read without analysing the study.
 
-    ``None`` when the file cannot be read or holds no text id; analysing it then fails on its own.
+    A lab settings file or territory map gives its :class:`NotAStudy` kind. ``None`` when the file
+    cannot be read or holds no text id; analysing it then fails on its own.
     """
     if path.suffix.lower() not in STUDY_SUFFIXES:
         return None
@@ -53,21 +57,30 @@ def read_output_id(path: Path, options: BatchOptions) -> str | None:
             study_id = study.get("id") if isinstance(study, dict) else None
         else:  # YAML: read only as far as the id, from parser events (much cheaper than a load)
             study_id = peek_yaml_text(text, ("study", "id"))
+            if study_id is None:  # not a study, or a broken one: only then load it all
+                data = parse_yaml(text, str(path))
+        if study_id is None:
+            kind = not_a_study(data)
+            if kind is not None:
+                return kind
     except ReportingError:
         return None
     return options.output_id(study_id) if isinstance(study_id, str) else None
 
 
-def read_output_ids(paths: Sequence[Path], options: BatchOptions) -> list[str | None]:
+def read_output_ids(paths: Sequence[Path], options: BatchOptions) -> list[str | NotAStudy | None]:
     """:func:`read_output_id` for each path (one task for a worker process)."""
     return [read_output_id(p, options) for p in paths]
 
 
-def assign(sources: Iterable[tuple[str, str | None]]) -> list[Claim]:
+def assign(sources: Iterable[tuple[str, str | NotAStudy | None]]) -> list[Claim]:
     """One :class:`Claim` per ``(source, output id)``, in order: the first source with an id owns it."""
     owners: dict[str, tuple[str, str]] = {}
     claims = []
     for source, study_id in sources:
+        if isinstance(study_id, NotAStudy):
+            claims.append(Claim(None, not_a_study=study_id))
+            continue
         if study_id is None:
             claims.append(Claim(None))
             continue

@@ -45,6 +45,15 @@ class BatchOptions:
         """PDFs are written unless turned off or de-identifying (a report shows identifiers)."""
         return self.pdf and not self.deidentify
 
+    @property
+    def key_fingerprint(self) -> str | None:
+        """Tells de-identification keys apart without revealing them (``None``: not de-identifying)."""
+        if not self.deidentify or not self.deid_key:
+            return None
+        from reporting.deidentify import key_fingerprint
+
+        return key_fingerprint(self.deid_key)
+
     @functools.cached_property
     def fingerprint(self) -> str:
         """A digest of everything that changes the outputs, stored in each study's stamp."""

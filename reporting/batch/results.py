@@ -24,6 +24,8 @@ class Status(StrEnum):
     """Outputs newer than the input and made with the same options: not redone."""
     FAILED = "failed"
     """The study could not be analysed or written; see the problems."""
+    IGNORED = "ignored"
+    """Not a study but a lab settings file or territory map: nothing written, not a failure."""
 
 
 @dataclass(frozen=True)
@@ -64,6 +66,8 @@ class StudyResult:
     problems: tuple[Problem, ...] = ()
     stale: StaleOutputs | None = None
     """Files of an earlier run this run did not write again (see :class:`StaleOutputs`)."""
+    label: str | None = None
+    """How messages name the file when de-identifying: a keyed hash of ``source`` (``F-…``)."""
 
 
 @dataclass(frozen=True)
@@ -75,6 +79,8 @@ class BatchSummary:
     skipped: int
     failed: int
     written: tuple[Path, ...]
+    ignored: int = 0
+    """Files that are lab settings or territory maps, not studies (not counted in ``total``)."""
 
     @property
     def ok(self) -> bool:
@@ -86,6 +92,11 @@ class BatchSummary:
         return (
             f"{self.total} stud{'y' if self.total == 1 else 'ies'}: {self.done} done, "
             f"{self.skipped} skipped, {self.failed} failed"
+        ) + (
+            f"; {self.ignored} lab settings or territory map file"
+            f"{'' if self.ignored == 1 else 's'} left out (not studies)"
+            if self.ignored
+            else ""
         )
 
 
@@ -99,11 +110,14 @@ ProgressCallback = Callable[[StudyResult], None]
 def describe(result: StudyResult, indir: Path | None = None) -> list[str]:
     """One ``<file>: <location>: <problem>`` line per problem of a failed study.
 
-    The file is given relative to the input folder, or under ``indir`` when it is passed. These
-    lines name the file and quote values in full even when de-identifying: they are for the
-    operator's screen, not for the extract.
+    The file is given relative to the input folder, or under ``indir`` when it is passed. When
+    de-identifying, the file is its keyed hash (``F-…``) and the problems hold nothing from the
+    input (see :mod:`reporting.batch.redact`): these lines end up in logs and terminal scrollback.
     """
-    name = (indir / result.source).as_posix() if indir is not None else result.source
+    if result.label is not None:
+        name = result.label
+    else:
+        name = (indir / result.source).as_posix() if indir is not None else result.source
     return [
         ": ".join(part for part in (name, p.location, p.message) if part) for p in result.problems
     ]

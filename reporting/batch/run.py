@@ -15,13 +15,14 @@ from __future__ import annotations
 import contextlib
 import itertools
 import logging
+import os
 from collections import deque
 from collections.abc import Iterator, Sequence
 from concurrent.futures import Future, ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
 from pathlib import Path
 
-from reporting.batch import stamps
+from reporting.batch import folder, redact, stamps, watchdog
 from reporting.batch.aggregates import Aggregates
 from reporting.batch.claims import Claim, assign, claim_key, read_output_ids
 from reporting.batch.options import BatchOptions
@@ -67,13 +68,36 @@ def run_batch(
     indir = Path(indir)
     paths = list(studies) if studies is not None else find_studies(indir, exclude=options.outdir)
     outdir = options.outdir
+    folder.check_mode(outdir, options.deidentify)  # before anything is written
     _make_folder(outdir)
-    _sweep_temporaries(outdir)  # left by a run that was killed outright
+    with folder.locked(outdir):
+        folder.check_mode(outdir, options.deidentify)  # again: another batch may have written
+        folder.write_mode(outdir, options.deidentify, options.key_fingerprint)
+        _sweep_temporaries(outdir)  # left by a run that was killed outright
+        quiet = redact.input_logs_silenced() if options.deidentify else contextlib.nullcontext()
+        with quiet:
+            summary = _run_locked(indir, paths, options, jobs=jobs, progress=progress)
+    if options.deidentify:  # the input folder's name may name a patient
+        log.info("batch: %s", summary.line())
+    else:
+        log.info("batch %s: %s", indir, summary.line())
+    return summary
+
+
+def _run_locked(
+    indir: Path,
+    paths: Sequence[Path],
+    options: BatchOptions,
+    *,
+    jobs: int,
+    progress: ProgressCallback | None,
+) -> BatchSummary:
+    outdir = options.outdir
     counts = {status: 0 for status in Status}
     produced: set[str] = set()
     stale: list[StudyResult] = []
     try:
-        aggregates = Aggregates(outdir, options.file_label, redact=options.deidentify)
+        aggregates = Aggregates(outdir, options.file_label)
     except OSError as exc:
         raise _output_error(outdir, exc) from None
     try:
@@ -86,6 +110,8 @@ def run_batch(
                     stale.append(result)
                 if result.status is Status.FAILED:
                     aggregates.failure(result)
+                elif result.status is Status.IGNORED:
+                    pass
                 else:
                     assert result.record_line is not None and result.study_row is not None
                     assert result.study_id is not None
@@ -109,15 +135,14 @@ def run_batch(
         _sweep_temporaries(outdir)
         raise
     _remove_stale(options, stale, produced)
-    summary = BatchSummary(
-        total=len(paths),
+    return BatchSummary(
+        total=len(paths) - counts[Status.IGNORED],
         done=counts[Status.DONE],
         skipped=counts[Status.SKIPPED],
         failed=counts[Status.FAILED],
         written=tuple(written),
+        ignored=counts[Status.IGNORED],
     )
-    log.info("batch %s: %s", indir, summary.line())
-    return summary
 
 
 def _make_folder(outdir: Path) -> None:
@@ -144,7 +169,7 @@ def _remove_stale(options: BatchOptions, results: list[StudyResult], produced: s
         assert result.stale is not None
         if claim_key(result.stale.study_id) not in produced:
             stamps.remove_outputs(options.outdir, result.stale)
-        if result.status is Status.FAILED:
+        if result.status in (Status.FAILED, Status.IGNORED):
             stamps.remove_stamp(options, result.source)
 
 
@@ -157,7 +182,9 @@ def _results(
         for path, claim in zip(paths, claims, strict=True):
             yield process_study(path, options, indir=indir, claim=claim)
         return
-    executor = ProcessPoolExecutor(max_workers=jobs)
+    executor = ProcessPoolExecutor(
+        max_workers=jobs, initializer=watchdog.start, initargs=(os.getpid(), options.deidentify)
+    )
     try:
         id_tasks = [paths[i : i + ID_TASK_STUDIES] for i in range(0, len(paths), ID_TASK_STUDIES)]
         with _worker_deaths():
@@ -204,7 +231,7 @@ def _process_chunk(
 
 def _sweep_temporaries(outdir: Path) -> None:
     # A worker killed mid-write leaves its write_atomic temporary (".<name>.<random>.part").
-    for folder in (outdir, outdir / stamps.STAMPS):
-        for temp in folder.glob(".*.part"):
+    for where in (outdir, outdir / stamps.STAMPS):
+        for temp in where.glob(".*.part"):
             with contextlib.suppress(OSError):
                 temp.unlink()

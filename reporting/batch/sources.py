@@ -1,12 +1,17 @@
 """Which files of an input folder a batch treats as studies.
 
 Every YAML and JSON file under the folder, in a stable order (the order of the registry and of id
-claims), leaving out hidden files, the batch's own outputs and the output folder itself.
+claims), leaving out hidden files, the batch's own outputs and the output folder itself. A lab keeps
+its settings file or territory map beside its studies (a study names its map relative to itself), so
+:func:`not_a_study` recognises both from their content: the batch skips them instead of reporting
+them as failed studies.
 """
 
 from __future__ import annotations
 
+from enum import StrEnum
 from pathlib import Path
+from typing import Any
 
 from reporting.errors import ReportingError
 from reporting.load import STUDY_SUFFIXES
@@ -44,3 +49,28 @@ def find_studies(indir: Path, *, exclude: Path | None = None) -> list[Path]:
 def source_name(path: Path, indir: Path) -> str:
     """The path of a study file relative to the input folder, in POSIX form."""
     return Path(path).relative_to(indir).as_posix()
+
+
+class NotAStudy(StrEnum):
+    """A YAML or JSON file of a lab that is not a study."""
+
+    TERRITORY_MAP = "territory map"
+    """Shaped like ``data/territory_maps/standard.yaml``: a ``territories`` mapping."""
+    SETTINGS = "lab settings"
+    """Only names of :class:`~reporting.settings.Settings` fields as keys."""
+
+
+_STUDY_KEYS = ("study", "stages", "schema_version", "patient")
+
+
+def not_a_study(data: Any) -> NotAStudy | None:
+    """The kind of a parsed document that is a lab settings file or territory map, else ``None``."""
+    if not isinstance(data, dict) or not data or any(k in data for k in _STUDY_KEYS):
+        return None
+    if isinstance(data.get("territories"), dict):
+        return NotAStudy.TERRITORY_MAP
+    from reporting.settings import Settings
+
+    if all(isinstance(k, str) and k in Settings.model_fields for k in data):
+        return NotAStudy.SETTINGS
+    return None

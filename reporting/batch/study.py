@@ -14,7 +14,7 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-from reporting.batch import stamps
+from reporting.batch import redact, stamps
 from reporting.batch.claims import Claim, duplicate_problem
 from reporting.batch.options import BatchOptions
 from reporting.batch.results import Problem, StaleOutputs, Status, StudyResult
@@ -39,11 +39,24 @@ def process_study(
     whose id an earlier file owns is refused before anything is written.
     """
     source = source_name(path, indir)
+    label = options.file_label(source) if options.deidentify else None
     stamp: Path | None = None
+
+    def failed(*problems: Problem) -> StudyResult:
+        return _failed(source, problems, stamp, label)
+
     try:
         stamp = stamps.stamp_path(options, source)
+        if claim is not None and claim.not_a_study is not None:
+            log.info("%s: %s, not a study: left out", label or source, claim.not_a_study)
+            return StudyResult(
+                source, Status.IGNORED, stale=stamps.stale_outputs(stamp), label=label
+            )
         if claim is not None and claim.owner is not None:
-            return _failed(source, (duplicate_problem(claim, options),), stamp)
+            if options.deidentify:
+                assert claim.owner is not None
+                return failed(redact.duplicate(options.file_label(claim.owner)))
+            return failed(duplicate_problem(claim, options))
         expected = claim.study_id if claim is not None else None
         if not options.force and (claim is None or expected is not None):
             reused = stamps.reuse(path, source, stamp, options, expected_id=expected)
@@ -52,23 +65,35 @@ def process_study(
         analysis = _analyse(Path(path), options)
         if expected is not None and analysis.study.id != expected:
             # The first pass read another id (or none): the file changed while the batch ran.
-            problem = Problem("study.id", "the file changed while the batch ran; run it again")
-            return _failed(source, (problem,), stamp)
+            return failed(Problem("study.id", redact.CHANGED))
         stale = stamps.stale_outputs(stamp, keep_id=analysis.study.id)
         written = _write_outputs(analysis, options)
         stamps.write_stamp(stamp, source, analysis, written, options)
-        return _result(source, Status.DONE, analysis, tuple(written), stale=stale)
+        return _result(source, Status.DONE, analysis, tuple(written), stale=stale, label=label)
     except ReportingError as exc:
         # Input problems, and output write errors (reporting.files raises them as ReportingError).
-        problems = tuple(_problem(p, path, options.outdir) for p in problems_of(exc))
-        return _failed(source, problems, stamp)
+        if options.deidentify:  # nothing from the input: see reporting.batch.redact
+            return failed(
+                *(
+                    redact.cannot_write()
+                    if isinstance(p, OSError)
+                    else redact.invalid(_where(p, path))
+                    for p in problems_of(exc)
+                )
+            )
+        return failed(*(_problem(p, path, options.outdir) for p in problems_of(exc)))
     except OSError as exc:
-        return _failed(source, (_os_problem(exc, options.outdir),), stamp)
+        if options.deidentify:
+            return failed(redact.cannot_write())
+        return failed(_os_problem(exc, options.outdir))
     except Exception as exc:  # a bug must not stop the other studies
-        # Reported as this study's failure; the traceback only when debugging (the CLI shows no tracebacks).
+        # Reported as this study's failure; the traceback only when debugging (the CLI shows no
+        # tracebacks), and never when de-identifying (it may quote input).
+        if options.deidentify:
+            log.debug("internal error on %s: %s", label, type(exc).__name__)
+            return failed(redact.internal(exc))
         log.debug("internal error on %s", source, exc_info=True)
-        problem = Problem("", f"internal error: {type(exc).__name__}: {exc}")
-        return _failed(source, (problem,), stamp)
+        return failed(Problem("", f"internal error: {type(exc).__name__}: {exc}"))
 
 
 def _analyse(path: Path, options: BatchOptions) -> Analysis:
@@ -137,6 +162,7 @@ def _result(
     outputs: Sequence[str],
     *,
     stale: StaleOutputs | None = None,
+    label: str | None = None,
 ) -> StudyResult:
     return StudyResult(
         source=source,
@@ -147,21 +173,32 @@ def _result(
         study_row=tables.study_row(analysis),
         segment_rows=tuple(tables.segment_rows(analysis)),
         stale=stale,
+        label=label,
     )
 
 
-def _failed(source: str, problems: tuple[Problem, ...], stamp: Path | None) -> StudyResult:
+def _failed(
+    source: str, problems: tuple[Problem, ...], stamp: Path | None, label: str | None
+) -> StudyResult:
     # An earlier run's files of a failed study must not stay behind: the driver removes them.
     stale = stamps.stale_outputs(stamp) if stamp is not None else None
-    return StudyResult(source=source, status=Status.FAILED, problems=problems, stale=stale)
+    return StudyResult(
+        source=source, status=Status.FAILED, problems=problems, stale=stale, label=label
+    )
 
 
-def _problem(problem: ReportingError, path: Path, outdir: Path) -> Problem:
-    location = getattr(problem, "location", "")
-    message = getattr(problem, "problem", str(problem))
+def _where(problem: ReportingError, path: Path) -> str:
+    # The location inside the study file (the file's own path left out).
+    location: str = getattr(problem, "location", "")
     prefix = str(path)
     if location.startswith(prefix):
         location = location[len(prefix) :].lstrip(":").strip()
+    return location
+
+
+def _problem(problem: ReportingError, path: Path, outdir: Path) -> Problem:
+    location = _where(problem, path)
+    message = getattr(problem, "problem", str(problem))
     # Output files are named relative to the output folder, as in the rest of the batch's outputs.
     folder = f"{outdir}{os.sep}"
     return Problem(location.replace(folder, ""), message.replace(folder, ""))

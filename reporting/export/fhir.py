@@ -1,379 +1,314 @@
-"""HL7 FHIR R4 export: an :class:`~reporting.results.Analysis` as a ``collection`` Bundle.
+"""HL7 FHIR R4 export: a released report as a ``transaction`` Bundle a server accepts.
 
-The Bundle holds a DiagnosticReport (status, conclusion text followed by the cautions every export
-carries, the conclusion as a code of a local code system, and the PDF as ``presentedForm`` when one
-was written), one Observation per segment and stage for wall motion (coded with the per-segment
-LOINC codes of the HL7 Europe imaging report guide, FACTS.md §8) and for perfusion, the WMSI per
-stage, the LVEF per stage (LOINC 10230-1) when given, and the Patient unless the analysis is
-de-identified (then only a pseudonymous identifier is referenced).
+Every entry has a ``fullUrl`` (``urn:uuid:`` derived from the study id, so the same analysis gives
+the same bytes) and a ``request``. The DiagnosticReport and its Observations are **conditional
+updates** on their identifiers (``PUT DiagnosticReport?identifier=…``), so a corrected version
+replaces what was sent before (a conditional create would do nothing once the report exists;
+FHIR R4 http.html conditional update). Patient, Practitioners and the ServiceRequest are conditional creates on their identifiers
+(plain creates when there is none).
 
-Scores, stages, WMSI and the report code have no confirmed open code, so they use **local code
-systems** under ``https://segreport.invalid/fhir/CodeSystem/`` (the ``.invalid`` domain says they
-are local by construction; a receiving system maps them). No SNOMED CT code is emitted for the
-conclusion because none was confirmed against the release here. Ids are UUID v5 derived from the
-study id, and nothing depends on the clock, so the same analysis gives the same bytes.
+- Patient (unless de-identified: then the subject is a pseudonymous identifier only).
+- Practitioners: the performing clinician as ``performer`` and the interpreting one (the signer of a
+  signed release) as ``resultsInterpreter``.
+- ServiceRequest from the order numbers (placer, filler, accession; identifier types of HL7 table
+  0203), which the report is ``basedOn``.
+- DiagnosticReport: status from the :class:`~reporting.interop.release.Release` (file mode:
+  preliminary), ``conclusion`` in the PDF's own words (its Impression section), the PDF as
+  ``presentedForm`` with its base64 SHA-1 ``hash``, and the cautions in the narrative ``text`` (R4
+  has no ``note`` on DiagnosticReport).
+- Observations (:mod:`reporting.export.fhir_observations`): per stage and segment the wall motion
+  and perfusion score, per stage WMSI and LVEF. **The stage is carried explicitly** in a component
+  coded DCM 109055 "Protocol Stage" whose value is the SNOMED CT stress phase of DICOM CID 3207.
+
+Codes come from ``data/codes.csv``. Lab-local codes use the lab's ``lab_code_system_uri`` and
+travel as text only without it; identifiers use ``lab_identifier_system_uri`` and carry a value only
+without it. No made-up or placeholder system is written.
 """
 
 from __future__ import annotations
 
 import base64
-import json
+import hashlib
+import html
 import uuid
 from typing import Any
+from urllib.parse import quote
 
-from reporting.model import ReportStatus, Sex, Stage
-from reporting.results import Analysis, DiagnosticStatus, SegmentResult
-from reporting.segments import SegmentModel
-from reporting.wording import CAUTIONS, stage_words
+from pydantic_core import to_json
 
-LOINC = "http://loinc.org"
-UCUM = "http://unitsofmeasure.org"
-OBSERVATION_CATEGORY = "http://terminology.hl7.org/CodeSystem/observation-category"
+from reporting.codes import Code, code, fhir_system
+from reporting.export.fhir_observations import FhirContext, observations
+from reporting.interop import words
+from reporting.interop.identity import interpreter, performer
+from reporting.interop.release import Release, ReportState
+from reporting.model import Clinician, Sex
+from reporting.results import Analysis, DiagnosticStatus
+from reporting.settings import Settings, default_settings
+
 DIAGNOSTIC_SERVICE_SECTION = "http://terminology.hl7.org/CodeSystem/v2-0074"
-DATA_ABSENT_REASON = "http://terminology.hl7.org/CodeSystem/data-absent-reason"
-
-LOCAL = "https://segreport.invalid/fhir/CodeSystem/"
-"""Base of the local code systems (not registered anywhere: local by design)."""
-LOCAL_OBSERVATION = LOCAL + "observation"
-LOCAL_WALL_MOTION_SCORE = LOCAL + "wall-motion-score"
-LOCAL_PERFUSION_SCORE = LOCAL + "perfusion-score"
-LOCAL_STAGE = LOCAL + "stage"
-LOCAL_DIAGNOSTIC_STATUS = LOCAL + "diagnostic-status"
-PSEUDONYMOUS_PATIENT_ID = "https://segreport.invalid/fhir/NamingSystem/pseudonymous-patient-id"
-STUDY_ID_SYSTEM = "https://segreport.invalid/fhir/NamingSystem/study-id"
-
-LVEF_LOINC = "10230-1"
-"""Left ventricular ejection fraction (FACTS.md §8) [S]."""
-
-WALL_MOTION_LOINC: dict[str, str] = {
-    "basal anterior": "18121-4",
-    "basal anteroseptal": "18122-2",
-    "basal inferoseptal": "78192-2",
-    "basal inferior": "18123-0",
-    "basal inferolateral": "78193-0",
-    "basal anterolateral": "78194-8",
-    "mid anterior": "18129-7",
-    "mid anteroseptal": "18130-5",
-    "mid inferoseptal": "78195-5",
-    "mid inferior": "18131-3",
-    "mid inferolateral": "78196-3",
-    "mid anterolateral": "78197-1",
-    "apical anterior": "18119-8",
-    "apical septal": "18120-6",
-    "apical inferior": "18127-1",
-    "apical lateral": "18128-9",
-    "apex": "78198-9",
+IDENTIFIER_TYPE = "http://terminology.hl7.org/CodeSystem/v2-0203"
+XHTML = "http://www.w3.org/1999/xhtml"
+FHIR_STATUS = {
+    ReportState.PRELIMINARY: "preliminary",
+    ReportState.FINAL: "final",
+    ReportState.CORRECTED: "corrected",
 }
-"""Per-segment wall-motion LOINC codes by segment name (17-segment names; HL7 Europe imaging report
-guide, FACTS.md §8 [C]). The 18-segment model gets local codes only."""
-
-WALL_MOTION_SCORE_TEXT = {
-    1: "normal or hyperkinetic",
-    2: "hypokinetic",
-    3: "akinetic",
-    4: "dyskinetic",
-    5: "aneurysmal",
-}
-"""Lang RM et al., JASE 2015;28:1–39 (5 = aneurysmal on the older 5-point scale)."""
-PERFUSION_SCORE_TEXT = {1: "normal", 2: "reduced or delayed", 3: "absent"}
-"""Visual contrast perfusion score (Porter TR et al., JASE 2018; from memory)."""
-
+"""DiagnosticReport/Observation status from the release (FHIR R4 DiagnosticReport.status) [S]."""
 STATUS_TEXT = {
     DiagnosticStatus.ISCHEMIA: "Inducible ischaemia",
     DiagnosticStatus.NO_ISCHEMIA: "No inducible ischaemia",
     DiagnosticStatus.NON_DIAGNOSTIC: "Non-diagnostic for ischaemia",
 }
 _GENDER = {Sex.FEMALE: "female", Sex.MALE: "male", Sex.OTHER: "other"}
-_NAMESPACE = uuid.uuid5(uuid.NAMESPACE_URL, "https://segreport.invalid/fhir/")
+_NAMESPACE = uuid.uuid5(uuid.NAMESPACE_OID, "segreport.fhir")
 
 
-def bundle(analysis: Analysis, *, pdf: bytes | None = None) -> dict[str, Any]:
-    """The FHIR R4 Bundle (type ``collection``) for ``analysis`` as JSON-ready data."""
-    builder = _Builder(analysis)
-    return builder.bundle(pdf)
+def bundle(
+    analysis: Analysis,
+    *,
+    pdf: bytes | None = None,
+    release: Release | None = None,
+    settings: Settings | None = None,
+) -> dict[str, Any]:
+    """The FHIR R4 transaction Bundle of ``analysis`` as released (default: unsigned)."""
+    return _Builder(analysis, release or Release.unsigned(), settings or default_settings()).bundle(
+        pdf
+    )
 
 
-def bundle_json(analysis: Analysis, *, pdf: bytes | None = None) -> str:
-    """The Bundle as indented JSON text ending in a newline (byte-stable)."""
-    return json.dumps(bundle(analysis, pdf=pdf), indent=2, ensure_ascii=False) + "\n"
+def bundle_json(
+    analysis: Analysis,
+    *,
+    pdf: bytes | None = None,
+    release: Release | None = None,
+    settings: Settings | None = None,
+) -> str:
+    """The Bundle as indented UTF-8 JSON text ending in a newline (byte-stable).
+
+    pydantic-core's serializer writes it: the standard library's indenting encoder is pure Python
+    and took several times the budget of the whole export.
+    """
+    data = bundle(analysis, pdf=pdf, release=release, settings=settings)
+    return to_json(data, indent=2).decode("utf-8") + "\n"
 
 
-def conclusion_text(analysis: Analysis) -> str:
-    """A short plain-text conclusion for ``DiagnosticReport.conclusion``."""
-    c = analysis.conclusion
-    parts = [STATUS_TEXT[c.status]]
-    if c.ischemic_territories:
-        territories = ", ".join(t.value for t in c.ischemic_territories)
-        parts[0] += (
-            f" in the {territories} territor{'ies' if len(c.ischemic_territories) > 1 else 'y'}"
-        )
-    parts[0] += "."
-    if c.ischemic_segment_count:
-        parts.append(
-            f"Ischaemic segments: {c.ischemic_segment_count} "
-            f"({c.ischemia_extent.value.replace('_', '–')})."
-        )
-    for stage, value in analysis.wmsi.items():
-        parts.append(f"WMSI at {stage.value.replace('_', ' ')}: {value:.2f}.")
-    parts.append(analysis.stress.adequacy_note)
-    parts.extend(f"High-risk finding: {f.detail}" for f in c.high_risk_findings)
-    return " ".join(parts)
+def coding(c: Code, lab_code_system_uri: str | None) -> dict[str, str] | None:
+    """A Coding of ``c``, or ``None`` for a lab-local code when the lab configured no system."""
+    system = fhir_system(c.scheme, lab_code_system_uri)
+    if system is None:
+        return None
+    return {"system": system, "code": c.value, "display": c.meaning}
+
+
+def concept(codes: list[Code], text: str | None, lab_code_system_uri: str | None) -> dict[str, Any]:
+    """A CodeableConcept of ``codes`` (lab-local ones dropped without a system) and ``text``."""
+    codings = [c for c in (coding(x, lab_code_system_uri) for x in codes) if c is not None]
+    out: dict[str, Any] = {}
+    if codings:
+        out["coding"] = codings
+    if text is not None:
+        out["text"] = text
+    return out
 
 
 class _Builder:
-    def __init__(self, analysis: Analysis) -> None:
+    def __init__(self, analysis: Analysis, release: Release, settings: Settings) -> None:
         self.a = analysis
+        self.release = release
+        self.local = settings.lab_code_system_uri
+        self.ids = settings.lab_identifier_system_uri
         self.ns = uuid.uuid5(_NAMESPACE, analysis.study.id)
-        self.status = (
-            "final" if analysis.study.report_status is ReportStatus.FINAL else "preliminary"
-        )
-        study = analysis.study
-        self.effective = study.date.isoformat() if study.date is not None else f"{study.year:04d}"
-        self.patient_url: str | None = None
-        self.subject: dict[str, Any] | None = None
-        patient = analysis.patient
-        if not study.deidentified:
-            self.patient_url = self.url("patient")
-            self.subject = {"reference": self.patient_url}
-        elif patient.id is not None:
-            self.subject = {"identifier": {"system": PSEUDONYMOUS_PATIENT_ID, "value": patient.id}}
+        self.status = FHIR_STATUS[release.state]
+        self.entries: list[dict[str, Any]] = []
 
     def url(self, name: str) -> str:
         return f"urn:uuid:{uuid.uuid5(self.ns, name)}"
 
+    def identifier(self, kind: str, value: str) -> dict[str, str]:
+        if self.ids is None:
+            return {"value": value}
+        return {"system": f"{self.ids.rstrip('/')}/{kind}", "value": value}
+
+    def add(self, url: str, resource: dict[str, Any], request: dict[str, str]) -> None:
+        resource = {"resourceType": resource.pop("resourceType"), "id": url[9:], **resource}
+        self.entries.append({"fullUrl": url, "resource": resource, "request": request})
+
     def bundle(self, pdf: bytes | None) -> dict[str, Any]:
-        observations = [*self.wall_motion(), *self.perfusion(), *self.wmsi(), *self.lvef()]
+        subject = self.patient()
+        performer_ref = self.practitioner(performer(self.a))
+        reader = interpreter(self.a)
+        if self.release.signer is not None:
+            signer = self.release.signer
+            reader = Clinician(name=signer.name, id=signer.id)
+        interpreter_ref = self.practitioner(reader)
+        order_ref = self.service_request(subject)
+        context = FhirContext(
+            analysis=self.a,
+            status=self.status,
+            subject=subject,
+            performer=performer_ref,
+            lab_code_system_uri=self.local,
+            url=self.url,
+            identifier=self.identifier,
+        )
+        obs = observations(context)
         report_url = self.url("diagnostic-report")
-        entries = [(report_url, self.report(report_url, observations, pdf))]
-        if self.patient_url is not None:
-            entries.append((self.patient_url, self.patient()))
-        entries.extend(observations)
+        report = self.report(obs, subject, performer_ref, interpreter_ref, order_ref, pdf)
+        self.add(report_url, report, _conditional("DiagnosticReport", report["identifier"][0]))
+        # The report comes first for a reader; a server orders a transaction by method anyway.
+        self.entries.insert(0, self.entries.pop())
+        for url, resource in obs:
+            self.add(url, resource, _conditional("Observation", resource["identifier"][0]))
         return {
             "resourceType": "Bundle",
             "id": str(uuid.uuid5(self.ns, "bundle")),
-            "type": "collection",
-            "entry": [{"fullUrl": url, "resource": resource} for url, resource in entries],
+            "type": "transaction",
+            "entry": self.entries,
         }
 
-    def _id(self, url: str) -> str:
-        return url.removeprefix("urn:uuid:")
-
-    def report(
-        self, url: str, observations: list[tuple[str, dict[str, Any]]], pdf: bytes | None
-    ) -> dict[str, Any]:
-        status = self.a.conclusion.status
-        resource: dict[str, Any] = {
-            "resourceType": "DiagnosticReport",
-            "id": self._id(url),
-            "identifier": [{"system": STUDY_ID_SYSTEM, "value": self.a.study.id}],
-            "status": self.status,
-            "category": [
-                {
-                    "coding": [
-                        {
-                            "system": DIAGNOSTIC_SERVICE_SECTION,
-                            "code": "CUS",
-                            "display": "Cardiac Ultrasound",
-                        }
-                    ]
-                }
-            ],
-            "code": {
-                "coding": [
-                    {
-                        "system": LOCAL_OBSERVATION,
-                        "code": "stress-echo-report",
-                        "display": "Stress echocardiography report",
-                    }
-                ],
-                "text": f"Stress echocardiography report ({self.a.protocol.value})",
-            },
-        }
-        if self.subject is not None:
-            resource["subject"] = self.subject
-        resource["effectiveDateTime"] = self.effective
-        resource["result"] = [{"reference": obs_url} for obs_url, _ in observations]
-        # The conclusion is the text a receiving system shows, so the cautions go there too
-        # (DiagnosticReport has no note element in R4).
-        resource["conclusion"] = "\n\n".join([conclusion_text(self.a), "\n".join(CAUTIONS)])
-        resource["conclusionCode"] = [
-            {
-                "coding": [
-                    {
-                        "system": LOCAL_DIAGNOSTIC_STATUS,
-                        "code": status.value,
-                        "display": STATUS_TEXT[status],
-                    }
-                ],
-                "text": STATUS_TEXT[status],
-            }
-        ]
-        if pdf is not None:
-            resource["presentedForm"] = [
-                {
-                    "contentType": "application/pdf",
-                    "data": base64.b64encode(pdf).decode("ascii"),
-                    "title": f"{self.a.study.id}.pdf",
-                }
-            ]
-        return resource
-
-    def patient(self) -> dict[str, Any]:
-        assert self.patient_url is not None
+    def patient(self) -> dict[str, Any] | None:
         p = self.a.patient
-        resource: dict[str, Any] = {"resourceType": "Patient", "id": self._id(self.patient_url)}
+        if self.a.study.deidentified:
+            if p.id is None:
+                return None
+            return {"identifier": self.identifier("pseudonymous-patient", p.id)}
+        url = self.url("patient")
+        resource: dict[str, Any] = {"resourceType": "Patient"}
+        request: dict[str, str] = {"method": "POST", "url": "Patient"}
         if p.id is not None:
-            resource["identifier"] = [{"value": p.id}]
+            ident = self.identifier("patient", p.id)
+            resource["identifier"] = [ident]
+            request["ifNoneExist"] = _search(ident)
         if p.name is not None:
             resource["name"] = [{"text": p.name}]
         if p.sex is not None:
             resource["gender"] = _GENDER[p.sex]
         if p.birth_date is not None:
             resource["birthDate"] = p.birth_date.isoformat()
+        self.add(url, resource, request)
+        return {"reference": url}
+
+    def practitioner(self, person: Clinician | None) -> dict[str, Any] | None:
+        if person is None or self.a.study.deidentified:
+            return None
+        url = self.url(f"practitioner/{person.name}/{person.id}")  # one entry per person
+        if any(e["fullUrl"] == url for e in self.entries):
+            return {"reference": url, "display": person.name}
+        resource: dict[str, Any] = {"resourceType": "Practitioner"}
+        request: dict[str, str] = {"method": "POST", "url": "Practitioner"}
+        if person.id is not None:
+            ident = self.identifier("practitioner", person.id)
+            resource["identifier"] = [ident]
+            request["ifNoneExist"] = _search(ident)
+        resource["name"] = [{"text": person.name}]
+        self.add(url, resource, request)
+        return {"reference": url, "display": person.name}
+
+    def service_request(self, subject: dict[str, Any] | None) -> dict[str, Any] | None:
+        order = self.a.order
+        if order is None or self.a.study.deidentified:
+            return None
+        idents = []
+        for kind, type_code, value in (
+            ("placer-order", "PLAC", order.placer_order_number),
+            ("filler-order", "FILL", order.filler_order_number),
+            ("accession", "ACSN", order.accession_number),
+        ):
+            if value is not None:
+                ident: dict[str, Any] = {
+                    "type": {"coding": [{"system": IDENTIFIER_TYPE, "code": type_code}]},
+                    **self.identifier(kind, value),
+                }
+                idents.append(ident)
+        if not idents or subject is None:
+            return None
+        url = self.url("service-request")
+        protocol = code(f"protocol.{self.a.protocol.value}")
+        resource = {
+            "resourceType": "ServiceRequest",
+            "identifier": idents,
+            "status": "completed",
+            "intent": "order",
+            "code": concept([protocol], None, self.local),
+            "subject": subject,
+        }
+        first = {k: v for k, v in idents[0].items() if k != "type"}
+        self.add(
+            url,
+            resource,
+            {"method": "POST", "url": "ServiceRequest", "ifNoneExist": _search(first)},
+        )
+        return {"reference": url}
+
+    def report(
+        self,
+        obs: list[tuple[str, dict[str, Any]]],
+        subject: dict[str, Any] | None,
+        performer_ref: dict[str, Any] | None,
+        interpreter_ref: dict[str, Any] | None,
+        order_ref: dict[str, Any] | None,
+        pdf: bytes | None,
+    ) -> dict[str, Any]:
+        a = self.a
+        status = a.conclusion.status
+        resource: dict[str, Any] = {
+            "resourceType": "DiagnosticReport",
+            "text": {"status": "generated", "div": self.narrative()},
+            "identifier": [self.identifier("diagnostic-report", a.study.id)],
+        }
+        if order_ref is not None:
+            resource["basedOn"] = [order_ref]
+        resource["status"] = self.status
+        resource["category"] = [
+            {"coding": [{"system": DIAGNOSTIC_SERVICE_SECTION, "code": "CUS", "display": "Cardiac Ultrasound"}]}
+        ]  # fmt: skip
+        resource["code"] = concept(
+            [code("report_title")],
+            f"Stress echocardiography report ({a.protocol.value})",
+            self.local,
+        )
+        if subject is not None:
+            resource["subject"] = subject
+        resource["effectiveDateTime"] = (
+            a.study.date.isoformat() if a.study.date is not None else f"{a.study.year:04d}"
+        )
+        if self.release.signer is not None:
+            resource["issued"] = self.release.signer.signed_at.isoformat()
+        if performer_ref is not None:
+            resource["performer"] = [performer_ref]
+        if interpreter_ref is not None:
+            resource["resultsInterpreter"] = [interpreter_ref]
+        resource["result"] = [{"reference": url} for url, _ in obs]
+        resource["conclusion"] = words.conclusion_text(a)
+        status_codes = [code(f"status.{status.value}")]
+        if status is DiagnosticStatus.ISCHEMIA:
+            status_codes.append(code("ischemia"))
+        resource["conclusionCode"] = [concept(status_codes, STATUS_TEXT[status], self.local)]
+        if pdf is not None:
+            resource["presentedForm"] = [
+                {
+                    "contentType": "application/pdf",
+                    "data": base64.b64encode(pdf).decode("ascii"),
+                    "size": len(pdf),
+                    "hash": base64.b64encode(hashlib.sha1(pdf).digest()).decode("ascii"),
+                    "title": f"{a.study.id}.pdf",
+                }
+            ]
         return resource
 
-    def observation(
-        self, name: str, code: dict[str, Any], value: dict[str, Any], stage: Stage | None
-    ) -> tuple[str, dict[str, Any]]:
-        url = self.url(f"observation/{name}")
-        resource: dict[str, Any] = {
-            "resourceType": "Observation",
-            "id": self._id(url),
-            "status": self.status,
-            "category": [
-                {
-                    "coding": [
-                        {"system": OBSERVATION_CATEGORY, "code": "imaging", "display": "Imaging"}
-                    ]
-                }
-            ],
-            "code": code,
-        }
-        if self.subject is not None:
-            resource["subject"] = self.subject
-        resource["effectiveDateTime"] = self.effective
-        resource.update(value)
-        if stage is not None:
-            resource["component"] = [_stage_component(stage)]
-        return url, resource
-
-    def wall_motion(self) -> list[tuple[str, dict[str, Any]]]:
-        out = []
-        model = self.a.segment_model
-        for stage in self.a.stages:
-            for seg in self.a.segments:
-                if stage not in seg.wall_motion:
-                    continue
-                score = seg.wall_motion[stage]
-                coding = [
-                    {
-                        "system": LOCAL_OBSERVATION,
-                        "code": f"wall-motion-{int(model)}-{seg.number}",
-                        "display": f"Wall motion, segment {seg.number} ({seg.name})",
-                    }
-                ]
-                loinc = _segment_loinc(model, seg)
-                if loinc is not None:
-                    coding.insert(0, {"system": LOINC, "code": loinc})
-                code = {
-                    "coding": coding,
-                    "text": f"Wall motion, segment {seg.number} ({seg.name}), {stage_words(stage)}",
-                }
-                value = _scored(score, LOCAL_WALL_MOTION_SCORE, WALL_MOTION_SCORE_TEXT)
-                out.append(
-                    self.observation(f"wall-motion/{stage}/{seg.number}", code, value, stage)
-                )
-        return out
-
-    def perfusion(self) -> list[tuple[str, dict[str, Any]]]:
-        out = []
-        for stage in self.a.stages:
-            for seg in self.a.segments:
-                if stage not in seg.perfusion:
-                    continue
-                code = {
-                    "coding": [
-                        {
-                            "system": LOCAL_OBSERVATION,
-                            "code": f"perfusion-{int(self.a.segment_model)}-{seg.number}",
-                            "display": f"Contrast perfusion, segment {seg.number} ({seg.name})",
-                        }
-                    ],
-                    "text": f"Contrast perfusion, segment {seg.number} ({seg.name}), {stage_words(stage)}",
-                }
-                value = _scored(seg.perfusion[stage], LOCAL_PERFUSION_SCORE, PERFUSION_SCORE_TEXT)
-                out.append(self.observation(f"perfusion/{stage}/{seg.number}", code, value, stage))
-        return out
-
-    def wmsi(self) -> list[tuple[str, dict[str, Any]]]:
-        out = []
-        for stage, value in self.a.wmsi.items():
-            code = {
-                "coding": [
-                    {
-                        "system": LOCAL_OBSERVATION,
-                        "code": "wmsi",
-                        "display": "Wall motion score index",
-                    }
-                ],
-                "text": f"Wall motion score index, {stage_words(stage)} (local code: no LOINC code confirmed)",
-            }
-            quantity = {"valueQuantity": {"value": value, "unit": "1", "system": UCUM, "code": "1"}}
-            out.append(self.observation(f"wmsi/{stage}", code, quantity, stage))
-        return out
-
-    def lvef(self) -> list[tuple[str, dict[str, Any]]]:
-        out = []
-        for stage, data in self.a.haemodynamics.items():
-            if data.lvef_percent is None:
-                continue
-            code = {
-                "coding": [{"system": LOINC, "code": LVEF_LOINC}],
-                "text": f"Left ventricular ejection fraction, {stage_words(stage)}",
-            }
-            quantity = {
-                "valueQuantity": {
-                    "value": data.lvef_percent,
-                    "unit": "%",
-                    "system": UCUM,
-                    "code": "%",
-                }
-            }
-            out.append(self.observation(f"lvef/{stage}", code, quantity, stage))
-        return out
+    def narrative(self) -> str:
+        """The narrative ``text``: the PDF's headline, then the cautions (R4 has no note)."""
+        paragraphs = [words.headline(self.a), *self.a.cautions]
+        body = "".join(f"<p>{html.escape(p, quote=False)}</p>" for p in paragraphs)
+        return f'<div xmlns="{XHTML}">{body}</div>'
 
 
-def _segment_loinc(model: SegmentModel, seg: SegmentResult) -> str | None:
-    # The codes name 17-segment regions; the 16-segment model shares segments 1–16 with it, while the
-    # 18-segment apical ring divides the apex differently, so it gets local codes only.
-    if model is SegmentModel.EIGHTEEN:
-        return None
-    return WALL_MOTION_LOINC.get(seg.name)
+def _search(identifier: dict[str, Any]) -> str:
+    """The search ``identifier=[system|]value``, percent-encoded where a URL needs it."""
+    value = identifier["value"]
+    token = f"{identifier['system']}|{value}" if "system" in identifier else value
+    return f"identifier={quote(token, safe=':/|-._~')}"
 
 
-def _scored(score: int | None, system: str, texts: dict[int, str]) -> dict[str, Any]:
-    if score is None:
-        return {
-            "dataAbsentReason": {
-                "coding": [{"system": DATA_ABSENT_REASON, "code": "unknown", "display": "Unknown"}],
-                "text": "not visualised",
-            }
-        }
-    text = texts.get(score, str(score))
-    return {
-        "valueCodeableConcept": {
-            "coding": [{"system": system, "code": str(score), "display": text}],
-            "text": f"{score} ({text})",
-        }
-    }
-
-
-def _stage_component(stage: Stage) -> dict[str, Any]:
-    return {
-        "code": {
-            "coding": [{"system": LOCAL_OBSERVATION, "code": "stage", "display": "Stress stage"}]
-        },
-        "valueCodeableConcept": {
-            "coding": [{"system": LOCAL_STAGE, "code": stage.value, "display": stage_words(stage)}]
-        },
-    }
+def _conditional(kind: str, identifier: dict[str, Any]) -> dict[str, str]:
+    return {"method": "PUT", "url": f"{kind}?{_search(identifier)}"}

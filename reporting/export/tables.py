@@ -14,6 +14,10 @@ The files feed other engines unchanged: DuckDB reads ``read_parquet('segments.pa
 ``read_csv_auto('segments.csv')``, and Spark ``spark.read.parquet(...)`` or
 ``spark.read.csv(..., header=True)``; lists (territories, segment numbers, finding codes) are
 joined with ``;`` in the CSV form.
+
+Rows of a de-identified record (``study.deidentified``) keep only what the de-identification
+allow-list keeps (:func:`reporting.deidentify.deidentified_row`): every caller, the batch or an
+export from the store, gets the same columns emptied.
 """
 
 from __future__ import annotations
@@ -45,6 +49,9 @@ STUDIES_CSV = "studies.csv"
 SEGMENTS_CSV = "segments.csv"
 STUDIES_PARQUET = "studies.parquet"
 SEGMENTS_PARQUET = "segments.parquet"
+STUDIES_SCOPE = "studies"
+SEGMENTS_SCOPE = "segments"
+"""Scopes of the two tables in the de-identification allow-list (``data/deidentify_fields.csv``)."""
 
 _STAGES = tuple(Stage)
 _TERRITORIES = tuple(Territory)
@@ -164,11 +171,15 @@ def study_row(analysis: Analysis) -> Row:
         "high_risk_findings": _joined(f.code.value for f in a.conclusion.high_risk_findings),
         "high_risk_finding_count": len(a.conclusion.high_risk_findings),
     }
-    return tuple(values[c] for c in STUDY_COLUMNS)
+    row = tuple(values[c] for c in STUDY_COLUMNS)
+    return _allowed(STUDIES_SCOPE, STUDY_COLUMNS, row) if a.study.deidentified else row
 
 
 def segment_rows(analysis: Analysis) -> list[Row]:
-    """Rows of the segments table for one study: stages in protocol order, segments in number order."""
+    """Rows of the segments table for one study: stages in protocol order, segments in number order.
+
+    For a de-identified record every row goes through the allow-list, as study rows do.
+    """
     rows: list[Row] = []
     for stage in analysis.stages:
         for seg in analysis.segments:
@@ -186,7 +197,16 @@ def segment_rows(analysis: Analysis) -> list[Row]:
                     seg.perfusion_response.value,
                 )
             )
+    if analysis.study.deidentified:
+        return [_allowed(SEGMENTS_SCOPE, SEGMENT_COLUMNS, row) for row in rows]
     return rows
+
+
+def _allowed(scope: str, columns: dict[str, Any], row: Row) -> Row:
+    # A de-identified record's row: only what the allow-list keeps (dropped columns are null).
+    from reporting.deidentify import deidentified_row
+
+    return deidentified_row(scope, tuple(columns), row)
 
 
 def _dtypes(columns: dict[str, str | tuple[str, tuple[str, ...]]]) -> dict[str, Any]:

@@ -23,6 +23,7 @@ from pathlib import Path
 import numpy as np
 import numpy.typing as npt
 
+from reporting.documents import read_bytes_limited
 from reporting.errors import InputError, InputErrors
 from reporting.kinetics.models import CurveProblem, FitStatus, IntensityScale
 from reporting.model import STAGE_ORDER, Stage
@@ -99,16 +100,7 @@ def load_curves(
     """
     path = Path(path)
     where = str(path)
-    try:
-        raw = path.read_bytes()
-    except IsADirectoryError:
-        raise InputError(where, "is a folder, not a curve file") from None
-    except OSError as exc:
-        raise InputError(where, f"cannot read curve file: {exc.strerror or exc}") from None
-    if len(raw) > MAX_CURVE_BYTES:
-        raise InputError(
-            where, f"file is {len(raw):,} bytes; a curve file is at most {MAX_CURVE_BYTES:,}"
-        )
+    raw = read_bytes_limited(path, what="curve file", max_bytes=MAX_CURVE_BYTES)
     if b"\x00" in raw:
         raise InputError(where, "binary file, not CSV text")
     try:

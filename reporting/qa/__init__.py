@@ -6,10 +6,12 @@ Public API::
     review = run_review("records/", "ANGIO.csv", stenosis_percent=70)
     agreement = run_agreement("reader_a/", "reader_b/")
     write_review_pdf(review, "qa.pdf", agreement=agreement)
+    write_agreement_pdf(agreement, "agreement.pdf")
 
 Modules: ``records`` (reading records back), ``angio`` (the angiography CSV), ``metrics`` (2×2
 measures with Wilson intervals), ``review`` (the review itself), ``kappa`` (Cohen's kappa and the
-Landis & Koch bands), ``agreement`` (two readers), ``pdf`` (the quality PDF). The PDF module is
+Landis & Koch bands), ``agreement`` (two readers), ``status`` (viability-only and non-diagnostic studies, the
+non-diagnostic rate), ``pdf`` (the quality PDF and the agreement PDF). The PDF module is
 imported lazily because it pulls in reportlab.
 """
 
@@ -27,6 +29,7 @@ __all__ = [
     "QualityReview",
     "Vessel",
     "agreement_json",
+    "agreement_pdf_bytes",
     "build_agreement",
     "build_review",
     "cohen_kappa",
@@ -38,6 +41,7 @@ __all__ = [
     "run_agreement",
     "run_review",
     "wilson_interval",
+    "write_agreement_pdf",
     "write_review_pdf",
 ]
 
@@ -55,6 +59,8 @@ _LAZY = {
     "Proportion": "reporting.qa.metrics",
     "wilson_interval": "reporting.qa.metrics",
     "review_pdf_bytes": "reporting.qa.pdf",
+    "agreement_pdf_bytes": "reporting.qa.pdf",
+    "write_agreement_pdf": "reporting.qa.pdf",
     "write_review_pdf": "reporting.qa.pdf",
     "read_records": "reporting.qa.records",
     "QualityReview": "reporting.qa.review",
@@ -68,7 +74,12 @@ if TYPE_CHECKING:
     from reporting.qa.angio import Angiography, Vessel, read_angiography
     from reporting.qa.kappa import cohen_kappa, landis_koch
     from reporting.qa.metrics import DiagnosticAccuracy, Proportion, wilson_interval
-    from reporting.qa.pdf import review_pdf_bytes, write_review_pdf
+    from reporting.qa.pdf import (
+        agreement_pdf_bytes,
+        review_pdf_bytes,
+        write_agreement_pdf,
+        write_review_pdf,
+    )
     from reporting.qa.records import read_records
     from reporting.qa.review import QualityReview, build_review, review_json, run_review
 

@@ -21,6 +21,7 @@ from pathlib import Path
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from reporting.documents import read_bytes_limited
 from reporting.errors import InputError, InputErrors
 from reporting.segments import Territory
 
@@ -84,14 +85,7 @@ def read_angiography(path: Path | str) -> dict[str, Angiography]:
     """
     path = Path(path)
     where = str(path)
-    try:
-        raw = path.read_bytes()
-    except IsADirectoryError:
-        raise InputError(where, "is a folder, not an angiography CSV file") from None
-    except OSError as exc:
-        raise InputError(where, f"cannot read: {exc.strerror or exc}") from None
-    if len(raw) > MAX_ANGIO_BYTES:
-        raise InputError(where, f"file is {len(raw):,} bytes; at most {MAX_ANGIO_BYTES:,}")
+    raw = read_bytes_limited(path, what="angiography CSV file", max_bytes=MAX_ANGIO_BYTES)
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:

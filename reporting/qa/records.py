@@ -9,6 +9,7 @@ JSON, a record that does not match the model, a study id that appears twice — 
 
 from __future__ import annotations
 
+import io
 import json
 import logging
 from collections.abc import Iterator
@@ -16,6 +17,7 @@ from pathlib import Path
 
 from pydantic import ValidationError
 
+from reporting.documents import open_regular, read_bytes_limited
 from reporting.errors import InputError, InputErrors
 from reporting.results import RECORD_SCHEMA_VERSION, Analysis
 
@@ -94,6 +96,8 @@ def _documents(path: Path, problems: list[InputError]) -> Iterator[tuple[str, ob
                     str(path), "expected a folder of records, a .ndjson registry or a .json record"
                 )
             )
+    elif path.exists():  # a named pipe, a device or a link to one: refused with what it is
+        _json_file(path, problems)
     else:
         problems.append(InputError(str(path), "no such file or folder"))
 
@@ -101,17 +105,11 @@ def _documents(path: Path, problems: list[InputError]) -> Iterator[tuple[str, ob
 def _json_file(path: Path, problems: list[InputError]) -> object | None:
     where = str(path)
     try:
-        size = path.stat().st_size
-        if size > MAX_RECORD_BYTES:
-            problems.append(
-                InputError(
-                    where, f"file is {size:,} bytes; a record is at most {MAX_RECORD_BYTES:,}"
-                )
-            )
-            return None
-        text = path.read_text(encoding="utf-8-sig")
-    except OSError as exc:
-        problems.append(InputError(where, f"cannot read: {exc.strerror or exc}"))
+        text = read_bytes_limited(path, what="record", max_bytes=MAX_RECORD_BYTES).decode(
+            "utf-8-sig"
+        )
+    except InputError as exc:
+        problems.append(exc)
         return None
     except UnicodeDecodeError as exc:
         problems.append(InputError(where, f"not UTF-8 text (byte {exc.start})"))
@@ -121,16 +119,26 @@ def _json_file(path: Path, problems: list[InputError]) -> object | None:
 
 def _ndjson(path: Path, problems: list[InputError]) -> Iterator[tuple[str, object]]:
     try:
-        handle = path.open(encoding="utf-8-sig")
-    except OSError as exc:
-        problems.append(InputError(str(path), f"cannot read: {exc.strerror or exc}"))
+        raw = open_regular(path, what="registry")
+    except InputError as exc:
+        problems.append(exc)
         return
-    with handle:
+    with io.TextIOWrapper(raw, encoding="utf-8-sig") as handle:
         try:
-            for number, line in enumerate(handle, start=1):
+            number = 0
+            while line := handle.readline(MAX_RECORD_BYTES + 1):
+                number += 1
+                where = f"{path}: line {number}"
+                if len(line) > MAX_RECORD_BYTES:
+                    problems.append(
+                        InputError(
+                            where,
+                            f"line is longer than {MAX_RECORD_BYTES:,} characters; a record is at most that",
+                        )
+                    )
+                    return
                 if not line.strip():
                     continue
-                where = f"{path}: line {number}"
                 item = _parse(line, where, problems)
                 if item is not None:
                     yield where, item

@@ -3,9 +3,11 @@
 A study is echo-positive when its record concludes ischaemia, and positive for a territory when that
 territory is among ``conclusion.ischemic_territories``. A patient is angiography-positive when any
 vessel reaches the stenosis threshold; a territory when its own vessel or the left main does. Studies
-outside the period, studies without angiography and non-diagnostic studies (inadequate stress without
-ischaemia) are left out of the 2×2 tables but counted and listed, so every record in the input is
-accounted for: ``records = outside_period + without_angiography + non_diagnostic + analysed``.
+outside the period, studies without angiography, viability-only studies and non-diagnostic studies
+(both read in :mod:`reporting.qa.status`) are left out of the 2×2 tables but counted and listed, so
+every record in the input is accounted for: ``records = outside_period + without_angiography +
+viability_only + non_diagnostic + analysed``. The non-diagnostic rate, overall and per reader, is
+taken over every study in the period, with or without angiography.
 Statistics follow the IAC Adult Echocardiography Standards (2021) list of usual measures.
 """
 
@@ -26,6 +28,14 @@ from reporting.model import Protocol
 from reporting.qa.angio import VESSELS_OF_TERRITORY, Angiography, Vessel, read_angiography
 from reporting.qa.metrics import DiagnosticAccuracy, accuracy_of
 from reporting.qa.records import read_records
+from reporting.qa.status import (
+    NonDiagnosticRate,
+    ReaderNonDiagnosticRate,
+    ReviewClass,
+    non_diagnostic_by_reader,
+    non_diagnostic_rate,
+    review_class,
+)
 from reporting.results import Analysis, DiagnosticStatus
 from reporting.segments import Territory
 
@@ -97,7 +107,10 @@ class Period(_Result):
 
 
 class StudyCounts(_Result):
-    """Where every record went: records = outside_period + without_angiography + non_diagnostic + analysed."""
+    """Where every record went.
+
+    records = outside_period + without_angiography + viability_only + non_diagnostic + analysed.
+    """
 
     records: int = Field(description="Records read.")
     outside_period: int = Field(
@@ -105,8 +118,11 @@ class StudyCounts(_Result):
         "year, counts as inside only when its whole year is)."
     )
     without_angiography: int = Field(description="Studies in the period with no angiography row.")
+    viability_only: int = Field(
+        description="Studies with angiography that are viability-only (rest and low dose only)."
+    )
     non_diagnostic: int = Field(
-        description="Studies with angiography whose conclusion is non-diagnostic."
+        description="Other studies with angiography whose conclusion is non-diagnostic."
     )
     analysed: int = Field(description="Studies in the 2×2 tables.")
 
@@ -191,8 +207,17 @@ class QualityReview(_Result):
     without_angiography: list[ExcludedStudy] = Field(
         description="Studies in the period with no angiography row."
     )
+    viability_only: list[ExcludedStudy] = Field(
+        description="Viability-only studies with angiography (not tests for ischaemia)."
+    )
     non_diagnostic: list[ExcludedStudy] = Field(
-        description="Studies with angiography but a non-diagnostic conclusion."
+        description="Other studies with angiography but a non-diagnostic conclusion."
+    )
+    non_diagnostic_rate: NonDiagnosticRate = Field(
+        description="Non-diagnostic studies among all studies in the period, angiography or not."
+    )
+    non_diagnostic_by_reader: list[ReaderNonDiagnosticRate] = Field(
+        description="The non-diagnostic rate of each reader over the period."
     )
     angiography_without_record: list[str] = Field(
         description="Study ids of the angiography file with no record at all."
@@ -257,16 +282,22 @@ def build_review(
     ordered = sorted(records, key=study_order)
     in_period = [r for r in ordered if _within(r, date_from, date_to)]
     without: list[ExcludedStudy] = []
-    non_diagnostic: list[ExcludedStudy] = []
+    set_apart: dict[ReviewClass, list[ExcludedStudy]] = {
+        ReviewClass.VIABILITY_ONLY: [],
+        ReviewClass.NON_DIAGNOSTIC: [],
+    }
     analysed: list[tuple[Analysis, Angiography]] = []
     for record in in_period:
         angio = angiography.get(record.study.id)
+        place = review_class(record)
         if angio is None:
             without.append(_excluded(record, None))
-        elif record.conclusion.status is DiagnosticStatus.NON_DIAGNOSTIC:
-            non_diagnostic.append(_excluded(record, [v for v in Vessel if significant(angio, v)]))
-        else:
+        elif place is ReviewClass.DIAGNOSTIC:
             analysed.append((record, angio))
+        else:
+            set_apart[place].append(_excluded(record, [v for v in Vessel if significant(angio, v)]))
+    viability_only = set_apart[ReviewClass.VIABILITY_ONLY]
+    non_diagnostic = set_apart[ReviewClass.NON_DIAGNOSTIC]
 
     def patient_pairs(rows: Sequence[tuple[Analysis, Angiography]]) -> list[tuple[bool, bool]]:
         return [(r.conclusion.ischemia, any(significant(a, v) for v in Vessel)) for r, a in rows]
@@ -329,6 +360,7 @@ def build_review(
             records=len(records),
             outside_period=len(records) - len(in_period),
             without_angiography=len(without),
+            viability_only=len(viability_only),
             non_diagnostic=len(non_diagnostic),
             analysed=len(analysed),
         ),
@@ -338,7 +370,10 @@ def build_review(
         by_protocol=_groups(analysed, lambda r: r.protocol.value, patient_pairs),
         discordant=discordant,
         without_angiography=without,
+        viability_only=viability_only,
         non_diagnostic=non_diagnostic,
+        non_diagnostic_rate=non_diagnostic_rate(in_period),
+        non_diagnostic_by_reader=non_diagnostic_by_reader(in_period),
         angiography_without_record=sorted(set(angiography) - known_ids),
         sources=list(SOURCES),
         cautions=list(CAUTIONS),

@@ -1,4 +1,4 @@
-"""Colours, fonts and text safety shared by the maps and the PDF.
+"""Colours and text safety shared by the maps and the PDF; fonts live in :mod:`reporting.render.fonts`.
 
 The colours are our own scheme built from two published colour-blind-safe palettes: the sequential
 ColorBrewer schemes of Harrower M & Brewer CA, Cartographic Journal 2003;40:27–37 ("YlOrBr" for wall
@@ -18,15 +18,16 @@ from __future__ import annotations
 import logging
 import re
 from collections.abc import Iterable
-from dataclasses import dataclass
-from functools import cache
-from pathlib import Path
 from xml.sax.saxutils import escape
 
 from reportlab.lib import colors
 from reportlab.lib.colors import Color
-from reportlab.pdfbase import pdfmetrics
-from reportlab.pdfbase.ttfonts import TTFont
+
+# Re-exported: the maps, the PDF and the quality PDF import these from here.
+from reporting.render.fonts import MAP_FONTS as MAP_FONTS
+from reporting.render.fonts import Fonts as Fonts
+from reporting.render.fonts import body_fonts as body_fonts
+from reporting.render.fonts import glyphs
 
 log = logging.getLogger(__name__)
 
@@ -83,79 +84,7 @@ def text_on(fill: Color) -> Color:
     return INK if luminance > 0.18 else WHITE
 
 
-# --- fonts --------------------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class Fonts:
-    """Font names registered with reportlab for one family."""
-
-    regular: str
-    bold: str
-    italic: str
-    embedded: bool
-
-
-# DejaVu Sans covers Latin, Greek, Cyrillic, Armenian, Georgian, Hebrew and Arabic letters and many
-# symbols; the Vera fonts shipped with reportlab are the fallback (Latin only); Helvetica last.
-_FAMILIES = (
-    ("DejaVuSans", ("DejaVuSans.ttf", "DejaVuSans-Bold.ttf", "DejaVuSans-Oblique.ttf")),
-    ("Vera", ("Vera.ttf", "VeraBd.ttf", "VeraIt.ttf")),
-)
-_FONT_DIRS = (
-    "/usr/share/fonts/truetype/dejavu",
-    "/usr/share/fonts/dejavu",
-    "/usr/share/fonts/TTF",
-    "/usr/local/share/fonts",
-    "/Library/Fonts",
-    "C:/Windows/Fonts",
-)
-MAP_FONTS = Fonts("Helvetica", "Helvetica-Bold", "Helvetica-Oblique", embedded=False)
-
-
-def _find(filename: str) -> Path | None:
-    import reportlab
-
-    dirs = [*_FONT_DIRS, str(Path(reportlab.__file__).parent / "fonts")]
-    for folder in dirs:
-        candidate = Path(folder) / filename
-        if candidate.is_file():
-            return candidate
-    return None
-
-
-@cache
-def body_fonts() -> Fonts:
-    """The embedded Unicode font family for the PDF, registered once per process."""
-    from reportlab.lib.fonts import addMapping
-
-    for family, files in _FAMILIES:
-        paths = [_find(f) for f in files]
-        if not all(paths):
-            continue
-        names = (family, f"{family}-Bold", f"{family}-Italic")
-        try:
-            for name, path in zip(names, paths, strict=True):
-                pdfmetrics.registerFont(TTFont(name, str(path)))
-        except Exception as exc:  # a damaged font file: try the next family
-            log.warning("cannot use font %s: %s", family, exc)
-            continue
-        addMapping(family, 0, 0, names[0])
-        addMapping(family, 1, 0, names[1])
-        addMapping(family, 0, 1, names[2])
-        addMapping(family, 1, 1, names[1])
-        return Fonts(*names, embedded=True)
-    log.warning("no Unicode TrueType font found; non-Latin text will not render")
-    return Fonts("Helvetica", "Helvetica-Bold", "Helvetica-Oblique", embedded=False)
-
-
-@cache
-def _glyphs(font_name: str) -> frozenset[int] | None:
-    font = pdfmetrics.getFont(font_name)
-    face = getattr(font, "face", None)
-    mapping = getattr(face, "charToGlyph", None)
-    return frozenset(mapping) if mapping else None
-
+# --- fonts: in reporting.render.fonts; the names stay importable from here ------------------------
 
 _CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f\ud800-\udfff\ufeff]")
 _WINANSI = frozenset(range(0x20, 0x7F)) | frozenset(range(0xA0, 0x100))
@@ -164,7 +93,7 @@ REPLACEMENT = "\ufffd"
 
 def _known(font_name: str) -> frozenset[int]:
     """Code points ``font_name`` can show (a built-in font: WinAnsi and a few typographic marks)."""
-    known = _glyphs(font_name)
+    known = glyphs(font_name)
     return known if known is not None else _WINANSI | frozenset(map(ord, "–—‘’“”•…€™"))
 
 

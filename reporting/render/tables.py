@@ -145,7 +145,7 @@ def haemodynamics_table(analysis: Analysis, width: float, st: dict[str, Paragrap
     head = ["Stage"]
     if dose:
         head.append("Dobutamine / atropine")
-    # % of predicted is a stress criterion: not shown at rest, nor for vasodilator stress (FACTS §3)
+    # % of predicted is a stress criterion: not shown at rest, nor for vasodilator stress (common practice)
     percent = analysis.stress.heart_rate_target_applies
     head += ["Heart rate (bpm)", *(["% of predicted"] if percent else []), "BP (mmHg)"]
     head.append("Rate–pressure product")

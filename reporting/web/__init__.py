@@ -7,6 +7,7 @@ jinja2 load only when this package is imported, so ``segreport --help`` stays qu
 
 from __future__ import annotations
 
-from reporting.web.app import DEFAULT_PORT, HOST, create_app, serve
+from reporting.web.app import DEFAULT_PORT, HOST, create_app
+from reporting.web.server import serve
 
 __all__ = ["DEFAULT_PORT", "HOST", "create_app", "serve"]

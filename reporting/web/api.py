@@ -57,14 +57,20 @@ class StudyListing(_Answer):
     modified: dt.datetime = Field(description="Last modified (UTC).")
     date: str | None = Field(description="Study date as written in the file.")
     patient: str | None = Field(description="Patient name as written in the file.")
-    valid: bool = Field(description="The file passes validation.")
+    valid: bool | None = Field(
+        description=(
+            "False when the file would be refused on sight (too large, empty, binary, not UTF-8); "
+            "null otherwise: the listing reads only the head of each file, opening it checks it all."
+        )
+    )
 
 
 class DraftListing(_Answer):
     """An autosaved draft."""
 
-    id: str = Field(description="Draft id (the study id, or 'untitled').")
+    id: str = Field(description="Draft id (chosen by the tab that keeps it).")
     modified: dt.datetime = Field(description="Last autosave (UTC).")
+    study_id: str | None = Field(description="The study id in the draft, if it has one.")
 
 
 class FolderListing(_Answer):
@@ -79,6 +85,7 @@ class OpenedStudy(_Answer):
 
     id: str = Field(description="Study id.")
     file: str = Field(description="File name in the studies folder.")
+    etag: str = Field(description="The version read (also the ETag header); send it as If-Match.")
     study: dict[str, Any] = Field(description="The study-file data (editable form).")
     problems: list[Problem] = Field(description="Validation problems of the file, if any.")
 
@@ -88,6 +95,18 @@ class Saved(_Answer):
 
     id: str = Field(description="Study id.")
     file: str = Field(description="File name written in the studies folder.")
+    etag: str = Field(description="The new version (also the ETag header).")
+    study: dict[str, Any] = Field(description="The study-file data as written (editable form).")
+
+
+class Conflict(_Answer):
+    """A save refused by its precondition (412 or 428): nothing was written."""
+
+    detail: str = Field(description="Why the save was refused.")
+    problems: list[Problem] = Field(description="The refusal, located at the file.")
+    current: OpenedStudy | None = Field(
+        description="The study as stored now (412), so the page can show what changed; null if removed."
+    )
 
 
 class DraftSaved(_Answer):
@@ -115,3 +134,63 @@ def problem_of(error: InputError, source: str) -> Problem:
     else:
         path = location
     return Problem(location=location, path=path, problem=error.problem)
+
+
+# --- OpenAPI descriptions of refusals, headers and bodies ---------------------------------------
+
+REFUSED: dict[int | str, dict[str, Any]] = {
+    413: {"model": ProblemList, "description": "Request body too large."},
+    422: {
+        "model": ProblemList,
+        "description": "Located problems, as the command line prints them.",
+    },
+}
+
+
+PRECONDITIONS: dict[int | str, dict[str, Any]] = {
+    412: {
+        "model": Conflict,
+        "description": "The study changed since the version in If-Match; nothing was written.",
+    },
+    428: {"model": Conflict, "description": "An existing study was sent without If-Match."},
+}
+OWNED: dict[int | str, dict[str, Any]] = {
+    409: {"model": ProblemList, "description": "The draft belongs to another tab."}
+}
+IF_MATCH = {
+    "parameters": [
+        {
+            "name": "If-Match",
+            "in": "header",
+            "required": False,
+            "description": "The ETag of the version the changes start from; needed for an existing study.",
+            "schema": {"type": "string"},
+        }
+    ]
+}
+DRAFT_BODY = {
+    "parameters": [
+        {
+            "name": "X-Client-Id",
+            "in": "header",
+            "required": True,
+            "description": "The browser tab's id; a draft can be changed only by the tab that keeps it.",
+            "schema": {"type": "string"},
+        }
+    ],
+    "requestBody": {
+        "required": True,
+        "description": "The form data, valid or not.",
+        "content": {"application/json": {"schema": {"type": "object"}}},
+    },
+}
+
+
+def study_body(ref: str = "#/components/schemas/Study") -> dict[str, Any]:
+    return {
+        "requestBody": {
+            "required": True,
+            "description": "A study in the study-file format, as JSON.",
+            "content": {"application/json": {"schema": {"$ref": ref}}},
+        }
+    }

@@ -1,11 +1,17 @@
-"""The entry server: a FastAPI app over one studies folder, and :func:`serve` to run it locally.
+"""The entry server: a FastAPI app over one studies folder (:mod:`reporting.web.server` runs it).
 
-The page (``templates/entry.html.j2`` with ``static/entry.js``) lets the reader click or type scores
-on the bull's-eye maps; every change goes to ``POST /api/analyze``, which runs the same load and
-analysis code as ``segreport analyze`` and answers with the record and the draft narrative, or with
-the command line's located problems (422). Saving writes ``<study id>.yaml`` into the folder;
-"report" writes the record, maps and PDF into its ``reports`` folder with
-:func:`reporting.render.write_report` and serves the PDF. Drafts autosave into a hidden folder.
+The page (``templates/entry.html.j2`` with ``static/entry.js``) lets the reader click or type
+scores on the bull's-eye maps; every change goes to ``POST /api/analyze``, which runs the same
+load and analysis code as ``segreport analyze`` and answers with the record and the draft
+narrative, or with the command line's located problems (422). ``GET /api/studies/{id}`` sends the
+file's version as an ``ETag``; a save sends it back as ``If-Match`` (:mod:`reporting.web.versions`:
+428 without it for an existing study, 412 when the file changed since, with the study as stored
+now) and writes the file it was opened from, or ``<study id>.yaml`` for a new study. "Report"
+writes the record, maps and PDF into the ``reports`` folder with
+:func:`reporting.render.write_report` and serves the PDF. Drafts autosave into a hidden folder,
+each owned by the browser tab that wrote it (``X-Client-Id``). Every refusal is a 4xx with
+located problems that name files relative to the studies folder; no route answers with a
+traceback.
 
 The server binds to 127.0.0.1 only, answers only loopback host names, caps request bodies at
 256 KB and serves every asset itself (no CDN; FastAPI's documentation pages, which load scripts
@@ -18,9 +24,9 @@ import datetime as dt
 import json
 import logging
 from pathlib import Path
-from typing import Annotated, Any
+from typing import Any
 
-from fastapi import Body, FastAPI, Query, Request
+from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.openapi.utils import get_openapi
 from fastapi.responses import FileResponse, HTMLResponse, JSONResponse, Response
@@ -36,7 +42,13 @@ from reporting.segments import BUILT_IN_MAPS
 from reporting.settings import Settings, default_settings
 from reporting.web import guard, pages, shapes
 from reporting.web.api import (
+    DRAFT_BODY,
+    IF_MATCH,
+    OWNED,
+    PRECONDITIONS,
+    REFUSED,
     AnalyzeResult,
+    Conflict,
     DraftListing,
     DraftSaved,
     FolderListing,
@@ -47,8 +59,11 @@ from reporting.web.api import (
     Saved,
     StudyListing,
     problem_of,
+    study_body,
 )
-from reporting.web.store import Folder
+from reporting.web.bodies import parse_body
+from reporting.web.store import DraftOwned, Folder, Stored, checked_id
+from reporting.web.versions import PreconditionError
 from reporting.wording import CAUTIONS
 
 log = logging.getLogger(__name__)
@@ -56,23 +71,7 @@ log = logging.getLogger(__name__)
 HOST = "127.0.0.1"
 DEFAULT_PORT = 8765
 STUDY_SOURCE = "study"
-_REFUSED: dict[int | str, dict[str, Any]] = {
-    413: {"model": ProblemList, "description": "Request body too large."},
-    422: {
-        "model": ProblemList,
-        "description": "Located problems, as the command line prints them.",
-    },
-}
-
-
-def _study_body(ref: str = "#/components/schemas/Study") -> dict[str, Any]:
-    return {
-        "requestBody": {
-            "required": True,
-            "description": "A study in the study-file format, as JSON.",
-            "content": {"application/json": {"schema": {"$ref": ref}}},
-        }
-    }
+CLIENT_HEADER = "x-client-id"
 
 
 def _refused(status: int, detail: str, problems: list[Problem]) -> JSONResponse:
@@ -81,17 +80,12 @@ def _refused(status: int, detail: str, problems: list[Problem]) -> JSONResponse:
 
 
 async def _json_body(request: Request, source: str) -> Any:
-    raw = await request.body()
-    if not raw.strip():
-        raise InputError(source, "the request has no body; send the study as JSON")
-    try:
-        return json.loads(raw)
-    except UnicodeDecodeError:
-        raise InputError(source, "the body is not UTF-8 text") from None
-    except json.JSONDecodeError as exc:
-        raise InputError(
-            f"{source}: line {exc.lineno}, column {exc.colno}", f"invalid JSON: {exc.msg}"
-        ) from None
+    return parse_body(await request.body(), source)
+
+
+def _client_id(request: Request) -> str:
+    """The page (browser tab) sending a draft request, from the ``X-Client-Id`` header."""
+    return checked_id(request.headers.get(CLIENT_HEADER, ""), f"header {CLIENT_HEADER}")
 
 
 def create_app(
@@ -123,19 +117,50 @@ def create_app(
 
     # --- errors ----------------------------------------------------------------------------
 
+    roots = sorted(
+        {
+            str(folder.studies): "",
+            str(folder.drafts): "drafts/",
+            str(folder.reports): "reports/",
+        }.items(),
+        key=lambda item: len(item[0]),
+        reverse=True,
+    )
+
+    def shown(text: str) -> str:
+        """``text`` with the server's folders named relative to the studies folder."""
+        for root, label in roots:
+            text = text.replace(root + "/", label)
+        for root, label in roots:
+            text = text.replace(root, label.rstrip("/") or "studies folder")
+        return text
+
+    def located(problem: InputError | ReportingError) -> Problem:
+        if isinstance(problem, InputError):
+            source = "draft" if problem.location.startswith("draft") else STUDY_SOURCE
+            found = problem_of(problem, source)
+            return Problem(
+                location=shown(found.location), path=shown(found.path), problem=shown(found.problem)
+            )
+        return Problem(location="", path="", problem=shown(str(problem)))
+
     @app.exception_handler(InputErrors)
     async def _input_errors(request: Request, exc: InputErrors) -> JSONResponse:
-        problems = [problem_of(p, STUDY_SOURCE) for p in exc.problems]
+        problems = [located(p) for p in exc.problems]
         count = len(problems)
         return _refused(422, f"{count} problem{'s' if count != 1 else ''} to fix", problems)
 
     @app.exception_handler(InputError)
     async def _input_error(request: Request, exc: InputError) -> JSONResponse:
-        return _refused(422, "1 problem to fix", [problem_of(exc, STUDY_SOURCE)])
+        return _refused(422, "1 problem to fix", [located(exc)])
+
+    @app.exception_handler(DraftOwned)
+    async def _draft_owned(request: Request, exc: DraftOwned) -> JSONResponse:
+        return _refused(409, shown(str(exc)), [])
 
     @app.exception_handler(ReportingError)
     async def _reporting_error(request: Request, exc: ReportingError) -> JSONResponse:
-        return _refused(422, str(exc), [Problem(location="", path="", problem=str(exc))])
+        return _refused(422, shown(str(exc)), [located(exc)])
 
     @app.exception_handler(RequestValidationError)
     async def _bad_request(request: Request, exc: RequestValidationError) -> JSONResponse:
@@ -152,12 +177,26 @@ def create_app(
 
     @app.exception_handler(FileNotFoundError)
     async def _missing(request: Request, exc: FileNotFoundError) -> JSONResponse:
-        return _refused(404, f"no such file: {exc.args[0] if exc.args else ''}", [])
+        return _refused(404, shown(f"no such file: {exc.args[0] if exc.args else ''}"), [])
 
-    @app.exception_handler(FileExistsError)
-    async def _exists(request: Request, exc: FileExistsError) -> JSONResponse:
-        name = exc.args[0] if exc.args else ""
-        return _refused(409, f"{name} already exists; save with overwrite=true to replace it", [])
+    @app.exception_handler(OSError)
+    async def _os_error(request: Request, exc: OSError) -> JSONResponse:
+        # a folder or file the server cannot read or write: say which, relative, never a traceback
+        name = shown(str(exc.filename)) if exc.filename else "studies folder"
+        status = 403 if isinstance(exc, PermissionError) else 409
+        problem = exc.strerror or type(exc).__name__
+        return _refused(
+            status, f"{name}: {problem}", [Problem(location=name, path="", problem=problem)]
+        )
+
+    @app.exception_handler(RecursionError)
+    async def _too_deep(request: Request, exc: RecursionError) -> JSONResponse:
+        return _refused(422, "the request is nested too deeply", [])
+
+    @app.exception_handler(Exception)
+    async def _unexpected(request: Request, exc: Exception) -> JSONResponse:
+        log.exception("unexpected error answering %s %s", request.method, request.url.path)
+        return _refused(500, "internal error; the server's log has the details", [])
 
     # --- computing -------------------------------------------------------------------------
 
@@ -197,8 +236,8 @@ def create_app(
     @app.post(
         "/api/analyze",
         response_model=AnalyzeResult,
-        responses=_REFUSED,
-        openapi_extra=_study_body(),
+        responses=REFUSED,
+        openapi_extra=study_body(),
         summary="Validate and analyse a study (same code as `segreport analyze`)",
     )
     async def analyze_study(request: Request) -> JSONResponse:
@@ -223,16 +262,20 @@ def create_app(
                 )
                 for s in folder.list_studies()
             ],
-            drafts=[DraftListing(id=d, modified=m) for d, m in folder.list_drafts()],
+            drafts=drafts(),
         )
 
-    def opened(study_id: str) -> OpenedStudy:
-        name, data, problems = folder.read_study(study_id)
+    def drafts() -> list[DraftListing]:
+        return [DraftListing(id=d, modified=m, study_id=sid) for d, m, sid in folder.list_drafts()]
+
+    def opened(study_id: str, stored: Stored | None = None) -> OpenedStudy:
+        stored = stored or folder.read_study(study_id)
         return OpenedStudy(
             id=study_id,
-            file=name,
-            study=_jsonable(data) if isinstance(data, dict) else {},
-            problems=[problem_of(p, name) for p in problems],
+            file=stored.file,
+            etag=stored.etag,
+            study=_jsonable(stored.data) if isinstance(stored.data, dict) else {},
+            problems=[located(p) for p in stored.problems],
         )
 
     @app.get("/api/studies", response_model=FolderListing, summary="Study files and drafts")
@@ -242,37 +285,49 @@ def create_app(
     @app.get(
         "/api/studies/{study_id}",
         response_model=OpenedStudy,
-        responses=_REFUSED,
-        summary="Read a study file for editing",
+        responses=REFUSED,
+        summary="Read a study file for editing (its version in the ETag header)",
     )
-    async def open_study(study_id: SafeId) -> OpenedStudy:
-        return opened(study_id)
+    async def open_study(study_id: SafeId) -> JSONResponse:
+        answer = opened(study_id)
+        return JSONResponse(answer.model_dump(mode="json"), headers={"etag": answer.etag})
 
     @app.put(
         "/api/studies/{study_id}",
         response_model=Saved,
-        responses=_REFUSED,
-        openapi_extra=_study_body(),
-        summary="Save a study as <study id>.yaml in the studies folder",
+        responses=REFUSED | PRECONDITIONS,
+        openapi_extra=study_body() | IF_MATCH,
+        summary="Save a study: a new one as <study id>.yaml, an existing file under its own name",
     )
-    async def save_study(
-        study_id: SafeId,
-        request: Request,
-        overwrite: Annotated[bool, Query(description="Replace an existing file.")] = False,
-    ) -> Saved:
+    async def save_study(study_id: SafeId, request: Request) -> JSONResponse:
         study = study_from_data(await _json_body(request, STUDY_SOURCE), source=STUDY_SOURCE)
-        if study.study.id != study_id:
-            raise InputError(
-                f"{STUDY_SOURCE}: study.id",
-                f"the study id {study.study.id!r} differs from {study_id!r} in the address",
-            )
-        path = folder.save_study(study, overwrite=overwrite)
-        return Saved(id=study_id, file=path.name)
+        try:
+            stored = folder.save_study(study_id, study, if_match=request.headers.get("if-match"))
+        except PreconditionError as exc:
+            return conflict(study_id, exc)
+        body = Saved(id=study_id, file=stored.file, etag=stored.etag, study=stored.data)
+        return JSONResponse(body.model_dump(mode="json"), headers={"etag": stored.etag})
+
+    def conflict(study_id: str, exc: PreconditionError) -> JSONResponse:
+        """412 with the study as it is now (the page shows what changed), or 428."""
+        current: OpenedStudy | None = None
+        if exc.status == 412:
+            try:
+                current = opened(study_id)
+            except (FileNotFoundError, InputError, InputErrors):
+                current = None  # removed, or unreadable now: the page offers a copy
+        body = Conflict(
+            detail=shown(str(exc)),
+            problems=[Problem(location=exc.name, path="", problem=exc.problem)],
+            current=current,
+        )
+        headers = {"etag": current.etag} if current else {}
+        return JSONResponse(body.model_dump(mode="json"), status_code=exc.status, headers=headers)
 
     @app.post(
         "/api/studies/{study_id}/report",
         response_model=ReportFiles,
-        responses=_REFUSED,
+        responses=REFUSED,
         summary="Write the record, maps and PDF of a saved study into the reports folder",
     )
     def write_report(
@@ -305,30 +360,36 @@ def create_app(
 
     @app.get("/api/drafts", response_model=list[DraftListing], summary="Autosaved drafts")
     async def list_drafts() -> list[DraftListing]:
-        return [DraftListing(id=d, modified=m) for d, m in folder.list_drafts()]
+        return drafts()
 
-    @app.get("/api/drafts/{draft_id}", responses=_REFUSED, summary="Read an autosaved draft")
+    @app.get("/api/drafts/{draft_id}", responses=REFUSED, summary="Read an autosaved draft")
     async def read_draft(draft_id: SafeId) -> dict[str, Any]:
         return folder.read_draft(draft_id)
 
     @app.put(
         "/api/drafts/{draft_id}",
         response_model=DraftSaved,
-        responses=_REFUSED,
-        summary="Autosave the page's form data (may be incomplete)",
+        responses=REFUSED | OWNED,
+        openapi_extra=DRAFT_BODY,
+        summary="Autosave the page's form data (may be incomplete); X-Client-Id names the tab",
     )
-    async def save_draft(
-        draft_id: SafeId,
-        form: Annotated[dict[str, Any], Body(description="The form data, valid or not.")],
-    ) -> DraftSaved:
-        folder.save_draft(draft_id, form)
+    async def save_draft(draft_id: SafeId, request: Request) -> DraftSaved:
+        client = _client_id(request)
+        form = await _json_body(request, "draft")
+        if not isinstance(form, dict):
+            raise InputError("draft", "send the form data as a JSON object")
+        folder.save_draft(draft_id, form, client)
         return DraftSaved(
             id=draft_id, saved_at=dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
         )
 
-    @app.delete("/api/drafts/{draft_id}", summary="Remove a draft (after saving the study)")
-    async def delete_draft(draft_id: SafeId) -> dict[str, bool]:
-        return {"deleted": folder.delete_draft(draft_id)}
+    @app.delete(
+        "/api/drafts/{draft_id}",
+        responses=REFUSED | OWNED,
+        summary="Remove a draft of this tab (X-Client-Id) after saving the study",
+    )
+    async def delete_draft(draft_id: SafeId, request: Request) -> dict[str, bool]:
+        return {"deleted": folder.delete_draft(draft_id, _client_id(request))}
 
     # --- the page --------------------------------------------------------------------------
 
@@ -390,20 +451,3 @@ def _plain(value: Any) -> Any:
     if isinstance(value, dt.date | dt.datetime):
         return value.isoformat()
     return str(value)
-
-
-def serve(
-    studies_dir: Path,
-    port: int = DEFAULT_PORT,
-    *,
-    drafts_dir: Path | None = None,
-    reports_dir: Path | None = None,
-    settings: Settings | None = None,
-    log_level: str = "info",
-) -> None:
-    """Run the entry server on http://127.0.0.1:``port`` until interrupted (loopback only)."""
-    import uvicorn
-
-    app = create_app(studies_dir, drafts_dir=drafts_dir, reports_dir=reports_dir, settings=settings)
-    log.info("serving %s on http://%s:%d/", studies_dir, HOST, port)
-    uvicorn.run(app, host=HOST, port=port, log_level=log_level, server_header=False)

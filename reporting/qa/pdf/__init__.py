@@ -7,6 +7,8 @@ discordant studies for case review, the studies left out of the tables, the read
 when given, and the cautions. Long lists are cut with a pointer to the JSON, so the document stays
 within two pages.
 
+``agreement`` builds the reader-agreement result alone as its own PDF from the same parts.
+
 Modules: ``document`` (building, the two-page fit, writing, the free-text glyph check), ``page``
 (page geometry, list limits, footer, shared text), ``page_one`` and ``page_two``. The chart is drawn
 in :mod:`reporting.qa.chart`; table styles and number formats live in :mod:`reporting.qa.layout`.
@@ -16,6 +18,13 @@ the public names only.
 
 from __future__ import annotations
 
+from reporting.qa.pdf.agreement import agreement_pdf_bytes, write_agreement_pdf
 from reporting.qa.pdf.document import free_text_fields, review_pdf_bytes, write_review_pdf
 
-__all__ = ["free_text_fields", "review_pdf_bytes", "write_review_pdf"]
+__all__ = [
+    "agreement_pdf_bytes",
+    "free_text_fields",
+    "review_pdf_bytes",
+    "write_agreement_pdf",
+    "write_review_pdf",
+]

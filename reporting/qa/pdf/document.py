@@ -55,6 +55,7 @@ def free_text_fields(
     """The free text the quality PDF prints (lab and reader names), by field."""
     readers = [g.group for g in review.by_reader if g.group is not None]
     readers += [d.reader for d in review.discordant if d.reader]
+    readers += [r.reader for r in review.non_diagnostic_by_reader if r.reader]
     fields: list[tuple[str, str | None]] = [
         ("study.lab", "; ".join(review.labs)),
         ("study.reader", "; ".join(dict.fromkeys(readers))),

@@ -40,12 +40,18 @@ FRAME_WIDTH = PAGE_WIDTH - 2 * MARGIN
 
 def footer(review: QualityReview, fonts: style.Fonts) -> Callable[[Any, Any], None]:
     """The page callback drawing the title, the period and the page number under the frame."""
+    return footer_line(f"Stress echo quality review · {period(review)}", fonts)
+
+
+def footer_line(text: str, fonts: style.Fonts) -> Callable[[Any, Any], None]:
+    """The page callback drawing ``text`` and the page number under the frame."""
+    line = style.printable(text, fonts.regular)
 
     def draw(canvas: Any, document: Any) -> None:
         canvas.saveState()
         canvas.setFont(fonts.regular, 7.5)
         canvas.setFillColor(style.MUTED)
-        canvas.drawString(MARGIN, MARGIN - 2 * mm, f"Stress echo quality review · {period(review)}")
+        canvas.drawString(MARGIN, MARGIN - 2 * mm, line)
         canvas.drawRightString(PAGE_WIDTH - MARGIN, MARGIN - 2 * mm, f"page {document.page}")
         canvas.restoreState()
 
@@ -83,14 +89,14 @@ def clip(text: str, length: int) -> str:
     return text if len(text) <= length else text[: length - 1].rstrip() + "…"
 
 
-def id_list(values: Sequence[str], limits: Limits) -> str:
+def id_list(values: Sequence[str], limits: Limits, json_name: str = "review JSON") -> str:
     """Study ids up to the current limit, escaped, with a pointer to the JSON for the rest."""
     if not values:
         return "none"
     # Ids read back from records or the CSV are not guaranteed markup-safe: escape them.
     shown = escape(", ".join(values[: limits.listed_ids]))
     more = len(values) - limits.listed_ids
-    return shown + (f" … and {more} more in the review JSON" if more > 0 else "")
+    return shown + (f" … and {more} more in the {json_name}" if more > 0 else "")
 
 
 def free_text(text: str, fonts: style.Fonts) -> str:

@@ -41,8 +41,10 @@ def page_one(
         ),
         Paragraph(
             f"<b>Records:</b> {c.records} — analysed {c.analysed}, without angiography "
-            f"{c.without_angiography}, non-diagnostic {c.non_diagnostic}, outside the period "
-            f"{c.outside_period}. Intervals are Wilson 95 % intervals.",
+            f"{c.without_angiography}, viability-only {c.viability_only}, non-diagnostic "
+            f"{c.non_diagnostic}, outside the period {c.outside_period}. Viability-only and "
+            "non-diagnostic studies are kept out of the accuracy figures. Intervals are Wilson "
+            "95 % intervals.",
             s["body"],
         ),
         Spacer(1, 3 * mm),

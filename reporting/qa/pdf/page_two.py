@@ -1,5 +1,5 @@
 """Page two of the quality PDF: the discordant studies for case review, the studies left out of the
-tables, the reader-agreement figures when given, the cautions and the sources. Long lists are cut
+tables, the non-diagnostic rate by reader, the reader-agreement figures when given, the cautions and the sources. Long lists are cut
 to the current :class:`~reporting.qa.pdf.page.Limits` with a pointer to the review JSON.
 """
 
@@ -13,7 +13,7 @@ from reportlab.lib.units import mm
 from reportlab.platypus import CondPageBreak, Flowable, Paragraph, Spacer, Table
 
 from reporting.qa.agreement import Agreement, BinaryAgreement
-from reporting.qa.layout import kappa_text, number, plain_percent, table_style
+from reporting.qa.layout import interval, kappa_text, number, plain_percent, short, table_style
 from reporting.qa.pdf.page import (
     FRAME_WIDTH,
     READER_CHARS,
@@ -24,6 +24,7 @@ from reporting.qa.pdf.page import (
     name_list,
 )
 from reporting.qa.review import Outcome, QualityReview
+from reporting.qa.status import NonDiagnosticRate
 from reporting.render import style
 from reporting.segments import Territory
 from reporting.wording import stage_words
@@ -115,6 +116,10 @@ def page_two(
             s["body"],
         ),
         Paragraph(
+            f"<b>Viability-only ({len(review.viability_only)}):</b> {excluded_ids(review.viability_only, limits)}",
+            s["body"],
+        ),
+        Paragraph(
             f"<b>Non-diagnostic ({len(review.non_diagnostic)}):</b> {excluded_ids(review.non_diagnostic, limits)}",
             s["body"],
         ),
@@ -124,6 +129,7 @@ def page_two(
             s["body"],
         ),
     ]
+    story += [Spacer(1, 3 * mm), *non_diagnostic_section(review, s, limits)]
     if agreement is not None:
         story += [Spacer(1, 3 * mm), *agreement_section(agreement, s, limits)]
     story += [
@@ -134,6 +140,54 @@ def page_two(
         Spacer(1, 2 * mm),
         Paragraph("Sources: " + " ".join(review.sources), s["small"]),
     ]
+    return story
+
+
+def non_diagnostic_section(
+    review: QualityReview, s: dict[str, ParagraphStyle], limits: Limits
+) -> list[Flowable]:
+    """The non-diagnostic rate over the whole period, overall and for the busiest readers."""
+    rows: list[list[Any]] = [
+        ["Reader", "Studies", "Viability-only", "Non-diagnostic", "95 % interval"]
+    ]
+    readers = review.non_diagnostic_by_reader
+    largest = sorted(readers, key=lambda r: -r.studies)[: limits.groups_per_kind]
+    shown = [r for r in readers if r in largest]
+    named: list[tuple[str, NonDiagnosticRate]] = [
+        (clip(r.reader, READER_CHARS) if r.reader is not None else "(not recorded)", r)
+        for r in shown
+    ]
+    named.append(("All readers", review.non_diagnostic_rate))
+    for name, rate in named:
+        rows.append(
+            [
+                Paragraph(style.markup_text(name, s["cell"].fontName), s["cell"]),
+                str(rate.studies),
+                str(rate.viability_only),
+                short(rate.non_diagnostic),
+                interval(rate.non_diagnostic),
+            ]
+        )
+    table = Table(
+        rows,
+        colWidths=[52 * mm, 18 * mm, 26 * mm, 32 * mm, FRAME_WIDTH - 128 * mm],
+        hAlign="LEFT",
+    )
+    table.setStyle(table_style(s, header_rows=1, first_col=True))
+    story: list[Flowable] = [
+        Paragraph("Non-diagnostic rate by reader", s["h2"]),
+        Paragraph(
+            "Every study in the period, with or without angiography. Viability-only studies "
+            "(rest and low dose only) are not tests for ischaemia and are left out of the rate.",
+            s["small"],
+        ),
+        Spacer(1, 1 * mm),
+        table,
+    ]
+    if len(readers) > len(shown):
+        story.append(
+            Paragraph(f"… {len(readers) - len(shown)} more readers in the review JSON.", s["small"])
+        )
     return story
 
 

@@ -1,0 +1,92 @@
+"""What is being released: the report's state, who signed it and which version it replaces.
+
+A study file on its own is never signed, so file mode releases a preliminary, unverified report
+(:func:`Release.unsigned`). The report store builds a final or corrected :class:`Release` from a
+signed version (FHIR R4 DiagnosticReport.status): a final or corrected release needs a signer, a corrected one also
+names its predecessor. Exporters read the state through :class:`ReportState` and never guess it
+from the study file.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from enum import StrEnum
+
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+
+class ReportState(StrEnum):
+    """State of the released report."""
+
+    PRELIMINARY = "preliminary"
+    """Not signed: FHIR preliminary, HL7 result status P, DICOM SR unverified."""
+    FINAL = "final"
+    """Signed: FHIR final, HL7 F, DICOM SR verified."""
+    CORRECTED = "corrected"
+    """A signed version replacing an earlier signed one: FHIR corrected, HL7 C, a new SR instance."""
+
+
+class Signer(BaseModel):
+    """The clinician who signed the version (21 CFR 11.50: name, time, meaning)."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    name: str = Field(min_length=1, max_length=64, description="Printed name of the signer.")
+    signed_at: dt.datetime = Field(description="When the version was signed (timezone-aware).")
+    meaning: str = Field(min_length=1, max_length=64, description="Meaning, e.g. 'approval'.")
+    organization: str = Field(
+        min_length=1, max_length=64, description="The lab or organisation the signer signs for."
+    )
+    id: str | None = Field(
+        default=None, max_length=16, description="Staff number of the signer, if known."
+    )
+
+    @model_validator(mode="after")
+    def _aware(self) -> Signer:
+        if self.signed_at.tzinfo is None:
+            raise ValueError("signed_at must carry a time zone")
+        return self
+
+
+class Predecessor(BaseModel):
+    """The released version this one replaces (for DICOM's Predecessor Documents Sequence)."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    version: int = Field(ge=1, description="Version number of the replaced version.")
+    reason: str = Field(min_length=1, max_length=1000, description="Why it was replaced.")
+    sr_sop_instance_uid: str | None = Field(
+        default=None, description="SOP Instance UID of the SR sent for the replaced version."
+    )
+    sr_series_instance_uid: str | None = Field(
+        default=None, description="Series Instance UID of that SR."
+    )
+
+
+class Release(BaseModel):
+    """The inputs besides the Analysis and the PDF that every export needs."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    state: ReportState = Field(description="preliminary, final or corrected.")
+    version: int = Field(default=1, ge=1, description="Version number of the released report.")
+    signer: Signer | None = Field(default=None, description="Signer; required unless preliminary.")
+    predecessor: Predecessor | None = Field(
+        default=None, description="The version replaced; required when corrected."
+    )
+
+    @model_validator(mode="after")
+    def _consistent(self) -> Release:
+        signed = self.state is not ReportState.PRELIMINARY
+        if signed and self.signer is None:
+            raise ValueError(f"a {self.state} release needs a signer")
+        if not signed and self.signer is not None:
+            raise ValueError("a preliminary release has no signer")
+        if (self.state is ReportState.CORRECTED) != (self.predecessor is not None):
+            raise ValueError("a corrected release, and only one, names its predecessor")
+        return self
+
+    @classmethod
+    def unsigned(cls) -> Release:
+        """File mode: a preliminary, unverified first version."""
+        return cls(state=ReportState.PRELIMINARY)

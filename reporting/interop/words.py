@@ -1,0 +1,47 @@
+"""The report's own words for every export: the same functions the PDF prints with.
+
+The conclusion a hospital system shows (FHIR ``DiagnosticReport.conclusion``, the HL7 conclusion
+OBX, the SR's Conclusion item) is the PDF's Impression section word for word, headed by the PDF's
+one-sentence summary; nothing here re-words a finding.
+"""
+
+from __future__ import annotations
+
+from reporting.render.narrative.impression import (
+    high_risk_paragraphs,
+    impression,
+    summary,
+    territory_sentence,
+)
+from reporting.results import Analysis
+from reporting.segments import Territory
+
+
+def headline(analysis: Analysis) -> str:
+    """The PDF's one-sentence answer (its summary box)."""
+    return summary(analysis)
+
+
+def conclusion_paragraphs(analysis: Analysis) -> list[str]:
+    """The PDF's Impression section, paragraph by paragraph (the headline first)."""
+    return impression(analysis)
+
+
+def conclusion_text(analysis: Analysis) -> str:
+    """The Impression section as one text, one paragraph a line."""
+    return "\n".join(conclusion_paragraphs(analysis))
+
+
+def territory_text(analysis: Analysis, territory: Territory) -> str:
+    """The PDF's sentence about one territory."""
+    return territory_sentence(analysis, territory)
+
+
+def high_risk_texts(analysis: Analysis) -> list[str]:
+    """The PDF's high-risk finding paragraphs."""
+    return high_risk_paragraphs(analysis)
+
+
+def cautions_text(analysis: Analysis) -> str:
+    """The cautions every report carries, one a line."""
+    return "\n".join(analysis.cautions)
