@@ -181,7 +181,7 @@ def analyze(
     )
     log.debug("analysed %s: %d segments, status %s", study.study.id, len(segments), answer.status)
 
-    return Analysis(
+    analysis = Analysis(
         schema_version=RECORD_SCHEMA_VERSION,
         generator=f"segreport {_version()}",
         study=StudyHeader(
@@ -199,6 +199,9 @@ def analyze(
             impression=study.impression,
             recommendations=study.recommendations,
             other_findings=study.other_findings,
+            computed_impression=study.computed_impression,
+            impression_basis_sha256=study.impression_basis_sha256,
+            kept_notes=list(study.kept_notes),
         ),
         patient=PatientSummary(
             id=study.patient.id,
@@ -230,6 +233,9 @@ def analyze(
         cautions=list(CAUTIONS),
         order=study.order,
     )
+    from reporting.impression import with_impression_state
+
+    return with_impression_state(analysis)
 
 
 def _version() -> str:

@@ -384,6 +384,8 @@ GENERALISERS: dict[str, Callable[[Any, _Context], Any]] = {
     "territory_map_title": lambda v, c: c.territory_map.title,
     "territory_map_source": lambda v, c: c.territory_map.source,
     "curve_file_replaced": _curve_file_replaced,
+    # Computed text that may quote a lab map's title or reveal an age over 89: left empty.
+    "blanked": lambda v, c: "",
 }
 """The rules a ``generalised`` record field may name in ``data/deidentify_fields.csv``."""
 

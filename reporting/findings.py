@@ -269,12 +269,13 @@ def quality_notes(
     suggest_at: list[str] = []
     for stage, scores in wall.items():
         unseen = [n for n, score in scores.items() if score is None]
-        if not unseen:
-            continue
+        if not unseen or len(unseen) == len(scores):
+            continue  # a stage with no score at all is not scored yet (a draft), not unseen
+        noun = "segments" if len(unseen) != 1 else "segment"
         notes.append(
             Note(
                 kind=NoteKind.NOT_VISUALISED,
-                text=f"Not visualised at {stage_words(stage, study.protocol)}: segments {number_list(unseen)}.",
+                text=f"Not visualised at {stage_words(stage, study.protocol)}: {noun} {number_list(unseen)}.",
                 source=None,
             )
         )

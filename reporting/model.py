@@ -28,6 +28,7 @@ from pydantic import (
 )
 from pydantic_core import ErrorDetails, InitErrorDetails, PydanticCustomError
 
+from reporting.notes import NoteKind
 from reporting.procedure import ImageQuality, Procedure, Vasodilator
 from reporting.segments import SegmentModel
 from reporting.wording import number_ranges
@@ -533,6 +534,25 @@ class Study(_Input):
         default=None,
         max_length=5000,
         description="Other echocardiographic findings, e.g. valves or pericardium (free text).",
+    )
+    computed_impression: str | None = Field(
+        default=None,
+        max_length=20000,
+        description="The computed findings as the reader saw them when confirming the impression "
+        "(written by the entry page; informative only: staleness is judged by the hash).",
+    )
+    impression_basis_sha256: str | None = Field(
+        default=None,
+        pattern=r"^[0-9a-f]{64}$",
+        description="SHA-256 (lower-case hex) of the canonical computed findings the reader's "
+        "impression was written against (reporting.impression.findings_sha256); when the scores "
+        "change afterwards the impression is marked stale until the reader confirms it again.",
+    )
+    kept_notes: list[NoteKind] = Field(
+        default_factory=list,
+        description="Kinds of reader note (image-review prompts, entry-error warnings, protocol and "
+        "fit-quality remarks) the reader keeps in the referring-doctor PDF; the others stay in the "
+        "record and on the entry page only.",
     )
     procedure: Procedure | None = Field(
         default=None,

@@ -16,6 +16,7 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from reporting.kinetics.models import KineticsResult
 from reporting.model import Order, Protocol, ReportStatus, Sex, Stage, Study
+from reporting.notes import NoteKind as NoteKind
 from reporting.procedure import (
     Arrhythmia,
     BaselineEcg,
@@ -76,6 +77,20 @@ class StudyHeader(_Result):
     )
     other_findings: str | None = Field(
         default=None, description="Other echocardiographic findings (free text)."
+    )
+    computed_impression: str | None = Field(
+        default=None,
+        description="The computed findings the reader confirmed the impression against, as the "
+        "study file keeps them.",
+    )
+    impression_basis_sha256: str | None = Field(
+        default=None,
+        description="SHA-256 of the canonical computed findings the reader's impression was "
+        "written against (from the study file); see findings_sha256.",
+    )
+    kept_notes: list[NoteKind] = Field(
+        default_factory=list,
+        description="Kinds of reader note the reader keeps in the referring-doctor PDF.",
     )
     deidentified: bool = Field(
         default=False,
@@ -400,35 +415,17 @@ class NonDiagnosticReason(StrEnum):
     """The heart-rate target was not reached or not established (not for vasodilator stress)."""
 
 
-class NoteKind(StrEnum):
-    """Kind of image-quality or protocol note."""
+class ImpressionStatus(StrEnum):
+    """Whether the reader's impression was written against the findings computed now."""
 
-    SUGGEST_CONTRAST = "suggest_contrast"
-    """Contiguous segments not visualised without an enhancing agent."""
-    HIGH_MI_PERFUSION = "high_mi_perfusion"
-    """Perfusion imaging above the low-MI range."""
-    BOLUS_QUANTIFICATION = "bolus_quantification"
-    """Quantitative curves acquired with bolus rather than infusion."""
-    PERFUSION_WITHOUT_CONTRAST = "perfusion_without_contrast"
-    """Perfusion scores entered but no enhancing agent recorded."""
-    NOT_VISUALISED = "not_visualised"
-    """Segments not visualised at a stage."""
-    DUKE_NOT_APPLICABLE = "duke_not_applicable"
-    """Exercise data given for a protocol on which the Duke score is not validated."""
-    AGE_UNKNOWN = "age_unknown"
-    """No age, so heart-rate targets cannot be computed."""
-    WORSENING_DEFECT = "worsening_defect"
-    """A perfusion defect present at rest that worsens at peak."""
-    VIABILITY = "viability"
-    """Enough biphasic segments to predict recovery of global function."""
-    ABNORMAL_AT_LOW_DOSE = "abnormal_at_low_dose"
-    """Segments not seen at rest and already abnormal at low dose: not called fixed; review."""
-    PROBABLE_ENTRY_ERROR = "probable_entry_error"
-    """A segment aneurysmal only at stress: implausible, probably an entry error."""
-    LV_DILATION = "lv_dilation"
-    """End-systolic volume rose with stress: an abnormal response, not graded high risk."""
-    BLOOD_PRESSURE_FALL = "blood_pressure_fall"
-    """Systolic pressure fell under pharmacological stress: reported, not graded high risk."""
+    NONE = "none"
+    """The reader wrote no impression or recommendation: the computed findings are a draft."""
+    CURRENT = "current"
+    """The impression was confirmed against the findings computed now."""
+    STALE = "stale"
+    """The impression was confirmed against earlier findings; the scores changed since."""
+    UNCONFIRMED = "unconfirmed"
+    """The reader wrote an impression, but the study keeps no basis hash (not yet confirmed)."""
 
 
 class Note(_Result):
@@ -601,6 +598,21 @@ class Analysis(_Result):
         "vasodilator agent, image quality.",
     )
     conclusion: Conclusion = Field(description="Conclusions and high-risk findings.")
+    computed_impression: str = Field(
+        default="",
+        description="The computed findings as text (headline and impression by territory): the "
+        "draft the reader accepts, edits or replaces.",
+    )
+    findings_sha256: str = Field(
+        default="",
+        description="SHA-256 (hex) of the canonical form of the findings computed now "
+        "(reporting.impression.findings_basis: scores, responses and conclusion codes as sorted "
+        "compact JSON, no floats).",
+    )
+    impression_status: ImpressionStatus = Field(
+        default=ImpressionStatus.NONE,
+        description="none, current, stale (written against earlier findings) or unconfirmed.",
+    )
     notes: list[Note] = Field(description="Image-quality, protocol and interpretation notes.")
     cautions: list[str] = Field(description="Cautions that accompany every report.")
     order: Order | None = Field(

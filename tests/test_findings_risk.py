@@ -208,8 +208,9 @@ def test_perfusion_only_ischaemia_counts_in_tables_extent_and_headline() -> None
     assert (c.ischemia, c.ischemic_segments, c.ischemic_segment_count) == (True, [10], 0)
     assert c.ischemia_extent is IschemiaExtent.MILD  # never "none" beside ischemia true
     assert narrative_text(a).splitlines()[1] == (
-        "Positive for inducible ischaemia in the RCA territory by reversible perfusion defects "
-        "only, 1 segment (mild extent)."
+        "Positive for inducible ischaemia in the RCA territory; limited ischaemia by reversible "
+        "perfusion defects only: 1 segment. Intermediate risk: moderate reversible perfusion "
+        "defect and limited inducible ischaemia."  # 1 of 17 segments = 5.9 % (5 to < 10 %)
     )
 
 

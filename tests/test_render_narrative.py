@@ -3,7 +3,7 @@
 The golden texts are the exact narrative of each invented demo study. Wording rules checked beside
 them: a negative study below the target heart rate is non-diagnostic, never normal (Ballal RS et al.,
 1997); akinesis turning dyskinetic is not ischaemia (Elhendy A et al., Chest 1996; Sozzi FB et al.,
-JASE 2007); extent mild 1–2, moderate–severe ≥ 3 segments (Kataoka A et al., Cardiovasc Ultrasound
+JASE 2007); extent limited 1–2, extensive ≥ 3 segments (Kataoka A et al., Cardiovasc Ultrasound
 2015;13:47); Duke treadmill score minutes − 5 × ST − 4 × angina index (Mark DB et al., NEJM 1991).
 """
 
@@ -32,11 +32,11 @@ from reporting.results import Analysis
 GOLDEN = {
     "DEMO-0001": """\
 Impression
-Negative for inducible ischaemia at adequate stress.
+Negative for inducible ischaemia at adequate stress. Low risk: no inducible ischaemia.
 LAD (segments 1, 2, 7, 8, 13, 14 and 17): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
 LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
 RCA (segments 3, 4, 9, 10 and 15): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
-Territories follow the map 'Standard coronary territories (right-dominant)'; segments 3, 4, 5, 9, 10, 11, 12, 15, 16 and 17 are often supplied by another artery.
+Territories follow the map 'Standard coronary territories (right-dominant)'.
 
 Stress and adequacy
 Dobutamine stress echocardiography to 40 μg/kg/min with atropine 0.5 mg; 17-segment model.
@@ -55,11 +55,12 @@ No high-risk finding identified.
 """,
     "DEMO-0002": """\
 Impression
-Positive for inducible ischaemia in the LAD territory, 5 segments (moderate–severe extent).
+Positive for inducible ischaemia in the LAD territory; extensive ischaemia: 5 segments. High risk: extensive ischaemia and large reversible perfusion defect.
 LAD (segments 1, 2, 7, 8, 13, 14 and 17): inducible ischaemia in 5 of 7 segments (7, 8, 13, 14 and 17), at worst akinetic at peak; reversible perfusion defect in segments 7, 8, 13, 14 and 17. Territory WMSI 1.00 at rest, 2.00 at peak.
 LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
 RCA (segments 3, 4, 9, 10 and 15): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
-Territories follow the map 'Standard coronary territories (right-dominant)'; segments 3, 4, 5, 9, 10, 11, 12, 15, 16 and 17 are often supplied by another artery.
+Territories follow the map 'Standard coronary territories (right-dominant)'.
+Segment 17 is often supplied by another artery (LCx or RCA), so the territory named is the usual one, not a certain one.
 
 Stress and adequacy
 Dobutamine stress echocardiography to 40 μg/kg/min with atropine 0.25 mg; 17-segment model.
@@ -87,12 +88,12 @@ LV end-systolic volume rose by 6 mL from rest to peak: an abnormal response (cav
 """,
     "DEMO-0003": """\
 Impression
-Positive for inducible ischaemia in the LAD territory, 4 segments (moderate–severe extent).
+Viability: 5 of 7 segments abnormal at rest are viable (biphasic in segments 1, 7, 8 and 13; sustained improvement in segment 2); with 4 biphasic segments, recovery of global function after revascularisation is likely, though not certain. Positive for inducible ischaemia in the LAD territory; extensive ischaemia: 4 segments. High risk: extensive ischaemia, low resting ejection fraction and high peak WMSI.
 LAD (segments 1, 2, 7, 8, 13, 14 and 17): inducible ischaemia in 4 of 7 segments (1, 7, 8 and 13), at worst akinetic at peak; biphasic response (viable and ischaemic) in segments 1, 7, 8 and 13; viable with sustained improvement in segment 2; fixed abnormality (no change with stress) in segment 17; akinesis turning dyskinetic in segment 14. Territory WMSI 2.71 at rest, 2.71 at peak.
 LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
 RCA (segments 3, 4, 9, 10 and 15): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
 Akinesis turning dyskinetic at stress in segment 14: a mechanical finding, not counted as ischaemia.
-Territories follow the map 'Standard coronary territories (right-dominant)'; segments 3, 4, 5, 9, 10, 11, 12, 15, 16 and 17 are often supplied by another artery.
+Territories follow the map 'Standard coronary territories (right-dominant)'.
 
 Stress and adequacy
 Dobutamine stress echocardiography to 40 μg/kg/min with atropine 1 mg; 17-segment model.
@@ -115,17 +116,18 @@ Image quality and protocol notes
 """,
     "DEMO-0004": """\
 Impression
-Positive for inducible ischaemia in the RCA territory, 2 segments (mild extent).
-LAD (segments 1, 2, 7, 8, 13, 14 and 17): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak exercise.
-LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak exercise.
-RCA (segments 3, 4, 9, 10 and 15): inducible ischaemia in 2 of 5 segments (4 and 10), at worst hypokinetic at peak exercise. Territory WMSI 1.00 at rest, 1.40 at peak exercise.
-Territories follow the map 'Standard coronary territories (right-dominant)'; segments 3, 4, 5, 9, 10, 11, 12, 15, 16 and 17 are often supplied by another artery.
-
-Reader's impression
 Inducible ischaemia of the inferior wall at a good workload, with angina and ST depression.
 
 Recommendations
 Optimise anti-anginal treatment; consider coronary angiography if symptoms persist.
+
+Computed findings
+Positive for inducible ischaemia in the RCA territory; limited ischaemia: 2 segments. Intermediate risk: limited inducible ischaemia and intermediate-risk Duke treadmill score.
+LAD (segments 1, 2, 7, 8, 13, 14 and 17): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak exercise.
+LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak exercise.
+RCA (segments 3, 4, 9, 10 and 15): inducible ischaemia in 2 of 5 segments (4 and 10), at worst hypokinetic at peak exercise. Territory WMSI 1.00 at rest, 1.40 at peak exercise.
+Territories follow the map 'Standard coronary territories (right-dominant)'.
+Segments 4 and 10 are often supplied by another artery (LCx), so the territory named is the usual one, not a certain one.
 
 Stress and adequacy
 Treadmill exercise stress echocardiography; 17-segment model.
@@ -161,7 +163,7 @@ Non-diagnostic for ischaemia: no ischaemia was shown, but the target heart rate 
 LAD (segments 1, 2, 7, 8, 13, 14 and 17): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
 LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality in the segments assessed; segments 5, 6 and 12 not assessable. Territory WMSI 1.00 at rest, 1.00 at peak.
 RCA (segments 3, 4, 9, 10 and 15): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
-Territories follow the map 'Standard coronary territories (right-dominant)'; segments 3, 4, 5, 9, 10, 11, 12, 15, 16 and 17 are often supplied by another artery.
+Territories follow the map 'Standard coronary territories (right-dominant)'.
 
 Stress and adequacy
 Dobutamine stress echocardiography to 40 μg/kg/min with atropine 1 mg; 17-segment model.
@@ -180,6 +182,42 @@ No high-risk finding identified.
 Image quality and protocol notes
 Not visualised at peak: segments 5, 6, 12.
 Contiguous segments were not visualised at peak (segments 5, 6, 12): an ultrasound-enhancing agent is suggested for border definition.
+""",
+    "DEMO-0006": """\
+Impression
+Positive for inducible ischaemia in the LAD territory; extensive ischaemia by reversible perfusion defects only: 5 segments. High risk: extensive ischaemia and large reversible perfusion defect.
+LAD (segments 1, 2, 7, 8, 13, 14 and 17): no wall-motion abnormality at rest or stress; inducible ischaemia by perfusion in 5 of 7 segments (2, 8, 13, 14 and 17); reversible perfusion defect in segments 2, 8, 13, 14 and 17. Territory WMSI 1.00 at rest, 1.00 at peak.
+LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
+RCA (segments 3, 4, 9, 10 and 15): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
+Territories follow the map 'Standard coronary territories (right-dominant)'.
+Segment 17 is often supplied by another artery (LCx or RCA), so the territory named is the usual one, not a certain one.
+
+Stress and adequacy
+Vasodilator stress echocardiography; 17-segment model.
+Vasodilator stress: the heart-rate target does not apply.
+Peak rate–pressure product 11592 bpm·mmHg.
+
+Test conduct
+Resting ECG: sinus rhythm.
+Vasodilator: adenosine 140 μg/kg/min.
+Stress stopped for: protocol completed.
+Complications: none.
+Arrhythmias: none.
+
+Wall motion
+Rest: normal wall motion in all 17 segments (WMSI 1.00). LVEF 60 %.
+Peak: normal wall motion in all 17 segments (WMSI 1.00). LVEF 62 %. Symptoms and ECG: Mild chest tightness and flushing during the vasodilator infusion, settled after it.
+
+Perfusion
+Enhancing agent: lipid-shelled perfluorocarbon microspheres.
+Rest: normal perfusion in all 17 segments; defect extent 0 %.
+Peak: reduced or delayed in segments 2, 8, 13, 14 and 17; defect extent 29 %.
+Reversible defects (inducible ischaemia): segments 2, 8, 13, 14 and 17 (LAD).
+
+High-risk findings
+Risk: high risk (more than 3 % per year) by the noninvasive risk tables; criteria met: extensive ischaemia and large reversible perfusion defect.
+Extensive ischaemia — ischaemia in 5 segments: 2, 8, 13, 14, 17.
+Large reversible perfusion defect — reversible perfusion defects in 29.4 % of the myocardium.
 """,
 }
 
@@ -215,9 +253,10 @@ def test_every_segment_unseen_at_peak_is_stated_plainly() -> None:
     data["stages"]["recovery"]["wall_motion"] = "x" * 17  # neither peak nor recovery saw them
     analysis = analyze(study_from_data(data))
     text = narrative_text(analysis)
+    # every segment without a score reads as "not scored yet", never as 17 segments unseen
     assert (
-        "Peak (dobutamine 40 μg/kg/min, atropine 0.5 mg): no segment was visualised "
-        "(17 of 17 not visualised); wall motion cannot be assessed." in text
+        "Peak (dobutamine 40 μg/kg/min, atropine 0.5 mg): wall motion not scored yet "
+        "(no segment has a score)." in text
     )
     assert text.splitlines()[1] == (
         "Non-diagnostic for ischaemia: no ischaemia was shown, but no segment of the LAD, LCx "
@@ -231,8 +270,8 @@ def test_multivessel_wording() -> None:
     data["stages"]["peak"]["wall_motion"] = "111211 221111 1111 1"  # RCA 4 and LAD 7, 8
     analysis = analyze(study_from_data(data))
     assert summary(analysis) == (
-        "Positive for inducible ischaemia in the LAD and RCA territories, 3 segments "
-        "(moderate–severe extent; multivessel pattern)."
+        "Positive for inducible ischaemia in the LAD and RCA territories; extensive ischaemia: "
+        "3 segments, multivessel pattern. High risk: extensive ischaemia and multivessel pattern."
     )
 
 

@@ -12,15 +12,21 @@ templates). This module holds the public names only.
 
 from __future__ import annotations
 
+from reporting.render.narrative.conduct import reader_paragraphs
 from reporting.render.narrative.document import (
     HTML_TEMPLATE,
     TEXT_TEMPLATE,
+    Audience,
     Narrative,
     Section,
     build_narrative,
+    computed_impression_text,
     environment,
+    impression_differs,
+    impression_state_line,
     narrative_html,
     narrative_text,
+    reader_impression_in_headline,
     text_blocks,
 )
 from reporting.render.narrative.impression import risk_fact, summary
@@ -31,12 +37,18 @@ from reporting.wording import shown_percent, shown_target_bpm
 __all__ = [
     "HTML_TEMPLATE",
     "TEXT_TEMPLATE",
+    "Audience",
     "Narrative",
     "Section",
     "build_narrative",
+    "computed_impression_text",
     "environment",
+    "impression_differs",
+    "impression_state_line",
     "narrative_html",
     "narrative_text",
+    "reader_impression_in_headline",
+    "reader_paragraphs",
     "risk_fact",
     "shown_percent",
     "shown_target_bpm",

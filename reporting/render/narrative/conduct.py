@@ -162,7 +162,7 @@ def vasodilator_sentence(v: VasodilatorSummary) -> str:
     return f"Vasodilator: {AGENT_WORDS[v.agent]}{dose}."
 
 
-def hr_recovery_verdict(s: StressResult) -> str:
+def hr_recovery_verdict(s: StressResult, cite: bool = True) -> str:
     """``: abnormal, at or below the stress-echo cut-off of 18 bpm (Watanabe J et al., Circulation 2001)``."""
     if s.hr_recovery_abnormal is None:
         return ""
@@ -171,6 +171,8 @@ def hr_recovery_verdict(s: StressResult) -> str:
         return ": abnormal" if s.hr_recovery_abnormal else ": normal"
     lab = s.hr_recovery_source is not None and s.hr_recovery_source.startswith(LAB_SETTING_PREFIX)
     source = " (lab setting)" if lab else f" ({WATANABE})"
+    if not cite:
+        source = ""
     if s.hr_recovery_abnormal:
         return f": abnormal, at or below the cut-off of {cut:g} bpm{source}"
     return f": normal, above the cut-off of {cut:g} bpm{source}"

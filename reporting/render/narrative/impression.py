@@ -13,7 +13,10 @@ a study with no stress stage says "no stress images"; risk bands follow the noni
 
 from __future__ import annotations
 
-from reporting.model import Stage
+from enum import StrEnum
+
+from reporting.model import STRESS_STAGES, Stage
+from reporting.notes import NoteKind
 from reporting.render.narrative.words import (
     EXTENT_WORDS,
     FINDING_LABELS,
@@ -22,6 +25,7 @@ from reporting.render.narrative.words import (
     lower_first,
     numbers,
     segments_phrase,
+    sentence_case,
 )
 from reporting.results import (
     Analysis,
@@ -35,8 +39,83 @@ from reporting.segments import Territory
 from reporting.wording import shown_percent, shown_target_bpm, stage_words
 
 
+class Question(StrEnum):
+    """What the referral question asks (decided from its words, else the indication's)."""
+
+    ISCHEMIA = "ischemia"
+    """Inducible ischaemia: where, how much, what risk."""
+    VIABILITY = "viability"
+    """Viable myocardium in segments abnormal at rest."""
+
+
+VIABILITY_WORDS = ("viab", "hibernat", "recover")
+
+
+def question(analysis: Analysis) -> Question:
+    """The kind of question the headline answers: the referral question, else the indication."""
+    study = analysis.study
+    text = (study.referral_question or study.indication or "").lower()
+    return Question.VIABILITY if any(w in text for w in VIABILITY_WORDS) else Question.ISCHEMIA
+
+
 def summary(analysis: Analysis) -> str:
-    """The one-sentence answer of the study."""
+    """The headline: the answer to the referral question first, then the ischaemia answer."""
+    if question(analysis) is Question.VIABILITY:
+        return f"{viability_answer(analysis)} {ischemia_answer(analysis)}"
+    return ischemia_answer(analysis)
+
+
+def viability_answer(analysis: Analysis) -> str:
+    """How many segments abnormal at rest are viable, and what that implies, cautiously."""
+    c = analysis.conclusion
+    by_response = {s.number: s.response for s in analysis.segments}
+    biphasic = [n for n in c.viable_segments if by_response[n] is WallMotionResponse.BIPHASIC]
+    sustained = [
+        n for n in c.viable_segments if by_response[n] is WallMotionResponse.SUSTAINED_IMPROVEMENT
+    ]
+    dysfunctional = len(abnormal_at_baseline(analysis))
+    if Stage.LOW_DOSE not in analysis.stages:
+        return "Viability not assessable: no low-dose stage was imaged."
+    if not dysfunctional:
+        return "Viability: no segment was abnormal at rest, so there was no dysfunctional myocardium to assess."
+    kinds = []
+    if biphasic:
+        kinds.append(f"biphasic in {segments_phrase(biphasic)}")
+    if sustained:
+        kinds.append(f"sustained improvement in {segments_phrase(sustained)}")
+    if not c.viable_segments:
+        return (
+            f"Viability: none of the {dysfunctional} segment{'s' if dysfunctional != 1 else ''} "
+            "abnormal at rest improved at low dose; recovery of their function after "
+            "revascularisation is unlikely."
+        )
+    viable = len(c.viable_segments)
+    head = (
+        f"Viability: {viable} of {dysfunctional} segment{'s' if dysfunctional != 1 else ''} "
+        f"abnormal at rest {'is' if viable == 1 else 'are'} viable ({'; '.join(kinds)})"
+    )
+    if any(n.kind is NoteKind.VIABILITY for n in analysis.notes):
+        return (
+            f"{head}; with {len(biphasic)} biphasic segments, recovery of global function after "
+            "revascularisation is likely, though not certain."
+        )
+    return (
+        f"{head}; fewer biphasic segments than predicted recovery of global function, so global "
+        "recovery is less likely, though viable segments may regain function."
+    )
+
+
+def abnormal_at_baseline(analysis: Analysis) -> list[int]:
+    """Segments abnormal (score above 1) at their baseline stage: the dysfunctional myocardium."""
+    return [
+        s.number
+        for s in analysis.segments
+        if s.baseline_stage is not None and (s.wall_motion.get(s.baseline_stage) or 0) > 1
+    ]
+
+
+def ischemia_answer(analysis: Analysis) -> str:
+    """Where, how much (extent in segments), and the risk band with its criteria."""
     c = analysis.conclusion
     if c.status is DiagnosticStatus.ISCHEMIA:
         wrap = set(c.wrap_around_segments)
@@ -52,21 +131,45 @@ def summary(analysis: Analysis) -> str:
                 f" {noun} (LAD, possibly wrapping around the apex: {segments_phrase(sorted(wrap))})"
             )
             noun = ""
-        pattern = "; multivessel pattern" if c.multivessel else ""
         count = len(c.ischemic_segments)
-        if c.ischemic_segment_count:
-            how = "" if c.ischemic_segment_count == count else " by wall motion or perfusion"
-            extent = f", {count} segment{'s' if count != 1 else ''}{how} ({EXTENT_WORDS[c.ischemia_extent]}{pattern})"
-        else:
-            extent = f" by reversible perfusion defects only, {count} segment{'s' if count != 1 else ''} ({EXTENT_WORDS[c.ischemia_extent]}{pattern})"
-        return (
-            f"Positive for inducible ischaemia in the {where}{' ' + noun if noun else ''}{extent}."
+        how = ""
+        if not c.ischemic_segment_count:
+            how = " by reversible perfusion defects only"
+        elif c.ischemic_segment_count != count:
+            how = " by wall motion or perfusion"
+        pattern = ", multivessel pattern" if c.multivessel else ""
+        extent = (
+            f"{EXTENT_WORDS[c.ischemia_extent]} ischaemia{how}: "
+            f"{count} segment{'s' if count != 1 else ''}{pattern}"
         )
-    if c.status is DiagnosticStatus.NO_ISCHEMIA:
-        return "Negative for inducible ischaemia at adequate stress."
-    if c.non_diagnostic_reason is NonDiagnosticReason.NO_STRESS_IMAGES:
-        return "Non-diagnostic for ischaemia: no stress images were recorded."
-    return f"Non-diagnostic for ischaemia: no ischaemia was shown, but {non_diagnostic_reason(analysis)}."
+        answer = f"Positive for inducible ischaemia in the {where}{' ' + noun if noun else ''}; {extent}."
+    elif c.status is DiagnosticStatus.NO_ISCHEMIA:
+        answer = "Negative for inducible ischaemia at adequate stress."
+    elif c.non_diagnostic_reason is NonDiagnosticReason.NO_STRESS_IMAGES:
+        answer = "Non-diagnostic for ischaemia: no stress images were recorded."
+    else:
+        answer = f"Non-diagnostic for ischaemia: no ischaemia was shown, but {non_diagnostic_reason(analysis)}."
+    risk = risk_clause(analysis)
+    return f"{answer} {risk}" if risk else answer
+
+
+def risk_clause(analysis: Analysis) -> str:
+    """``High risk: extensive ischaemia and multivessel pattern.``; nothing when not graded."""
+    c = analysis.conclusion
+    if c.risk is RiskLevel.NOT_GRADED:
+        return ""
+    labels = dict.fromkeys(lower_first(FINDING_LABELS[r.code]) for r in c.risk_criteria)
+    criteria = f": {numbers(labels)}" if labels else ""
+    return f"{c.risk.value.capitalize()} risk{criteria}."
+
+
+def unscored_stages(analysis: Analysis) -> list[Stage]:
+    """Stages with no wall-motion score at all: not scored yet (a draft), not 'not visualised'."""
+    return [
+        stage
+        for stage in analysis.stages
+        if all(s.wall_motion.get(stage) is None for s in analysis.segments)
+    ]
 
 
 def _ischemic_in(analysis: Analysis, territory: Territory) -> list[int]:
@@ -76,6 +179,11 @@ def _ischemic_in(analysis: Analysis, territory: Territory) -> list[int]:
 
 def non_diagnostic_reason(analysis: Analysis) -> str:
     s = analysis.stress
+    unscored = [st for st in unscored_stages(analysis) if st in STRESS_STAGES]
+    stressed = [st for st in analysis.stages if st in STRESS_STAGES]
+    if unscored and unscored == stressed:
+        words = numbers(stage_words(st, analysis.protocol) for st in unscored)
+        return f"{words} {'is' if len(unscored) == 1 else 'are'} not scored yet"
     if analysis.conclusion.non_diagnostic_reason is NonDiagnosticReason.TERRITORY_NOT_ASSESSABLE:
         unread = [
             t.value
@@ -111,12 +219,25 @@ def impression(analysis: Analysis) -> list[str]:
         paragraphs.append(
             f"Akinesis turning dyskinetic at stress in {segments_phrase(dysk)}: a mechanical finding, not counted as ischaemia."
         )
-    shared = [s.number for s in analysis.segments if s.shared_supply]
-    text = f"Territories follow the map '{analysis.territory_map.title}'"
+    paragraphs.append(f"Territories follow the map '{analysis.territory_map.title}'.")
+    shared = shared_supply_sentence(analysis)
     if shared:
-        text += f"; {segments_phrase(shared)} are often supplied by another artery"
-    paragraphs.append(text + ".")
+        paragraphs.append(shared)
     return paragraphs
+
+
+def shared_supply_sentence(analysis: Analysis) -> str:
+    """Only when a segment the conclusion rests on is often supplied by another artery."""
+    matters = set(analysis.conclusion.ischemic_segments) | set(analysis.conclusion.viable_segments)
+    shared = [s for s in analysis.segments if s.shared_supply and s.number in matters]
+    if not shared:
+        return ""
+    others = " or ".join(dict.fromkeys(t.value for s in shared for t in s.shared_supply))
+    verb = "is" if len(shared) == 1 else "are"
+    return (
+        f"{sentence_case(segments_phrase([s.number for s in shared]))} {verb} often supplied by "
+        f"another artery ({others}), so the territory named is the usual one, not a certain one."
+    )
 
 
 def territory_sentence(analysis: Analysis, territory: Territory) -> str:
@@ -185,7 +306,11 @@ def territory_sentence(analysis: Analysis, territory: Territory) -> str:
             f"abnormal from low dose without a rest view in {segments_phrase(at_low)} (review)"
         )
     unseen = having(WallMotionResponse.NOT_ASSESSABLE)
-    if t.status is TerritoryStatus.NON_DIAGNOSTIC:
+    pending = [st for st in unscored_stages(analysis) if st in STRESS_STAGES]
+    if t.status is TerritoryStatus.NON_DIAGNOSTIC and pending:
+        words = numbers(stage_words(st, analysis.protocol) for st in pending)
+        parts.append(f"not assessable yet ({words} not scored yet)")
+    elif t.status is TerritoryStatus.NON_DIAGNOSTIC:
         parts.append("non-diagnostic (no segment seen at both baseline and stress)")
     elif unseen and len(unseen) == len(mine):
         parts.append("wall motion not assessable (segments not seen at baseline and stress)")

@@ -11,6 +11,7 @@ from __future__ import annotations
 from reporting.kinetics.models import ReserveFlag
 from reporting.model import Stage
 from reporting.render.narrative.conduct import hr_recovery_verdict
+from reporting.render.narrative.methods import DUKE_SOURCE
 from reporting.render.narrative.words import (
     ANGINA_WORDS,
     FORMULA_WORDS,
@@ -30,8 +31,11 @@ from reporting.segments import Territory
 from reporting.wording import shown_percent, shown_target_bpm, stage_words
 
 
-def stress_paragraphs(analysis: Analysis) -> list[str]:
-    """The protocol sentence first (the PDF header reuses it), then adequacy and exercise results."""
+def stress_paragraphs(analysis: Analysis, cite: bool = True) -> list[str]:
+    """The protocol sentence first (the PDF header reuses it), then adequacy and exercise results.
+
+    Without ``cite`` (the referrer's pages) sources and formulas are left to the Methods line.
+    """
     s = analysis.stress
     peak = analysis.haemodynamics.get(Stage.PEAK)
     opening = PROTOCOL_WORDS[analysis.protocol]
@@ -55,8 +59,8 @@ def stress_paragraphs(analysis: Analysis) -> list[str]:
         )
         paragraphs.append(
             f"Peak heart rate {s.peak_hr_bpm} bpm, {shown_percent(s.peak_hr_percent_of_predicted)} % "
-            f"of the age-predicted maximum of {s.age_predicted_max_hr_bpm:.0f} bpm "
-            f"({FORMULA_WORDS[s.heart_rate_formula]}); the target of "
+            f"of the age-predicted maximum of {s.age_predicted_max_hr_bpm:.0f} bpm"
+            f"{f' ({FORMULA_WORDS[s.heart_rate_formula]})' if cite else ''}; the target of "
             f"{shown_target_bpm(s.target_hr_bpm)} bpm ({100 * s.target_fraction:.0f} %) {verdict}."
         )
     else:
@@ -70,14 +74,15 @@ def stress_paragraphs(analysis: Analysis) -> list[str]:
         paragraphs.append(exercise)
     if s.duke_treadmill_score is not None and s.duke_risk is not None:
         paragraphs.append(
-            f"Duke treadmill score {signed(s.duke_treadmill_score)}: {s.duke_risk.value} risk (Mark DB et al., NEJM 1991)."
+            f"Duke treadmill score {signed(s.duke_treadmill_score)}: {s.duke_risk.value} risk"
+            f"{f' ({DUKE_SOURCE})' if cite else ''}."
         )
     if s.mets is not None:
         paragraphs.append(f"Estimated workload {s.mets:g} METs.")
     if s.hr_recovery_1min_bpm is not None:
         paragraphs.append(
             f"Heart-rate recovery {signed(s.hr_recovery_1min_bpm)} bpm in the first minute after exercise"
-            f"{hr_recovery_verdict(s)}."
+            f"{hr_recovery_verdict(s, cite)}."
         )
     return paragraphs
 
@@ -99,7 +104,7 @@ def wall_motion_paragraphs(analysis: Analysis) -> list[str]:
     out = []
     for stage in analysis.stages:
         if stage not in analysis.segments[0].wall_motion:
-            text = f"{stage_label(analysis, stage)}: wall motion not scored."
+            text = f"{stage_label(analysis, stage)}: wall motion not scored yet."
         else:
             text = f"{stage_label(analysis, stage)}: {stage_wall_motion(analysis, stage)}"
         h = analysis.haemodynamics.get(stage)
@@ -122,8 +127,8 @@ def stage_wall_motion(analysis: Analysis, stage: Stage) -> str:
     seen = [n for n, v in scores.items() if v is not None]
     unseen = [n for n, v in scores.items() if v is None]
     total = len(scores)
-    if not seen:
-        return f"no segment was visualised ({total} of {total} not visualised); wall motion cannot be assessed."
+    if not seen:  # a draft's empty stage, or every segment "x": never claim all were unseen
+        return "wall motion not scored yet (no segment has a score)."
     wmsi = analysis.wmsi.get(stage)
     wmsi_text = f"WMSI {wmsi:.2f}" if wmsi is not None else "WMSI not computed"
     abnormal = {n: v for n, v in scores.items() if v is not None and v > 1}
@@ -157,7 +162,7 @@ def perfusion_paragraphs(analysis: Analysis) -> list[str]:
         absent = [n for n, v in scores.items() if v == 3]
         label = sentence_case(stage_words(stage, analysis.protocol))
         if not seen:
-            out.append(f"{label}: perfusion not assessable (no segment visualised).")
+            out.append(f"{label}: perfusion not scored yet (no segment has a score).")
             continue
         parts = []
         if not reduced and not absent:
@@ -204,12 +209,17 @@ def perfusion_paragraphs(analysis: Analysis) -> list[str]:
     return out
 
 
-def kinetics_paragraphs(analysis: Analysis) -> list[str]:
-    """Fitted replenishment: reserve per territory, low segments, visual cross-checks."""
+def kinetics_paragraphs(analysis: Analysis, cite: bool = True, checks: bool = True) -> list[str]:
+    """Fitted replenishment: reserve per territory, low segments, visual cross-checks.
+
+    Without ``cite`` the fitted formula is left to the curve caption and the Methods line; without
+    ``checks`` the fit-quality cross-checks (reader notes) are left out.
+    """
     k = analysis.kinetics
     if k is None:
         return []
-    out = [f"{k.fits_ok} of {k.fits_total} curves fitted well to {k.model}."]
+    model = f" to {k.model}" if cite else ""
+    out = [f"{k.fits_ok} of {k.fits_total} curves fitted well{model}."]
     for territory in Territory:
         t = k.territory_reserve.get(territory)
         if t is None or not t.count or t.A_beta_reserve is None:
@@ -225,5 +235,6 @@ def kinetics_paragraphs(analysis: Analysis) -> list[str]:
     low = [r.number for r in k.reserve if ReserveFlag.LOW_A_BETA_RESERVE in r.flags]
     if low:
         out.append(f"Segment A·β reserve below the cut-off in {segments_phrase(low)}.")
-    out += [c.text for c in k.cross_checks]
+    if checks:
+        out += [c.text for c in k.cross_checks]
     return out

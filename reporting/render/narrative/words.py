@@ -21,9 +21,9 @@ from reporting.wording import WALL_MOTION_WORDS as WALL_MOTION_WORDS
 from reporting.wording import sentence_case as sentence_case
 from reporting.wording import stage_words
 
-EXTENT_WORDS = {
-    IschemiaExtent.MILD: "mild extent",
-    IschemiaExtent.MODERATE_SEVERE: "moderate–severe extent",
+EXTENT_WORDS = {  # extent by segment count (Kataoka 2015: 1–2, ≥ 3), never severity
+    IschemiaExtent.MILD: "limited",
+    IschemiaExtent.MODERATE_SEVERE: "extensive",
 }
 FINDING_LABELS = {
     FindingCode.LOW_THRESHOLD_ISCHEMIA: "Ischaemia at a low threshold",

@@ -96,6 +96,10 @@ def free_text_fields(analysis: Analysis) -> list[tuple[str, str | None]]:
         ("study.referring_physician", study.referring_physician),
         ("indication", study.indication),
         ("comments", study.comments),
+        ("referral_question", study.referral_question),
+        ("impression", study.impression),
+        ("recommendations", study.recommendations),
+        ("other_findings", study.other_findings),
         ("contrast.agent", analysis.contrast_agent),
         ("territory_map.title", analysis.territory_map.title),
     ]

@@ -111,6 +111,26 @@ def referral_line(analysis: Analysis, st: Styles) -> list[Flowable]:
     return [labelled("Referral question", question, st)] if question else []
 
 
+def headline(analysis: Analysis, st: Styles) -> list[Flowable]:
+    """The answer: the reader's impression when short enough for the box, else the computed
+    headline; then the computed findings when the reader's words differ, and the mark of an
+    impression written against earlier findings."""
+    state = narrative.impression_state_line(analysis)
+    out: list[Flowable] = []
+    if state:
+        out.append(paragraph(state, st["summary"]))
+    if narrative.reader_impression_in_headline(analysis):
+        words = narrative.reader_paragraphs(analysis.study.impression)
+        out += [paragraph(w, st["summary"]) for w in words]
+        if narrative.impression_differs(analysis):
+            out.append(paragraph(f"Computed findings: {narrative.summary(analysis)}", st["small"]))
+        return out
+    out.append(paragraph(narrative.summary(analysis), st["summary"]))
+    if analysis.study.impression:
+        out.append(paragraph("The reader's impression follows under Impression.", st["small"]))
+    return out
+
+
 def answer_box(analysis: Analysis, width: float, st: Styles) -> Table:
     c = analysis.conclusion
     facts = []
@@ -134,14 +154,7 @@ def answer_box(analysis: Analysis, width: float, st: Styles) -> Table:
         f"{count} high-risk finding{'s' if count != 1 else ''}" if count else "no high-risk finding"
     )
     box = Table(
-        [
-            [
-                [
-                    paragraph(narrative.summary(analysis), st["summary"]),
-                    paragraph(sentence("; ".join(facts)), st["body"]),
-                ]
-            ]
-        ],
+        [[[*headline(analysis, st), paragraph(sentence("; ".join(facts)), st["body"])]]],
         colWidths=[width],
     )
     box.setStyle(

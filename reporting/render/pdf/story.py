@@ -29,6 +29,7 @@ from reporting.render.vector import DrawingFlowable
 from reporting.results import Analysis
 
 MAPS_PER_ROW = 4
+METHODS_HEADING = "Methods"
 
 
 def build_story(
@@ -58,8 +59,14 @@ def build_story(
     if exercise is not None:
         stress_block += [Spacer(1, 4), exercise]
     story.append(KeepTogether(stress_block))
-    text = narrative.narrative_text(analysis, templates_dir, include_cautions=False)
-    for heading, paragraphs in narrative.text_blocks(text):
+    text = narrative.narrative_text(
+        analysis, templates_dir, include_cautions=False, audience=narrative.Audience.REFERRER
+    )
+    blocks = narrative.text_blocks(text)
+    methods = [b for b in blocks if b[0] == METHODS_HEADING]
+    for heading, paragraphs in blocks:
+        if heading == METHODS_HEADING:
+            continue
         block: list[Flowable] = [section_heading(heading, st)]
         block += [paragraph(p, st["para"]) for p in paragraphs]
         story.append(KeepTogether(block[:2]))
@@ -74,6 +81,9 @@ def build_story(
             ]
         )
     )
+    for _, paragraphs in methods:  # one line at the end: sources and formulas
+        story.append(Spacer(1, 3))
+        story += [paragraph(f"{METHODS_HEADING}. {p}", st["small"]) for p in paragraphs]
     story.append(Spacer(1, 8))
     story.append(
         _sign_off(analysis, width, st) if signature is None else signed_block(signature, width, st)

@@ -1,0 +1,157 @@
+"""The reader's impression and the computed findings it was written against.
+
+The computed narrative is a draft; the reader accepts, edits or replaces it, and the study file then
+keeps the reader's ``impression``/``recommendations`` beside ``impression_basis_sha256``: the SHA-256
+of the findings the reader saw. When the scores change afterwards, the hash of the findings computed
+now differs, the record's ``impression_status`` reads ``stale`` and the PDF says the impression was
+written against earlier findings, until the reader confirms it again (:func:`confirm_impression`).
+The store refuses to sign while :func:`impression_is_stale` is true.
+
+What is hashed (basis version 1, :func:`findings_basis`): a JSON object of the findings, not of their
+wording, so a release that only rewords sentences keeps impressions current:
+
+- ``basis``: the string ``"segreport-findings-1"``;
+- ``segment_model``: 16, 17 or 18;
+- ``segments``: per segment in number order ``{"number", "response", "perfusion_response",
+  "wall_motion": {stage: score|null}, "perfusion": {stage: score|null}}``;
+- ``territories``: ``{territory: status}``;
+- ``perfusion``: reversible, partially reversible and fixed segment lists;
+- ``stress_adequate``: true, false or null;
+- ``conclusion``: status, non-diagnostic reason, ischaemic segments and territories, extent,
+  multivessel, wrap-around, viable, fixed and akinetic-to-dyskinetic segments, the risk band and the
+  sorted codes of its criteria and of the high-risk findings.
+
+Every value is a string, an integer, a boolean or null (no floats, so no platform rounding); the
+object is serialised with ``json.dumps(sort_keys=True, separators=(",", ":"), ensure_ascii=True)``
+and hashed as UTF-8. The key order of the study file, the order of its stages and any free text
+do not enter the hash.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import logging
+from typing import Any
+
+from reporting.model import Study
+from reporting.results import Analysis, ImpressionStatus
+
+log = logging.getLogger(__name__)
+
+BASIS_VERSION = "segreport-findings-1"
+
+
+def findings_basis(analysis: Analysis) -> dict[str, Any]:
+    """The canonical findings that an impression is written against (see the module text)."""
+    c = analysis.conclusion
+    p = analysis.perfusion
+    return {
+        "basis": BASIS_VERSION,
+        "segment_model": int(analysis.segment_model),
+        "segments": [
+            {
+                "number": s.number,
+                "response": s.response.value,
+                "perfusion_response": s.perfusion_response.value
+                if s.perfusion_response is not None
+                else None,
+                "wall_motion": {k.value: v for k, v in s.wall_motion.items()},
+                "perfusion": {k.value: v for k, v in s.perfusion.items()},
+            }
+            for s in sorted(analysis.segments, key=lambda s: s.number)
+        ],
+        "territories": {t.value: r.status.value for t, r in analysis.territories.items()},
+        "perfusion": {
+            "reversible": sorted(p.reversible_segments),
+            "partially_reversible": sorted(p.partially_reversible_segments),
+            "fixed": sorted(p.fixed_segments),
+        },
+        "stress_adequate": analysis.stress.adequate,
+        "conclusion": {
+            "status": c.status.value,
+            "non_diagnostic_reason": c.non_diagnostic_reason.value
+            if c.non_diagnostic_reason is not None
+            else None,
+            "ischemic_segments": sorted(c.ischemic_segments),
+            "ischemic_territories": sorted(t.value for t in c.ischemic_territories),
+            "ischemia_extent": c.ischemia_extent.value,
+            "multivessel": c.multivessel,
+            "wrap_around_segments": sorted(c.wrap_around_segments),
+            "viable_segments": sorted(c.viable_segments),
+            "fixed_segments": sorted(c.fixed_segments),
+            "akinetic_to_dyskinetic_segments": sorted(c.akinetic_to_dyskinetic_segments),
+            "risk": c.risk.value,
+            "risk_criteria": sorted(r.code.value for r in c.risk_criteria),
+            "high_risk_findings": sorted(f.code.value for f in c.high_risk_findings),
+        },
+    }
+
+
+def canonical_bytes(basis: dict[str, Any]) -> bytes:
+    """The exact bytes hashed: sorted keys, no spaces, ASCII escapes."""
+    return json.dumps(basis, sort_keys=True, separators=(",", ":"), ensure_ascii=True).encode()
+
+
+def findings_sha256(analysis: Analysis) -> str:
+    """SHA-256 (lower-case hex) of the canonical findings of ``analysis``."""
+    return hashlib.sha256(canonical_bytes(findings_basis(analysis))).hexdigest()
+
+
+def impression_status(analysis: Analysis, current_sha256: str) -> ImpressionStatus:
+    """Compare the study's basis hash with the findings computed now."""
+    study = analysis.study
+    basis = study.impression_basis_sha256
+    if basis is None:
+        written = bool((study.impression or "").strip() or (study.recommendations or "").strip())
+        return ImpressionStatus.UNCONFIRMED if written else ImpressionStatus.NONE
+    return ImpressionStatus.CURRENT if basis == current_sha256 else ImpressionStatus.STALE
+
+
+def with_impression_state(analysis: Analysis) -> Analysis:
+    """``analysis`` with its computed impression, findings hash and impression status filled in."""
+    from reporting.render.narrative import computed_impression_text
+
+    digest = findings_sha256(analysis)
+    status = impression_status(analysis, digest)
+    if status is ImpressionStatus.STALE:
+        log.info(
+            "%s: the reader's impression was written against earlier findings", analysis.study.id
+        )
+    return analysis.model_copy(
+        update={
+            "computed_impression": computed_impression_text(analysis),
+            "findings_sha256": digest,
+            "impression_status": status,
+        }
+    )
+
+
+def impression_is_stale(analysis: Analysis) -> bool:
+    """True when the reader's impression was written against findings that have changed since.
+
+    The one test the store and the entry page use before signing.
+    """
+    return analysis.impression_status is ImpressionStatus.STALE
+
+
+def needs_confirmation(analysis: Analysis) -> bool:
+    """True when the reader wrote words that are stale or were never confirmed."""
+    return analysis.impression_status in (ImpressionStatus.STALE, ImpressionStatus.UNCONFIRMED)
+
+
+def confirm_impression(study: Study, analysis: Analysis) -> Study:
+    """``study`` with the impression confirmed against ``analysis`` (the analysis of that study).
+
+    Sets ``impression_basis_sha256`` to the findings hash and ``computed_impression`` to the
+    computed findings text the reader confirmed against.
+    """
+    if analysis.study.id != study.study.id:
+        raise ValueError(f"analysis of {analysis.study.id} does not belong to {study.study.id}")
+    digest = analysis.findings_sha256 or findings_sha256(analysis)
+    text = analysis.computed_impression
+    if not text:
+        from reporting.render.narrative import computed_impression_text
+
+        text = computed_impression_text(analysis)
+    return study.model_copy(update={"impression_basis_sha256": digest, "computed_impression": text})
