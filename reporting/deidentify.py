@@ -129,6 +129,8 @@ def deidentify(analysis: Analysis, key: bytes, *, keep_text: bool = False) -> An
         report_status=study.report_status,
         indication=study.indication if keep_text else None,
         comments=study.comments if keep_text else None,
+        impression_basis_sha256=study.impression_basis_sha256,  # a hash of coded findings
+        kept_notes=list(study.kept_notes),
         deidentified=True,
     )
     patient = analysis.patient
@@ -156,7 +158,7 @@ def deidentify(analysis: Analysis, key: bytes, *, keep_text: bool = False) -> An
         # A lab names curve files after the study or the patient; the name also sits in locations.
         kinetics = _replaced(kinetics, kinetics.source_file, CURVE_FILE_PLACEHOLDER)
         kinetics = kinetics.model_copy(update={"source_file": None})
-    return analysis.model_copy(
+    result = analysis.model_copy(
         update={
             "study": header,
             "patient": summary,
@@ -166,6 +168,11 @@ def deidentify(analysis: Analysis, key: bytes, *, keep_text: bool = False) -> An
             "kinetics": kinetics,
         }
     )
+    # The computed findings text quotes heart-rate figures that can give a withheld age back:
+    # write it again from the de-identified values.
+    from reporting.render.narrative import computed_impression_text
+
+    return result.model_copy(update={"computed_impression": computed_impression_text(result)})
 
 
 def _replaced(model: M, old: str, new: str) -> M:

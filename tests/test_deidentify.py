@@ -358,6 +358,11 @@ REVIEWED = {
     "study.impression": "removed (free text; deidentify builds the header without it)",
     "study.recommendations": "removed (free text; deidentify builds the header without it)",
     "study.other_findings": "removed (free text; deidentify builds the header without it)",
+    "study.computed_impression": "removed (the text the reader confirmed; may quote heart-rate "
+    "figures that give a withheld age back)",
+    "study.impression_basis_sha256": "kept: SHA-256 of coded findings, no identifier",
+    "computed_impression": "regenerated from the de-identified record",
+    "findings_sha256": "kept: SHA-256 of coded findings, no identifier",
     "patient.id": "keyed hash",
     "patient.name": "removed",
     "patient.birth_date": "removed",
