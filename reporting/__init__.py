@@ -26,6 +26,9 @@ __all__ = [
     "__version__",
     "analyze",
     "analyze_file",
+    "confirm_impression",
+    "findings_sha256",
+    "impression_is_stale",
     "load_settings",
     "load_study",
     "record_json",
@@ -40,6 +43,9 @@ _LAZY = {
     "Study": "reporting.model",
     "analyze": "reporting.analysis",
     "analyze_file": "reporting.analysis",
+    "confirm_impression": "reporting.impression",
+    "findings_sha256": "reporting.impression",
+    "impression_is_stale": "reporting.impression",
     "load_settings": "reporting.settings",
     "load_study": "reporting.load",
     "record_json": "reporting.export.record",
@@ -49,6 +55,7 @@ if TYPE_CHECKING:
     from reporting.analysis import analyze, analyze_file
     from reporting.errors import InputError, InputErrors, ReportingError
     from reporting.export.record import record_json
+    from reporting.impression import confirm_impression, findings_sha256, impression_is_stale
     from reporting.load import load_study
     from reporting.model import Study
     from reporting.results import Analysis

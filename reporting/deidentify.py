@@ -303,7 +303,13 @@ def deidentify(analysis: Analysis, key: bytes, *, keep_text: bool = False) -> An
     if analysis.study.deidentified:
         return analysis
     context = _Context(analysis, key, keep_text)
-    return Analysis.model_validate(_apply(analysis, "", context))
+    result = Analysis.model_validate(_apply(analysis, "", context))
+    # The computed findings text names the territory map and quotes heart-rate figures that can
+    # give a withheld age back: the walk empties it, and it is written again from the
+    # de-identified values.
+    from reporting.render.narrative import computed_impression_text
+
+    return result.model_copy(update={"computed_impression": computed_impression_text(result)})
 
 
 def _apply(model: BaseModel, prefix: str, context: _Context) -> dict[str, Any]:
@@ -384,8 +390,9 @@ GENERALISERS: dict[str, Callable[[Any, _Context], Any]] = {
     "territory_map_title": lambda v, c: c.territory_map.title,
     "territory_map_source": lambda v, c: c.territory_map.source,
     "curve_file_replaced": _curve_file_replaced,
-    # Computed text that may quote a lab map's title or reveal an age over 89: left empty.
-    "blanked": lambda v, c: "",
+    # Computed text that may quote a lab map's title or reveal an age over 89: emptied here and
+    # written again from the de-identified analysis (see deidentify()).
+    "recomputed": lambda v, c: "",
 }
 """The rules a ``generalised`` record field may name in ``data/deidentify_fields.csv``."""
 

@@ -400,7 +400,9 @@ def test_narrative_gives_the_conduct_and_the_readers_text_in_their_sections() ->
         "Image quality: good at rest, adequate at peak exercise.",
     ]
     data = _demo("DEMO-0004")
-    assert blocks["Reader's impression"] == [data["impression"].strip()]
+    # the reader's words are the impression; the computed findings follow under their own heading
+    assert blocks["Impression"] == [data["impression"].strip()]
+    assert blocks["Computed findings"][0].startswith("Positive for inducible ischaemia")
     assert blocks["Recommendations"] == [data["recommendations"].strip()]
     assert blocks["Other echocardiographic findings"] == [data["other_findings"]]
 
@@ -419,9 +421,9 @@ def test_vasodilator_sentence_gives_agent_dose_and_unit() -> None:
 
 def test_reader_sections_follow_the_computed_impression_and_are_left_out_when_absent() -> None:
     keys = [s.key for s in build_narrative(_full_demo_0004()).sections]
-    assert keys[:4] == ["impression", "reader_impression", "recommendations", "stress"]
+    assert keys[:4] == ["impression", "recommendations", "computed_findings", "stress"]
     keys = [s.key for s in build_narrative(_analysed()).sections]
-    assert not {"reader_impression", "recommendations", "conduct", "other_findings"} & set(keys)
+    assert not {"computed_findings", "recommendations", "conduct", "other_findings"} & set(keys)
 
 
 def test_pdf_shows_the_study_data() -> None:
@@ -429,7 +431,7 @@ def test_pdf_shows_the_study_data() -> None:
     data = _demo("DEMO-0004")
     for expected in (
         f"Referral question: {data['referral_question']}",
-        "Reader's impression",
+        "Computed findings",
         data["impression"].strip(),
         "Recommendations",
         data["recommendations"].strip(),

@@ -11,25 +11,25 @@ from reporting.notes import REFERRER_NOTES
 from reporting.render.narrative.words import FORMULA_WORDS
 from reporting.results import Analysis
 
-SEGMENT_SOURCE = "segments and nomenclature: Cerqueira MD et al., Circulation 2002"
-SCORING_SOURCE = "wall-motion scores and WMSI: Lang RM et al., JASE 2015"
-RESPONSE_SOURCE = "segment responses to stress: Marwick TH, Heart 2003"
-EXTENT_SOURCE = "extent of ischaemia (1–2 limited, 3 or more extensive segments): Kataoka A et al., Cardiovasc Ultrasound 2015"
-RISK_SOURCE = "risk bands: noninvasive risk tables (Fihn SD et al., Circulation 2012)"
+SEGMENT_SOURCE = "Cerqueira MD et al., Circulation 2002"
+SCORING_SOURCE = "wall-motion scores: Lang RM et al., JASE 2015"
+RESPONSE_SOURCE = "responses to stress: Marwick TH, Heart 2003"
+EXTENT_SOURCE = "extent (1–2 segments limited, 3 or more extensive): Kataoka A et al., Cardiovasc Ultrasound 2015"
+RISK_SOURCE = "risk bands: Fihn SD et al., Circulation 2012"
 DUKE_SOURCE = "Mark DB et al., NEJM 1991"
-KINETICS_SOURCE = "Wei K et al., Circulation 1998"
 
 
 def sources(analysis: Analysis) -> list[str]:
     """Methods and sources, each once, in reading order."""
     out = [
-        f"{int(analysis.segment_model)}-segment model; " + SEGMENT_SOURCE,
-        f"territory map: {analysis.territory_map.title} ({analysis.territory_map.source})",
+        f"{int(analysis.segment_model)}-segment model: {SEGMENT_SOURCE}",
+        f"territory map: {analysis.territory_map.title}",  # its full source stays in the record
         SCORING_SOURCE,
         RESPONSE_SOURCE,
-        EXTENT_SOURCE,
-        RISK_SOURCE,
     ]
+    if analysis.conclusion.ischemic_segments:
+        out.append(EXTENT_SOURCE)
+    out.append(RISK_SOURCE)
     s = analysis.stress
     if s.heart_rate_target_applies and s.age_predicted_max_hr_bpm is not None:
         out.append(f"age-predicted maximum heart rate: {FORMULA_WORDS[s.heart_rate_formula]}")
@@ -45,6 +45,5 @@ def sources(analysis: Analysis) -> list[str]:
         for n in analysis.notes
         if n.source and (n.kind in REFERRER_NOTES or n.kind in analysis.study.kept_notes)
     ]
-    if analysis.kinetics is not None:
-        out.append(f"replenishment curves fitted to {analysis.kinetics.model}: {KINETICS_SOURCE}")
+    # the fitted formula and its source stand in the caption of the curve page
     return list(dict.fromkeys(x.strip().rstrip(".") for x in out if x and x.strip()))
