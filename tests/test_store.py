@@ -7,6 +7,7 @@ the statuses and the signature manifestation checked here.
 
 from __future__ import annotations
 
+import copy
 import io
 from pathlib import Path
 
@@ -210,17 +211,19 @@ def test_amending_an_unsigned_study_is_refused(db: Database, tmp_path: Path) -> 
         signing.amend(db, "DEMO-0001", login(db), addendum="note", origin=CLI)
 
 
-def test_stale_impression_blocks_signing(
-    monkeypatch: pytest.MonkeyPatch, db: Database, tmp_path: Path
-) -> None:
-    # Issue #13 adds the marker to studies; until then the seam is exercised with a stand-in.
-    imported(db, tmp_path)
-    monkeypatch.setattr(signing, "impression_marker", lambda study: "a" * 64)
-    monkeypatch.setattr(signing, "findings_hash", lambda study: "b" * 64)
+def test_stale_impression_blocks_signing(db: Database, tmp_path: Path) -> None:
+    # DEMO-0004 carries the hash of the findings its impression was written against (issue #13).
+    data = study_data("DEMO-0004")
+    peak = data["stages"]["peak"]
+    assert isinstance(peak["wall_motion"], str)
+    changed = copy.deepcopy(data)
+    # bad: segment 1 made akinetic at peak after the reader wrote the impression
+    changed["stages"]["peak"]["wall_motion"] = "3" + peak["wall_motion"][1:]
+    imported(db, tmp_path, changed)
     with pytest.raises(StoreError, match="written against earlier findings"):
-        signing.sign(db, "DEMO-0001", login(db), origin=CLI)
-    monkeypatch.setattr(signing, "findings_hash", lambda study: "a" * 64)
-    assert signing.sign(db, "DEMO-0001", login(db), origin=CLI).version == 1
+        signing.sign(db, "DEMO-0004", login(db), origin=CLI)
+    imported(db, tmp_path, data)  # the scores as the reader saw them: a new unsigned version
+    assert signing.sign(db, "DEMO-0004", login(db), origin=CLI).version == 2
 
 
 def test_prior_study_is_the_latest_earlier_signed_study_of_the_patient(

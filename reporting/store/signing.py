@@ -19,7 +19,7 @@ from pathlib import Path
 from sqlalchemy.orm import Session
 
 from reporting.errors import InputError
-from reporting.model import Study
+from reporting.impression import impression_is_stale
 from reporting.render.pdf.signature import Addendum, SignatureBlock
 from reporting.store import audit, content, versions
 from reporting.store.canonical import Origin, now, sha256_hex
@@ -34,29 +34,10 @@ log = logging.getLogger(__name__)
 DEFAULT_MEANING = "reviewed and approved as the final report"
 
 
-def impression_marker(study: Study) -> str | None:
-    """The hash of the findings the reader's impression was written against, when recorded.
-
-    Seam for issue #13: the study will keep that hash; until then studies carry none.
-    """
-    marker = getattr(study, "impression_findings_sha256", None)
-    return marker if isinstance(marker, str) else None
-
-
-def stale_impression(study: Study, current_findings_sha256: str | None) -> str | None:
-    """Why signing must wait, when the impression was written against other findings; else None."""
-    marker = impression_marker(study)
-    if marker is None or current_findings_sha256 is None or marker == current_findings_sha256:
-        return None
-    return (
-        "the impression was written against earlier findings (the scores changed since); "
-        "review the impression before signing"
-    )
-
-
-def findings_hash(study: Study) -> str | None:
-    """The hash of the computed findings the marker is compared with (defined by issue #13)."""
-    return None
+STALE_IMPRESSION = (
+    "the impression was written against earlier findings (the scores changed since); "
+    "the reader must review and confirm it before signing"
+)
 
 
 @dataclass(frozen=True)
@@ -101,10 +82,9 @@ def _render(
     from reporting.export.record import record_json
     from reporting.render.pdf import pdf_bytes
 
-    problem = stale_impression(stored.study, findings_hash(stored.study))
-    if problem is not None:
-        raise StoreError(f"study {stored.study_id}", problem)
     analysis = content.analyse(stored, final=True)
+    if impression_is_stale(analysis):
+        raise StoreError(f"study {stored.study_id}", STALE_IMPRESSION)
     record = record_json(analysis).encode()
     block = SignatureBlock(
         signer_name=who.full_name,
