@@ -470,7 +470,7 @@ class Study(_Input):
         frozen=True,
         str_strip_whitespace=True,
         allow_inf_nan=False,
-        json_schema_extra={"$id": "https://segreport.invalid/schemas/study-1.schema.json"},
+        json_schema_extra={"$id": "urn:segreport:schemas:study-1.schema.json"},
     )
 
     schema_version: Annotated[Literal[1], BeforeValidator(_not_boolean)] = Field(

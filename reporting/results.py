@@ -33,7 +33,7 @@ from reporting.settings import HeartRateFormula
 from reporting.stress import DukeRisk
 
 RECORD_SCHEMA_VERSION = 1
-RECORD_SCHEMA_ID = f"https://segreport.invalid/schemas/record-{RECORD_SCHEMA_VERSION}.schema.json"
+RECORD_SCHEMA_ID = f"urn:segreport:schemas:record-{RECORD_SCHEMA_VERSION}.schema.json"
 
 
 class _Result(BaseModel):

@@ -14,7 +14,7 @@ from reporting.model import Study
 from reporting.results import RECORD_SCHEMA_VERSION, Analysis
 
 SCHEMA_DIALECT = "https://json-schema.org/draft/2020-12/schema"
-SCHEMA_BASE = "https://segreport.invalid/schemas"
+SCHEMA_BASE = "urn:segreport:schemas"  # a name, not a location: the schemas ship in schemas/
 
 
 def record_dict(analysis: Analysis) -> dict[str, Any]:
@@ -57,7 +57,7 @@ def agreement_schema() -> dict[str, Any]:
 
 
 def _published(schema: dict[str, Any], name: str) -> dict[str, Any]:
-    return {"$schema": SCHEMA_DIALECT, "$id": f"{SCHEMA_BASE}/{name}", **schema}
+    return {"$schema": SCHEMA_DIALECT, "$id": f"{SCHEMA_BASE}:{name}", **schema}
 
 
 SCHEMAS = {
