@@ -171,21 +171,35 @@ def validate(
     type=click.Path(exists=True, file_okay=False, path_type=Path),
     help="Lab template folder; its files override the packaged narrative templates.",
 )
+@click.option(
+    "--prior",
+    "prior_path",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="The patient's prior study (a study file or an analysis record JSON) to compare with.",
+)
 @_lab_options
 def report(
     study: Path,
     outdir: Path,
     paper: str,
     templates_dir: Path | None,
+    prior_path: Path | None,
     settings_path: Path | None,
     territory_map: str | None,
 ) -> None:
-    """Write the record, bull's-eye maps (SVG) and referring-doctor PDF of STUDY into OUTDIR."""
-    from reporting.analysis import analyze_file
+    """Write the record, bull's-eye maps (SVG) and referring-doctor PDF of STUDY into OUTDIR.
+
+    With --prior, the record and the PDF compare STUDY with the patient's earlier study.
+    """
+    from reporting.analysis import analyze_file, load_prior
+    from reporting.comparison import with_comparison
     from reporting.render import write_report
 
     with _user_errors():
         analysis = analyze_file(study, settings_path=settings_path, territory_map=territory_map)
+        if prior_path is not None:
+            prior = load_prior(prior_path, settings_path=settings_path, territory_map=None)
+            analysis = with_comparison(analysis, prior, location=f"--prior {prior_path}")
         for path in write_report(analysis, outdir, paper=paper, templates_dir=templates_dir):
             click.echo(f"Wrote {path}")
 

@@ -14,6 +14,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from reporting.comparison import Comparison
 from reporting.kinetics.models import KineticsResult
 from reporting.model import Order, Protocol, ReportStatus, Sex, Stage, Study
 from reporting.procedure import (
@@ -429,6 +430,10 @@ class NoteKind(StrEnum):
     """End-systolic volume rose with stress: an abnormal response, not graded high risk."""
     BLOOD_PRESSURE_FALL = "blood_pressure_fall"
     """Systolic pressure fell under pharmacological stress: reported, not graded high risk."""
+    COMPARISON = "comparison"
+    """What the prior-study comparison could not compare (territories, maps)."""
+    SEGMENTS_NOT_COMPARED = "segments_not_compared"
+    """The prior study used another segment model: no comparison segment by segment."""
 
 
 class Note(_Result):
@@ -606,4 +611,10 @@ class Analysis(_Result):
     order: Order | None = Field(
         default=None,
         description="Order and imaging-study identity (accession, order numbers, Study Instance UID, clinicians); null when not given or de-identified.",
+    )
+    comparison: Comparison | None = Field(
+        default=None,
+        description="This study compared with the patient's latest earlier signed study (prior "
+        "study id and date, WMSI per stage then and now, change per territory, changed segments); "
+        "null when no prior study is known.",
     )
