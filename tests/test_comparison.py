@@ -31,7 +31,7 @@ __all__ = ["cheap_argon2"]
 
 N17 = "111111 111111 1111 1"
 N16 = "111111 111111 1111"
-I, U, W, R, Z, NONE = (
+IMPROVED, UNCHANGED, WORSENED, RESOLVED, NEW, NONE = (
     TerritoryChange.IMPROVED,
     TerritoryChange.UNCHANGED,
     TerritoryChange.WORSENED,
@@ -74,7 +74,7 @@ PAIRS = [
         N17,
         N17,
         scores({7: "2", 13: "2"}),
-        {"LAD": Z, "LCx": NONE, "RCA": NONE},
+        {"LAD": NEW, "LCx": NONE, "RCA": NONE},
         [(7, NORMAL, ISCH), (13, NORMAL, ISCH)],
     ),
     # the reverse: ischaemia then, none now.
@@ -84,7 +84,7 @@ PAIRS = [
         scores({7: "2", 13: "2"}),
         N17,
         N17,
-        {"LAD": R, "LCx": NONE, "RCA": NONE},
+        {"LAD": RESOLVED, "LCx": NONE, "RCA": NONE},
         [(7, ISCH, NORMAL), (13, ISCH, NORMAL)],
     ),
     # LAD ischaemic both times: 3 segments then (7 13 14), 1 now (7): improved.
@@ -94,7 +94,7 @@ PAIRS = [
         scores({7: "2", 13: "2", 14: "2"}),
         N17,
         scores({7: "2"}),
-        {"LAD": I, "LCx": NONE, "RCA": NONE},
+        {"LAD": IMPROVED, "LCx": NONE, "RCA": NONE},
         [(13, ISCH, NORMAL), (14, ISCH, NORMAL)],
     ),
     # 1 segment then (7), 3 now (7 13 14): worsened.
@@ -104,7 +104,7 @@ PAIRS = [
         scores({7: "2"}),
         N17,
         scores({7: "2", 13: "2", 14: "2"}),
-        {"LAD": W, "LCx": NONE, "RCA": NONE},
+        {"LAD": WORSENED, "LCx": NONE, "RCA": NONE},
         [(13, NORMAL, ISCH), (14, NORMAL, ISCH)],
     ),
     # 2 segments both times, other segments (7 13 then, 8 14 now): unchanged extent, 4 changed.
@@ -114,7 +114,7 @@ PAIRS = [
         scores({7: "2", 13: "2"}),
         N17,
         scores({8: "2", 14: "2"}),
-        {"LAD": U, "LCx": NONE, "RCA": NONE},
+        {"LAD": UNCHANGED, "LCx": NONE, "RCA": NONE},
         [(7, ISCH, NORMAL), (8, NORMAL, ISCH), (13, ISCH, NORMAL), (14, NORMAL, ISCH)],
     ),
     # RCA scar (3 akinetic at rest and peak: fixed, not ischaemia) then; 3 worse at peak now from
@@ -125,7 +125,7 @@ PAIRS = [
         scores({3: "3"}),
         scores({3: "2"}),
         scores({3: "3"}),
-        {"LAD": NONE, "LCx": NONE, "RCA": Z},
+        {"LAD": NONE, "LCx": NONE, "RCA": NEW},
         [(3, FIXED, ISCH)],
     ),
     # RCA (3 4 9 10 15) not visualised at rest or peak now: non-diagnostic, so RCA is left out;
@@ -268,7 +268,7 @@ def test_report_without_prior_has_null_comparison_and_no_paragraph(tmp_path: Pat
 
 
 def test_report_refuses_a_prior_of_another_patient(tmp_path: Path) -> None:
-    prior, current = _pair_files(tmp_path / "in")
+    _, current = _pair_files(tmp_path / "in")
     other = study_data("DEMO-0002")  # bad: another patient's study
     other_path = write_study(tmp_path / "in", other)
     result = CliRunner().invoke(
@@ -283,7 +283,7 @@ def test_report_refuses_a_prior_of_another_patient(tmp_path: Path) -> None:
 
 
 def test_report_refuses_a_record_of_another_format(tmp_path: Path) -> None:
-    prior, current = _pair_files(tmp_path / "in")
+    _, current = _pair_files(tmp_path / "in")
     bad = tmp_path / "old.json"
     bad.write_text(json.dumps({"schema_version": 99, "generator": "x"}))  # bad: unknown format
     result = CliRunner().invoke(

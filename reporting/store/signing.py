@@ -24,8 +24,8 @@ from reporting.render.pdf.signature import Addendum, SignatureBlock
 from reporting.store import audit, content, versions
 from reporting.store.canonical import Origin, now, sha256_hex
 from reporting.store.engine import Database
-from reporting.store.history import PriorStudy, compared, prior_of
 from reporting.store.errors import AuthError, ConflictError, StoreError
+from reporting.store.history import PriorStudy, compared, prior_of
 from reporting.store.schema import SignatureRow, StudyRow, VersionRow
 from reporting.store.status import VersionStatus, effective_status
 from reporting.store.users import Person, Role
