@@ -89,7 +89,8 @@ class Release(BaseModel):
     version: int = Field(default=1, ge=1, description="Version number of the released report.")
     signer: Signer | None = Field(default=None, description="Signer; required unless preliminary.")
     predecessor: Predecessor | None = Field(
-        default=None, description="The version replaced; required when amended, corrected or appended."
+        default=None,
+        description="The version replaced; required when amended, corrected or appended.",
     )
 
     @model_validator(mode="after")
