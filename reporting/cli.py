@@ -120,34 +120,15 @@ def _released(
     new_study: bool = False,
 ) -> Any:
     """The analysis, PDF, release and settings to export: from STUDY, or from the store."""
-    from reporting.errors import InputError
+    from reporting.store.source import released_from
 
-    if study is not None and store_id is not None:
-        raise InputError("--store", "give either a STUDY file or --store ID, not both")
-    if store_id is None:
-        if study is None:
-            raise InputError(
-                "STUDY", "missing: give a study file, or --store ID for a signed stored version"
-            )
-        for given, option in ((version_number, "--version"), (db, "--db")):
-            if given is not None:
-                raise InputError(option, "only with --store ID")
-        from reporting.interop.from_file import release_from_file
-
-        return release_from_file(study, settings_path=settings_path, territory_map=territory_map)
-    if territory_map is not None:
-        raise InputError(
-            "--territory-map", "not with --store: a stored version keeps the map it was signed with"
-        )
-    from reporting.settings import load_settings
-    from reporting.store.release import release_from_store
-    from reporting.store.service import open_store
-
-    return release_from_store(
-        open_store(db),
-        store_id,
-        version_number,
-        settings=load_settings(settings_path),
+    return released_from(
+        study,
+        store_id=store_id,
+        version=version_number,
+        db=db,
+        settings_path=settings_path,
+        territory_map=territory_map,
         new_study=new_study,
     )
 
