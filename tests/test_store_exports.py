@@ -10,6 +10,7 @@ fhir.resources R4B models.
 from __future__ import annotations
 
 import base64
+import itertools
 import json
 import shutil
 import subprocess
@@ -81,6 +82,22 @@ def store(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Any]:
         data["stages"]["peak"]["wall_motion"] = "111111 211111 1111 1"  # segment 7 rescored
         second = write_study(base / "v2", data)
         store_cmd(db, "amend", STUDY, str(second), "--reason", "segment 7 rescored")
+        # a second study: signed, corrected (v2), then an addendum (v3)
+        other = study_data("DEMO-0004")
+        other["order"] = {**ORDER, "accession_number": "ACC-2026-0043"}
+        store_cmd(db, "import", str(write_study(base / "o1", other)))
+        store_cmd(db, "sign", "DEMO-0004")
+        other["stages"]["peak"]["wall_motion"] = "111111 111111 1111 1"
+        store_cmd(
+            db,
+            "amend",
+            "DEMO-0004",
+            str(write_study(base / "o2", other)),
+            "--reason",
+            "typo",
+            "--correction",
+        )
+        store_cmd(db, "amend", "DEMO-0004", "--addendum", "Discussed with the referring doctor.")
         pdfs = {}
         for version in (1, 2):
             out = base / f"show{version}"
@@ -218,3 +235,49 @@ def test_version_needs_store(tmp_path: Path) -> None:
     result = run("hl7", str(path), "--version", "2")  # bad: --version without --store
     assert result.exit_code == 1
     assert result.output.strip() == "Error: --version: only with --store ID"
+
+
+@pytest.mark.parametrize(
+    ("version", "report_status", "observation_status", "hl7_status"),
+    [(1, "final", "final", "F"), (2, "corrected", "corrected", "C"), (3, "appended", "final", "C")],
+    ids=["final", "corrected", "appended"],
+)
+def test_corrected_and_appended_versions(
+    store: dict[str, Any],
+    version: int,
+    report_status: str,
+    observation_status: str,
+    hl7_status: str,
+) -> None:
+    # FHIR R4: DiagnosticReport.status corrected/appended; Observation.status has no "appended",
+    # and an addendum leaves every observation as signed (final). HL7 table 0123: C correction.
+    base = ["--store", "DEMO-0004", "--version", str(version), "--db", store["db"]]
+    fhir_out = store["base"] / f"o{version}.json"
+    assert run("fhir", *base, "-o", str(fhir_out)).exit_code == 0
+    data = json.loads(fhir_out.read_text())
+    Bundle.model_validate(data)  # fhir.resources R4B
+    kinds = [e["resource"] for e in data["entry"]]
+    (report,) = [r for r in kinds if r["resourceType"] == "DiagnosticReport"]
+    assert report["status"] == report_status
+    assert {r["status"] for r in kinds if r["resourceType"] == "Observation"} == {
+        observation_status
+    }
+    hl7_out = store["base"] / f"o{version}.hl7"
+    assert run("hl7", *base, "-o", str(hl7_out)).exit_code == 0
+    message = hl7_out.read_bytes().decode()
+    assert parse_message(message, validation_level=VALIDATION_LEVEL.TOLERANT).validate() is True
+    (obr,) = hl7_fields(message, "OBR")
+    assert obr[25] == hl7_status
+
+
+def test_each_replacing_sr_names_the_one_before(store: dict[str, Any]) -> None:
+    srs = []
+    for version in (1, 2, 3):
+        out = store["base"] / f"odicom{version}"
+        args = ["dicom", "--store", "DEMO-0004", "--version", str(version), "--db", store["db"]]
+        assert run(*args, "-o", str(out)).exit_code == 0
+        srs.append(pydicom.dcmread(out / "DEMO-0004.sr.dcm"))
+    for before, after in itertools.pairwise(srs):
+        ref = after.PredecessorDocumentsSequence[0].ReferencedSeriesSequence[0]
+        assert ref.SeriesInstanceUID == before.SeriesInstanceUID
+        assert ref.ReferencedSOPSequence[0].ReferencedSOPInstanceUID == before.SOPInstanceUID
