@@ -364,3 +364,20 @@ def test_store_compares_with_the_latest_earlier_signed_study_of_the_same_patient
     # the first study of the patient has no prior
     first, text = _stored(db, tmp_path, "OLD-1")
     assert first["comparison"] is None and "Compared with" not in text
+
+
+def test_deidentified_comparison_keeps_the_link_and_drops_the_date() -> None:
+    from reporting.deidentify import deidentify, pseudonymous_study_id
+
+    key = b"an invented key for tests only, 32+ bytes"
+    current = with_comparison(
+        study("S-2", "2026-03-12", peak=scores({7: "2"})), study("S-1", "2025-03-12")
+    )
+    out = deidentify(current, key).comparison
+    assert out is not None
+    # allow-list: prior_study_id generalised as study.id is, prior_date dropped, the rest kept
+    assert out.prior_study_id == pseudonymous_study_id(key, "S-1")
+    assert out.prior_date is None
+    assert out.territories == current.comparison.territories  # type: ignore[union-attr]
+    assert out.changed_segments == current.comparison.changed_segments  # type: ignore[union-attr]
+    assert "2025-03-12" not in out.model_dump_json()

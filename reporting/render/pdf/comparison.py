@@ -33,11 +33,15 @@ MAP_SHARE = 0.3
 """Share of the text width the change map takes beside the paragraph."""
 
 
-def prior_when(comparison: Comparison) -> str:
-    """``2026-03-12`` (or the prior study's id when the date was removed)."""
+def opening(comparison: Comparison) -> str:
+    """``Compared with the study of 2026-03-12 (ID).``; without the date (de-identified record)
+    ``Compared with the prior study ID.``"""
     if comparison.prior_date is None:
-        return f"the study {comparison.prior_study_id}"
-    return f"the study of {comparison.prior_date.isoformat()}"
+        return f"Compared with the prior study {comparison.prior_study_id}."
+    return (
+        f"Compared with the study of {comparison.prior_date.isoformat()} "
+        f"({comparison.prior_study_id})."
+    )
 
 
 def comparison_text(analysis: Analysis) -> list[str]:
@@ -45,7 +49,7 @@ def comparison_text(analysis: Analysis) -> list[str]:
     c = analysis.comparison
     if c is None:
         return []
-    out = [f"Compared with {prior_when(c)} ({c.prior_study_id})."]
+    out = [opening(c)]
     parts = []
     for stage, pair in c.wmsi.items():
         then = "–" if pair.prior is None else f"{pair.prior:.2f}"
