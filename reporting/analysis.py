@@ -89,6 +89,42 @@ def analyze_file(
     )
 
 
+def load_prior(
+    path: Path | str,
+    *,
+    settings_path: Path | None = None,
+    territory_map: str | Path | None = None,
+) -> Analysis:
+    """The prior study given to ``report --prior``: an analysis record (JSON with
+    ``schema_version``) read back, else a study file analysed as :func:`analyze_file` does.
+
+    Read through the bounded readers of :mod:`reporting.documents`; a record is validated against
+    the record model and must be of this record format.
+    """
+    from pydantic import ValidationError
+
+    from reporting.documents import check_suffix, parse_json, read_text
+
+    path = Path(path)
+    where = f"--prior {path}"
+    if check_suffix(path).suffix.lower() == ".json":
+        data = parse_json(read_text(path, what="prior study or record"), str(path))
+        if isinstance(data, dict) and "schema_version" in data and "generator" in data:
+            if data["schema_version"] != RECORD_SCHEMA_VERSION:
+                raise InputError(
+                    where,
+                    f"record schema_version {data['schema_version']!r} is not supported "
+                    f"(this version reads {RECORD_SCHEMA_VERSION})",
+                )
+            try:
+                return Analysis.model_validate(data)
+            except ValidationError as exc:
+                first = exc.errors()[0]
+                field = ".".join(str(p) for p in first["loc"])
+                raise InputError(f"{where}: {field}", first["msg"]) from None
+    return analyze_file(path, settings_path=settings_path, territory_map=territory_map)
+
+
 def resolve_territory_map(
     study: Study, base_dir: Path, override: str | Path | None = None, *, source: str = "study"
 ) -> TerritoryMap:

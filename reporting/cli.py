@@ -87,6 +87,52 @@ def _lab_options(func: F) -> F:
     return func
 
 
+def _source_options(func: F) -> F:
+    """``STUDY`` or ``--store ID [--version N] [--db URL]``: a study file, or a signed stored version."""
+    func = click.option(
+        "--db",
+        metavar="PATH|URL",
+        help="Store for --store: a SQLite file or postgresql+psycopg://… URL [default: $SEGREPORT_DB, else ./segreport.db].",
+    )(func)
+    func = click.option(
+        "--version",
+        "version_number",
+        type=click.IntRange(min=1),
+        help="With --store: the signed version to send [default: the latest].",
+    )(func)
+    func = click.option(
+        "--store",
+        "store_id",
+        metavar="ID",
+        help="Export the signed version of study ID from the report store instead of a STUDY file.",
+    )(func)
+    return click.argument("study", required=False, type=click.Path(path_type=Path))(func)
+
+
+def _released(
+    study: Path | None,
+    store_id: str | None,
+    version_number: int | None,
+    db: str | None,
+    settings_path: Path | None,
+    territory_map: str | None,
+    *,
+    new_study: bool = False,
+) -> Any:
+    """The analysis, PDF, release and settings to export: from STUDY, or from the store."""
+    from reporting.store.source import released_from
+
+    return released_from(
+        study,
+        store_id=store_id,
+        version=version_number,
+        db=db,
+        settings_path=settings_path,
+        territory_map=territory_map,
+        new_study=new_study,
+    )
+
+
 @click.group(
     context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100},
     epilog=CAUTION_LINE,
@@ -171,21 +217,35 @@ def validate(
     type=click.Path(exists=True, file_okay=False, path_type=Path),
     help="Lab template folder; its files override the packaged narrative templates.",
 )
+@click.option(
+    "--prior",
+    "prior_path",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="The patient's prior study (a study file or an analysis record JSON) to compare with.",
+)
 @_lab_options
 def report(
     study: Path,
     outdir: Path,
     paper: str,
     templates_dir: Path | None,
+    prior_path: Path | None,
     settings_path: Path | None,
     territory_map: str | None,
 ) -> None:
-    """Write the record, bull's-eye maps (SVG) and referring-doctor PDF of STUDY into OUTDIR."""
-    from reporting.analysis import analyze_file
+    """Write the record, bull's-eye maps (SVG) and referring-doctor PDF of STUDY into OUTDIR.
+
+    With --prior, the record and the PDF compare STUDY with the patient's earlier study.
+    """
+    from reporting.analysis import analyze_file, load_prior
+    from reporting.comparison import with_comparison
     from reporting.render import write_report
 
     with _user_errors():
         analysis = analyze_file(study, settings_path=settings_path, territory_map=territory_map)
+        if prior_path is not None:
+            prior = load_prior(prior_path, settings_path=settings_path, territory_map=None)
+            analysis = with_comparison(analysis, prior, location=f"--prior {prior_path}")
         for path in write_report(analysis, outdir, paper=paper, templates_dir=templates_dir):
             click.echo(f"Wrote {path}")
 
@@ -548,7 +608,7 @@ def batch(
 
 
 @main.command("fhir")
-@click.argument("study", type=click.Path(path_type=Path))
+@_source_options
 @click.option(
     "-o",
     "--output",
@@ -557,22 +617,28 @@ def batch(
 )
 @_lab_options
 def fhir_bundle(
-    study: Path, output: Path | None, settings_path: Path | None, territory_map: str | None
+    study: Path | None,
+    store_id: str | None,
+    version_number: int | None,
+    db: str | None,
+    output: Path | None,
+    settings_path: Path | None,
+    territory_map: str | None,
 ) -> None:
-    """Write STUDY as an HL7 FHIR R4 transaction Bundle (JSON), preliminary (unsigned).
+    """Write STUDY as an HL7 FHIR R4 transaction Bundle (JSON), preliminary (unsigned); with
+    --store ID, the signed version (final, or amended/corrected/appended after an amendment).
 
     Patient, practitioners, the order, the DiagnosticReport with the PDF and its observations.
     """
     from reporting.export.fhir import bundle_json
-    from reporting.interop.from_file import release_from_file
 
     with _user_errors():
-        r = release_from_file(study, settings_path=settings_path, territory_map=territory_map)
+        r = _released(study, store_id, version_number, db, settings_path, territory_map)
         _emit(bundle_json(r.analysis, pdf=r.pdf, release=r.release, settings=r.settings), output)
 
 
 @main.command("hl7")
-@click.argument("study", type=click.Path(path_type=Path))
+@_source_options
 @click.option(
     "-o",
     "--output",
@@ -581,19 +647,25 @@ def fhir_bundle(
 )
 @_lab_options
 def hl7_message(
-    study: Path, output: Path | None, settings_path: Path | None, territory_map: str | None
+    study: Path | None,
+    store_id: str | None,
+    version_number: int | None,
+    db: str | None,
+    output: Path | None,
+    settings_path: Path | None,
+    territory_map: str | None,
 ) -> None:
-    """Write STUDY as an HL7 v2.5.1 ORU^R01 result message, preliminary (status P)."""
-    from reporting.interop.from_file import release_from_file
+    """Write STUDY as an HL7 v2.5.1 ORU^R01 result message, preliminary (status P); with
+    --store ID, the signed version (F, or C after an amendment)."""
     from reporting.interop.hl7 import oru_message
 
     with _user_errors():
-        r = release_from_file(study, settings_path=settings_path, territory_map=territory_map)
+        r = _released(study, store_id, version_number, db, settings_path, territory_map)
         _emit(oru_message(r.analysis, r.pdf, r.release), output)
 
 
 @main.command("dicom")
-@click.argument("study", type=click.Path(path_type=Path))
+@_source_options
 @click.option(
     "-o",
     "--output",
@@ -609,18 +681,23 @@ def hl7_message(
 )
 @_lab_options
 def dicom(
-    study: Path,
+    study: Path | None,
+    store_id: str | None,
+    version_number: int | None,
+    db: str | None,
     outdir: Path,
     new_study: bool,
     settings_path: Path | None,
     territory_map: str | None,
 ) -> None:
-    """Write STUDY as a DICOM Comprehensive SR and Encapsulated PDF, unverified (unsigned)."""
+    """Write STUDY as a DICOM Comprehensive SR and Encapsulated PDF, unverified (unsigned); with
+    --store ID, the signed version, verified (a new SR naming its predecessor after an amendment)."""
     from reporting.interop.dicom_files import dicom_objects, write_dicom
-    from reporting.interop.from_file import release_from_file
 
     with _user_errors():
-        r = release_from_file(study, settings_path=settings_path, territory_map=territory_map)
+        r = _released(
+            study, store_id, version_number, db, settings_path, territory_map, new_study=new_study
+        )
         objects = dicom_objects(
             r.analysis, r.pdf, r.release, settings=r.settings, new_study=new_study
         )

@@ -44,6 +44,10 @@ class NoteKind(StrEnum):
     """Systolic pressure fell under pharmacological stress: reported, not graded high risk."""
     FIT_QUALITY = "fit_quality"
     """Replenishment-curve fit quality and visual cross-checks (kept or not as one kind)."""
+    COMPARISON = "comparison"
+    """What the prior-study comparison could not compare (territories, maps)."""
+    SEGMENTS_NOT_COMPARED = "segments_not_compared"
+    """The prior study used another segment model: no comparison segment by segment."""
 
 
 REFERRER_NOTES = frozenset(
@@ -52,6 +56,8 @@ REFERRER_NOTES = frozenset(
         NoteKind.LV_DILATION,
         NoteKind.BLOOD_PRESSURE_FALL,
         NoteKind.WORSENING_DEFECT,
+        NoteKind.COMPARISON,
+        NoteKind.SEGMENTS_NOT_COMPARED,
     }
 )
 """Notes that state a finding rather than ask the reader to check something: always printed."""

@@ -14,6 +14,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from reporting.comparison import Comparison
 from reporting.kinetics.models import KineticsResult
 from reporting.model import Order, Protocol, ReportStatus, Sex, Stage, Study
 from reporting.notes import NoteKind as NoteKind
@@ -618,4 +619,10 @@ class Analysis(_Result):
     order: Order | None = Field(
         default=None,
         description="Order and imaging-study identity (accession, order numbers, Study Instance UID, clinicians); null when not given or de-identified.",
+    )
+    comparison: Comparison | None = Field(
+        default=None,
+        description="This study compared with the patient's latest earlier signed study (prior "
+        "study id and date, WMSI per stage then and now, change per territory, changed segments); "
+        "null when no prior study is known.",
     )

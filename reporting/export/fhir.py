@@ -51,9 +51,14 @@ XHTML = "http://www.w3.org/1999/xhtml"
 FHIR_STATUS = {
     ReportState.PRELIMINARY: "preliminary",
     ReportState.FINAL: "final",
+    ReportState.AMENDED: "amended",
     ReportState.CORRECTED: "corrected",
+    ReportState.APPENDED: "appended",
 }
 """DiagnosticReport/Observation status from the release (FHIR R4 DiagnosticReport.status) [S]."""
+OBSERVATION_STATUS = {ReportState.APPENDED: "final"}
+"""Observation.status has no ``appended`` (FHIR R4 observation-status): an addendum adds text to
+the report and leaves every observation as it was signed, so they stay ``final``."""
 STATUS_TEXT = {
     DiagnosticStatus.ISCHEMIA: "Inducible ischaemia",
     DiagnosticStatus.NO_ISCHEMIA: "No inducible ischaemia",
@@ -144,7 +149,7 @@ class _Builder:
         order_ref = self.service_request(subject)
         context = FhirContext(
             analysis=self.a,
-            status=self.status,
+            status=OBSERVATION_STATUS.get(self.release.state, self.status),
             subject=subject,
             performer=performer_ref,
             lab_code_system_uri=self.local,

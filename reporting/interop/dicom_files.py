@@ -10,6 +10,7 @@ from __future__ import annotations
 import datetime as dt
 import io
 import logging
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -54,11 +55,8 @@ def dicom_objects(
     study = imaging_study(analysis, settings, new_study=new_study)
     if at is None:
         at = release.signer.signed_at if release.signer else dt.datetime.now(dt.UTC)
-    digest = content_digest(analysis, pdf, release)
     uid = study.study_instance_uid
-
-    def made(kind: str) -> str:
-        return make_uid(settings, kind, uid, digest)
+    made = _uid_maker(analysis, pdf, release, settings, uid)
 
     sr = sr_dataset(
         analysis,
@@ -77,6 +75,37 @@ def dicom_objects(
         at=at,
     )
     return DicomObjects(sr=sr, pdf=document, warning=study.warning)
+
+
+def _uid_maker(
+    analysis: Analysis, pdf: bytes, release: Release, settings: Settings, study_uid: str
+) -> Callable[[str], str]:
+    digest = content_digest(analysis, pdf, release)
+
+    def made(kind: str) -> str:
+        return make_uid(settings, kind, study_uid, digest)
+
+    return made
+
+
+def sr_uids(
+    analysis: Analysis,
+    pdf: bytes,
+    release: Release,
+    *,
+    settings: Settings | None = None,
+    new_study: bool = False,
+) -> tuple[str, str]:
+    """The (Series, SOP Instance) UIDs of the SR :func:`dicom_objects` makes for this release.
+
+    Derived from the content and the release alone, so the report store re-derives the UIDs of
+    the SR sent for an earlier version (for the Predecessor Documents Sequence) from that
+    version's stored record, PDF and release.
+    """
+    settings = settings or default_settings()
+    study = imaging_study(analysis, settings, new_study=new_study)
+    made = _uid_maker(analysis, pdf, release, settings, study.study_instance_uid)
+    return made("sr-series"), made("sr")
 
 
 def dicom_bytes(ds: Dataset) -> bytes:

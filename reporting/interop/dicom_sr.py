@@ -29,7 +29,7 @@ from reporting.interop import dicom_header as header
 from reporting.interop import dicom_items as items
 from reporting.interop import words
 from reporting.interop.identity import interpreter
-from reporting.interop.release import Release, ReportState
+from reporting.interop.release import Release
 from reporting.model import Stage
 from reporting.results import Analysis
 from reporting.segments import Territory
@@ -183,7 +183,7 @@ def sr_dataset(
         ds.VerifyingObserverSequence = Sequence([observer])
     else:
         ds.VerificationFlag = "UNVERIFIED"
-    if release.state is ReportState.CORRECTED:
+    if release.state.replaces:
         ds.PredecessorDocumentsSequence = _predecessor(release, study_instance_uid)
     request = header.referenced_request(analysis, study_instance_uid)
     if request is not None:

@@ -31,7 +31,13 @@ from reporting.segments import SegmentModel
 log = logging.getLogger(__name__)
 
 SEGMENT_SEPARATOR = "\r"
-RESULT_STATUS = {ReportState.PRELIMINARY: "P", ReportState.FINAL: "F", ReportState.CORRECTED: "C"}
+RESULT_STATUS = {
+    ReportState.PRELIMINARY: "P",
+    ReportState.FINAL: "F",
+    ReportState.AMENDED: "C",
+    ReportState.CORRECTED: "C",
+    ReportState.APPENDED: "C",
+}
 """OBR-25 / OBX-11 result status (HL7 tables 0123 and 0085) [S]."""
 _SEX = {Sex.FEMALE: "F", Sex.MALE: "M", Sex.OTHER: "O"}
 _ESCAPES = (("\\", "\\E\\"), ("|", "\\F\\"), ("^", "\\S\\"), ("&", "\\T\\"), ("~", "\\R\\"))

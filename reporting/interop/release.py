@@ -1,9 +1,10 @@
 """What is being released: the report's state, who signed it and which version it replaces.
 
 A study file on its own is never signed, so file mode releases a preliminary, unverified report
-(:func:`Release.unsigned`). The report store builds a final or corrected :class:`Release` from a
-signed version (FHIR R4 DiagnosticReport.status): a final or corrected release needs a signer, a corrected one also
-names its predecessor. Exporters read the state through :class:`ReportState` and never guess it
+(:func:`Release.unsigned`). The report store builds a final, amended, corrected or appended
+:class:`Release` from a signed version (FHIR R4 DiagnosticReport.status): every signed release
+needs a signer, and one that replaces an earlier version (amended, corrected, appended) also names
+its predecessor. Exporters read the state through :class:`ReportState` and never guess it
 from the study file.
 """
 
@@ -22,8 +23,24 @@ class ReportState(StrEnum):
     """Not signed: FHIR preliminary, HL7 result status P, DICOM SR unverified."""
     FINAL = "final"
     """Signed: FHIR final, HL7 F, DICOM SR verified."""
+    AMENDED = "amended"
+    """A signed version replacing an earlier signed one (changed content): FHIR amended, HL7 C, a
+    new SR instance naming the one it replaces."""
     CORRECTED = "corrected"
-    """A signed version replacing an earlier signed one: FHIR corrected, HL7 C, a new SR instance."""
+    """A signed version correcting an error in an earlier signed one: FHIR corrected, HL7 C, a new
+    SR instance naming the one it replaces."""
+    APPENDED = "appended"
+    """A signed version adding an addendum to an earlier signed one: FHIR appended, HL7 C, a new
+    SR instance naming the one it replaces."""
+
+    @property
+    def replaces(self) -> bool:
+        """Whether this release replaces an earlier released version (sent as a correction)."""
+        return self in REPLACING_STATES
+
+
+REPLACING_STATES = frozenset({ReportState.AMENDED, ReportState.CORRECTED, ReportState.APPENDED})
+"""States that replace an earlier signed version: HL7 result status C, a DICOM Predecessor."""
 
 
 class Signer(BaseModel):
@@ -72,7 +89,8 @@ class Release(BaseModel):
     version: int = Field(default=1, ge=1, description="Version number of the released report.")
     signer: Signer | None = Field(default=None, description="Signer; required unless preliminary.")
     predecessor: Predecessor | None = Field(
-        default=None, description="The version replaced; required when corrected."
+        default=None,
+        description="The version replaced; required when amended, corrected or appended.",
     )
 
     @model_validator(mode="after")
@@ -82,8 +100,10 @@ class Release(BaseModel):
             raise ValueError(f"a {self.state} release needs a signer")
         if not signed and self.signer is not None:
             raise ValueError("a preliminary release has no signer")
-        if (self.state is ReportState.CORRECTED) != (self.predecessor is not None):
-            raise ValueError("a corrected release, and only one, names its predecessor")
+        if self.state.replaces != (self.predecessor is not None):
+            raise ValueError(
+                "an amended, corrected or appended release, and only one, names its predecessor"
+            )
         return self
 
     @classmethod

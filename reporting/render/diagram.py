@@ -76,6 +76,7 @@ class MapSpec:
             MapKind.RESPONSE: "Segment response",
             MapKind.PERFUSION: "Perfusion",
             MapKind.RESERVE: "Flow reserve (A·β)",
+            MapKind.CHANGE: "Change since the prior study",
         }
         if self.stage is None:
             return titles[self.kind]
@@ -121,6 +122,8 @@ def _not_seen(seg: SegmentResult, what: str) -> Cell:
 
 def cells(analysis: Analysis, spec: MapSpec) -> dict[int, Cell]:
     """What every sector of ``spec`` shows."""
+    if spec.kind is MapKind.CHANGE:
+        return _change_cells(analysis)
     out: dict[int, Cell] = {}
     reserve = {r.number: r for r in analysis.kinetics.reserve} if analysis.kinetics else {}
     for seg in analysis.segments:
@@ -166,8 +169,29 @@ def cells(analysis: Analysis, spec: MapSpec) -> dict[int, Cell]:
     return out
 
 
+def _change_cells(analysis: Analysis) -> dict[int, Cell]:
+    from reporting.render.change_map import CHANGE_STYLE, SegmentTrend, segment_trends
+
+    out: dict[int, Cell] = {}
+    trends = segment_trends(analysis)
+    for seg in analysis.segments:
+        trend, words = trends.get(seg.number, (SegmentTrend.NOT_COMPARED, "no prior study"))
+        if trend is SegmentTrend.NOT_COMPARED:
+            out[seg.number] = _not_seen(seg, words)
+        else:
+            fill, mark, _ = CHANGE_STYLE[trend]
+            out[seg.number] = Cell(
+                style.hex_color(fill), mark, False, f"{seg.number} {seg.name}: {words}"
+            )
+    return out
+
+
 def caption(analysis: Analysis, spec: MapSpec) -> str:
     """One line under a map: the index it summarises."""
+    if spec.kind is MapKind.CHANGE:
+        from reporting.render.change_map import change_caption
+
+        return change_caption(analysis)
     if spec.kind is MapKind.WALL_MOTION and spec.stage is not None:
         if spec.stage not in analysis.wmsi:
             return "WMSI not computed"

@@ -55,6 +55,14 @@ def legend_items(analysis: Analysis, kind: MapKind) -> list[LegendItem]:
             LegendItem(RESERVE_LOW, "", False, "below cut-off"),
             LegendItem(style.NOT_SEEN_FILL, "x", True, "no good fit"),
         ]
+    elif kind is MapKind.CHANGE:
+        from reporting.render.change_map import CHANGE_STYLE, NOT_COMPARED_WORDS
+
+        items = [
+            LegendItem(style.hex_color(fill), mark, False, words)
+            for fill, mark, words in CHANGE_STYLE.values()
+        ]
+        items.append(LegendItem(style.NOT_SEEN_FILL, "x", True, NOT_COMPARED_WORDS))
     elif kind is MapKind.PERFUSION:
         items = [
             LegendItem(perfusion_fill(s), str(s), False, w) for s, w in PERFUSION_WORDS.items()

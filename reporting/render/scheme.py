@@ -35,6 +35,8 @@ class MapKind(StrEnum):
     """Contrast perfusion scores at one stage."""
     RESERVE = "kinetic_reserve"
     """Replenishment A·β reserve (stress ÷ rest) per segment, from fitted time-intensity curves."""
+    CHANGE = "change"
+    """Change of each segment's response since the prior study (:mod:`reporting.render.change_map`)."""
 
 
 # Okabe–Ito colours for the categories; a letter in each sector for greyscale print.

@@ -2,7 +2,8 @@
 
 :func:`prior_signed` answers "the latest earlier signed study of the same patient" with one query
 on indexed columns (``studies.patient_id``, ``versions.study_pk``, ``versions.study_date``,
-``signatures.version_pk``); issue #6's comparison builds on it.
+``signatures.version_pk``); :func:`compared` adds the comparison with it (:mod:`reporting.comparison`)
+to a version's analysis before it is shown or signed.
 """
 
 from __future__ import annotations
@@ -16,6 +17,7 @@ from sqlalchemy import bindparam, select
 from sqlalchemy.orm import Session
 
 from reporting.files import all_or_nothing, write_atomic
+from reporting.results import Analysis
 from reporting.store import content, versions
 from reporting.store.engine import Database
 from reporting.store.errors import StoreError
@@ -137,12 +139,13 @@ def show(db: Database, study_id: str, number: int | None, outdir: Path) -> list[
         sig = versions.signature_of(session, row)
         data, number = bytes(row.content), row.version
         signed = (bytes(sig.record_json), bytes(sig.pdf)) if sig is not None else None
+        prior = prior_of(session, content.parse(data)) if sig is None else None
     stem = outdir / f"{study_id}.v{number}"
     if signed is None:
         from reporting.export.record import record_json
         from reporting.render.pdf import pdf_bytes
 
-        analysis = content.analyse(content.parse(data), final=False)
+        analysis = compared(content.analyse(content.parse(data), final=False), prior)
         signed = (record_json(analysis).encode(), pdf_bytes(analysis))
     paths = [Path(f"{stem}.study.json"), Path(f"{stem}.record.json"), Path(f"{stem}.pdf")]
     with all_or_nothing(paths):
@@ -204,6 +207,25 @@ def _prior_for_statement() -> Any:
 
 
 _PRIOR_FOR = _prior_for_statement()
+
+
+def prior_of(session: Session, stored: content.Content) -> PriorStudy | None:
+    """The prior study of a stored version's content (none without a patient id or a date)."""
+    patient, date = stored.patient_id, stored.study.study.date
+    if patient is None or date is None:
+        return None
+    return prior_signed(session, patient, date)
+
+
+def compared(analysis: Analysis, prior: PriorStudy | None) -> Analysis:
+    """``analysis`` with its comparison to the stored prior's signed record (when there is one)."""
+    if prior is None:
+        return analysis
+    from reporting.comparison import with_comparison
+
+    before = Analysis.model_validate_json(prior.record_json)
+    where = f"prior study {prior.study_id} v{prior.version}"
+    return with_comparison(analysis, before, location=where)
 
 
 def prior_for(db: Database, study_id: str) -> PriorStudy | None:

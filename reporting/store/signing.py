@@ -25,6 +25,7 @@ from reporting.store import audit, content, versions
 from reporting.store.canonical import Origin, now, sha256_hex
 from reporting.store.engine import Database
 from reporting.store.errors import AuthError, ConflictError, StoreError
+from reporting.store.history import PriorStudy, compared, prior_of
 from reporting.store.schema import SignatureRow, StudyRow, VersionRow
 from reporting.store.status import VersionStatus, effective_status
 from reporting.store.users import Person, Role
@@ -78,11 +79,12 @@ def _render(
     signed_at: str,
     supersedes: int | None = None,
     reason: str | None = None,
+    prior: PriorStudy | None = None,
 ) -> _Rendered:
     from reporting.export.record import record_json
     from reporting.render.pdf import pdf_bytes
 
-    analysis = content.analyse(stored, final=True)
+    analysis = compared(content.analyse(stored, final=True), prior)
     if impression_is_stale(analysis):
         raise StoreError(f"study {stored.study_id}", STALE_IMPRESSION)
     record = record_json(analysis).encode()
@@ -153,6 +155,7 @@ def sign(
                 "again (amend it: `segreport store amend`)",
             )
         stored = content.parse(row.content)
+        prior = prior_of(session, stored)
         number, status, pk, head = (
             row.version,
             VersionStatus(row.status),
@@ -167,6 +170,7 @@ def sign(
         meaning=meaning,
         head=head,
         signed_at=now(),
+        prior=prior,
     )
     with db.write() as session:
         study, row = versions.get_version(session, study_id, None)
@@ -228,6 +232,8 @@ def amend(
         stored = content.build(stored.study, stored.files, old.addenda)
         status = VersionStatus.CORRECTED if correction else VersionStatus.AMENDED
     number = base_number + 1
+    with db.read() as session:  # the amended content's own date chooses its prior
+        prior = prior_of(session, stored)
     rendered = _render(
         stored,
         who,
@@ -238,6 +244,7 @@ def amend(
         signed_at=signed_at,
         supersedes=base_number,
         reason=reason,
+        prior=prior,
     )
     with db.write() as session:
         study, current = versions.get_version(session, study_id, None)

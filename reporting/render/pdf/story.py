@@ -19,6 +19,7 @@ from reporting.model import ReportStatus
 from reporting.render import curves, diagram, narrative, style
 from reporting.render.diagram import MapSpec
 from reporting.render.legend import draw_legend, legend_items
+from reporting.render.pdf.comparison import comparison_block
 from reporting.render.pdf.header import answer_box, header
 from reporting.render.pdf.signature import SignatureBlock, signed_block, supersession_note
 from reporting.render.pdf.styles import Styles, dash, paragraph, section_heading
@@ -48,6 +49,7 @@ def build_story(
     story.append(answer_box(analysis, width, st))
     story.append(Spacer(1, 6))
     story += _maps(analysis, width, fonts, st)
+    story += comparison_block(analysis, width, fonts, st)
     story.append(section_heading("Territories", st))
     story.append(territory_table(analysis, width, st))
     story.append(paragraph(f"Territory map: {analysis.territory_map.title}.", st["small"]))
