@@ -211,7 +211,15 @@ def report(
     type=click.Path(dir_okay=False, path_type=Path),
     help="Lab settings file (YAML) overriding the default thresholds.",
 )
-def serve(port: int, studies_dir: Path, settings_path: Path | None) -> None:
+@click.option(
+    "--phrases",
+    "phrases_path",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="The lab's phrase library (YAML) offered in the impression; default: the built-in starter set.",
+)
+def serve(
+    port: int, studies_dir: Path, settings_path: Path | None, phrases_path: Path | None
+) -> None:
     """Score entry in the browser: a local page at http://127.0.0.1:PORT/ (Ctrl+C stops)."""
     from reporting.settings import load_settings
     from reporting.web import serve as run_server
@@ -222,6 +230,7 @@ def serve(port: int, studies_dir: Path, settings_path: Path | None) -> None:
             studies_dir,
             port=port,
             settings=settings,
+            phrases_path=phrases_path,
             on_ready=lambda url: click.echo(
                 f"Score entry for {studies_dir.resolve()} on {url} (Ctrl+C stops)", err=True
             ),
