@@ -106,9 +106,15 @@ SLOTS: dict[str, tuple[str, Callable[[Analysis], str | None]]] = {
     "lvef_rest": ("LV ejection fraction at rest, e.g. '58 %'.", _lvef("rest")),
     "lvef_peak": ("LV ejection fraction at peak stress.", _lvef("peak")),
     "peak_hr_percent": ("Peak heart rate as % of the age-predicted maximum.", _hr_percent),
-    "peak_stage": ("The peak stage in the protocol's words ('peak', 'peak exercise').", _peak_stage),
+    "peak_stage": (
+        "The peak stage in the protocol's words ('peak', 'peak exercise').",
+        _peak_stage,
+    ),
     "protocol": ("The kind of stress ('dobutamine', 'treadmill', …).", lambda a: a.protocol.value),
-    "risk": ("The risk band ('low', 'intermediate', 'high', 'not graded').", lambda a: a.conclusion.risk.value.replace("_", " ")),
+    "risk": (
+        "The risk band ('low', 'intermediate', 'high', 'not graded').",
+        lambda a: a.conclusion.risk.value.replace("_", " "),
+    ),
 }
 """Every slot a phrase may use: name -> (what it holds, how it is read from the analysis)."""
 

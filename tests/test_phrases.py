@@ -97,7 +97,15 @@ def test_valid_file_loads(tmp_path: Path) -> None:
         # not a list of phrases at all
         ("phrases: 3\n", "phrases", "Input should be a valid list"),
     ],
-    ids=["unknown-slot", "open-brace", "format-spec", "repeated-code", "code-no-dot", "unknown-key", "not-a-list"],
+    ids=[
+        "unknown-slot",
+        "open-brace",
+        "format-spec",
+        "repeated-code",
+        "code-no-dot",
+        "unknown-key",
+        "not-a-list",
+    ],
 )
 def test_bad_library_is_refused_with_location(
     tmp_path: Path, text: str, where: str, problem: str

@@ -38,10 +38,10 @@ from reporting.errors import InputError, InputErrors, ReportingError
 from reporting.export.record import record_dict
 from reporting.load import study_from_data
 from reporting.model import STAGE_ORDER, Protocol, SafeId, Study
+from reporting.phrases import PhraseLibrary, built_in_library, filled_library
 from reporting.results import Analysis
 from reporting.segments import BUILT_IN_MAPS
 from reporting.settings import Settings, default_settings
-from reporting.phrases import PhraseLibrary, built_in_library, filled_library
 from reporting.web import form, guard, pages, shapes
 from reporting.web.api import (
     DRAFT_BODY,

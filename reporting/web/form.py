@@ -12,6 +12,7 @@ The page still shows a hidden field or stage that holds a value, so nothing in a
 
 from __future__ import annotations
 
+import re
 from enum import StrEnum
 from typing import Any
 
@@ -46,9 +47,22 @@ NO_LOW_DOSE = frozenset({Protocol.VASODILATOR})
 """Protocols without a graded low stage (vasodilator stress: rest and stress)."""
 
 
+_ABBREVIATIONS = {
+    "lv": "LV",
+    "st": "ST",
+    "av": "AV",
+    "vt": "VT",
+    "q": "Q",
+    "non sustained": "non-sustained",
+    "pre excitation": "pre-excitation",
+}
+"""Words a choice list prints in their usual form (display only; the values stay as they are)."""
+_WORD = re.compile(r"\b(" + "|".join(sorted(_ABBREVIATIONS, key=len, reverse=True)) + r")\b")
+
+
 def words(value: StrEnum) -> str:
-    """An enum value as words for a choice list: ``left_bundle_branch_block`` -> ``left bundle branch block``."""
-    return str(value.value).replace("_", " ")
+    """An enum value as words for a choice list: ``non_sustained_vt`` -> ``non-sustained VT``."""
+    return _WORD.sub(lambda m: _ABBREVIATIONS[m.group(1)], str(value.value).replace("_", " "))
 
 
 def choices(enum: type[StrEnum]) -> list[tuple[str, str]]:
@@ -63,7 +77,9 @@ PACING_STAGE_WORDS = {"low_dose": "low rate", "peak": "peak rate"}
 def stage_titles(protocol: Protocol | None) -> dict[str, str]:
     """Tab titles of the stages in the protocol's words (sentence case)."""
     if protocol is Protocol.PACING:
-        return {s.value: sentence_case(PACING_STAGE_WORDS.get(s.value, s.value)) for s in STAGE_ORDER}
+        return {
+            s.value: sentence_case(PACING_STAGE_WORDS.get(s.value, s.value)) for s in STAGE_ORDER
+        }
     return {s.value: sentence_case(stage_words(s, protocol)) for s in STAGE_ORDER}
 
 
@@ -99,7 +115,7 @@ def page_form() -> dict[str, Any]:
         "image_quality": choices(ImageQuality),
         "medication_use": choices(MedicationUse),
         "medications": [
-            (name, (info.description or name).split(":")[0])
+            (name, re.sub(r" \(.*?\)", "", (info.description or name).split(":")[0]))
             for name, info in Medications.model_fields.items()
         ],
         "lists": [
