@@ -814,6 +814,8 @@
     state.impressionEdited = false;
     state.impressionStatus = answer.impression_status;
     showImpressionState();
+    analyzeSoon.cancel();
+    runAnalysis(); // newer than any analysis still on its way, which would show the old status
     return answer;
   }
 
