@@ -215,7 +215,8 @@ def report(
     "--phrases",
     "phrases_path",
     type=click.Path(dir_okay=False, path_type=Path),
-    help="The lab's phrase library (YAML) offered in the impression; default: the built-in starter set.",
+    help="The lab's phrase library (YAML) offered in the impression; default: the lab setting "
+    "phrases_file, else the built-in starter set.",
 )
 def serve(
     port: int, studies_dir: Path, settings_path: Path | None, phrases_path: Path | None
@@ -226,6 +227,8 @@ def serve(
 
     with _user_errors():
         settings = load_settings(settings_path)
+        if phrases_path is None and settings.phrases_file and settings_path is not None:
+            phrases_path = settings_path.parent / settings.phrases_file
         run_server(
             studies_dir,
             port=port,

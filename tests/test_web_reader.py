@@ -298,3 +298,22 @@ def test_protocol_views_show_only_the_protocol_stages_and_fields() -> None:
     vasodilator = views[Protocol.VASODILATOR.value]
     assert "low_dose" not in vasodilator["stages"] and vasodilator["blocks"] == ["vasodilator"]
     assert set(views) == {p.value for p in Protocol} | {""}
+
+
+def test_lab_setting_names_the_phrase_file(tmp_path: Path) -> None:
+    lab = tmp_path / "lab"
+    lab.mkdir()
+    (lab / "settings.yaml").write_text("phrases_file: our-phrases.yaml\n", "utf-8")
+    # the phrase file beside the settings file holds an unknown slot: the error names it, so the
+    # setting was followed relative to the settings file
+    (lab / "our-phrases.yaml").write_text(
+        "phrases:\n  - {code: .a, title: A, text: '{nope}'}\n", "utf-8"
+    )
+    result = CliRunner().invoke(
+        main,
+        ["serve", "--studies", str(tmp_path / "s"), "--settings", str(lab / "settings.yaml")],
+    )
+    assert result.exit_code == 1
+    assert (
+        f"Error: {lab / 'our-phrases.yaml'}: phrases.0.text: unknown slot {{nope}}" in result.output
+    )
