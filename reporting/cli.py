@@ -272,17 +272,29 @@ def report(
     type=click.Path(dir_okay=False, path_type=Path),
     help="Lab settings file (YAML) overriding the default thresholds.",
 )
-def serve(port: int, studies_dir: Path, settings_path: Path | None) -> None:
+@click.option(
+    "--phrases",
+    "phrases_path",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="The lab's phrase library (YAML) offered in the impression; default: the lab setting "
+    "phrases_file, else the built-in starter set.",
+)
+def serve(
+    port: int, studies_dir: Path, settings_path: Path | None, phrases_path: Path | None
+) -> None:
     """Score entry in the browser: a local page at http://127.0.0.1:PORT/ (Ctrl+C stops)."""
     from reporting.settings import load_settings
     from reporting.web import serve as run_server
 
     with _user_errors():
         settings = load_settings(settings_path)
+        if phrases_path is None and settings.phrases_file and settings_path is not None:
+            phrases_path = settings_path.parent / settings.phrases_file
         run_server(
             studies_dir,
             port=port,
             settings=settings,
+            phrases_path=phrases_path,
             on_ready=lambda url: click.echo(
                 f"Score entry for {studies_dir.resolve()} on {url} (Ctrl+C stops)", err=True
             ),

@@ -140,6 +140,12 @@ class Settings(BaseModel):
         max_length=200,
         description="FHIR system URI of the lab's own code system (lab-local codes); without it those codes travel as text only.",
     )
+    phrases_file: str | None = Field(
+        default=None,
+        max_length=500,
+        description="The lab's phrase library (YAML) for the entry page, relative to the settings "
+        "file; `segreport serve --phrases` overrides it; without either, the built-in starter set.",
+    )
     lab_identifier_system_uri: str | None = Field(
         default=None,
         max_length=200,

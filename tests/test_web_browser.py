@@ -308,3 +308,143 @@ def test_two_tabs_the_second_save_shows_the_conflict_and_nothing_is_lost(
             assert errors == []
         finally:
             browser.close()
+
+
+def _reader_study() -> dict[str, Any]:
+    """Dobutamine, rest normal, peak with LAD ischaemia (7, 8, 13, 14, apex)."""
+    return {
+        "schema_version": 1,
+        "study": {"id": "READ-0001", "date": "2026-10-14"},
+        "patient": {"age_years": 60, "sex": "female"},
+        "protocol": "dobutamine",
+        "stages": {
+            "rest": {"heart_rate_bpm": 70, "systolic_bp_mmhg": 120, "wall_motion": "1" * 17},
+            "peak": {
+                "heart_rate_bpm": 150,
+                "systolic_bp_mmhg": 150,
+                "wall_motion": "111111 221111 2311 3",
+            },
+        },
+    }
+
+
+def _words(text: str) -> str:
+    return " ".join(text.split())
+
+
+def test_reader_edits_the_impression_inserts_phrases_saves_and_sees_it_go_stale(
+    server: tuple[str, Path], tmp_path: Path
+) -> None:
+    import yaml
+    from playwright.sync_api import expect, sync_playwright
+
+    from reporting.analysis import analyze
+    from reporting.impression import findings_sha256
+
+    base, studies = server
+    studies.mkdir(parents=True, exist_ok=True)
+    (studies / "READ-0001.yaml").write_text(yaml.safe_dump(_reader_study()), "utf-8")
+    own_words = "Reader's own words: ischaemia of the anterior wall and apex."
+    with sync_playwright() as pw:
+        browser = pw.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
+        try:
+            context = browser.new_context(viewport={"width": 1500, "height": 1100})
+            context.set_default_timeout(8000)
+            page = context.new_page()
+            errors: list[str] = []
+            page.on("pageerror", lambda exc: errors.append(str(exc)))
+            page.goto(base + "/?study=READ-0001")
+            state = page.locator("#impression-state")
+            expect(state).to_have_attribute("data-status", "none")
+            expect(page.locator("#computed-impression")).to_contain_text("LAD territory")
+
+            # accept the computed draft, then replace it with the reader's words
+            page.click("#accept-computed")
+            computed = page.locator("#computed-impression").text_content() or ""
+            expect(page.locator("#f-impression")).to_have_value(computed)
+            expect(state).to_have_attribute("data-status", "edited")
+            page.fill("#f-impression", own_words)
+
+            # a phrase by its short code (its {territory} slot filled from the analysis) ...
+            page.locator("#f-recommendations").press_sequentially(".rec-angio ")
+            angio = "Coronary angiography is suggested in view of ischaemia in the LAD territory."
+            expect(page.locator("#f-recommendations")).to_have_value(angio + " ")
+            # ... and one by a click in the phrase list
+            page.click("#phrase-block summary")
+            page.click('button.phrase[data-code=".rec-medical"]')
+            medical = "Continue medical therapy and risk-factor management; review in clinic."
+            expect(page.locator("#f-recommendations")).to_have_value(f"{angio} {medical}")
+
+            # saving confirms the words against the findings computed now (the server's hash)
+            page.click("#save-button")
+            expect(page.locator("#status")).to_contain_text("Saved READ-0001.yaml")
+            expect(state).to_have_attribute("data-status", "current")
+            from reporting.load import load_study
+
+            saved = load_study(studies / "READ-0001.yaml")
+            assert saved.impression == own_words
+            assert saved.recommendations == f"{angio} {medical}"
+            assert saved.impression_basis_sha256 == findings_sha256(analyze(saved))
+
+            # the PDF prints the reader's words
+            page.click("#report-button")
+            expect(page.locator("#report-link")).to_be_visible()
+            pdf = page.request.get(base + "/reports/READ-0001.pdf")
+            assert pdf.ok
+            text = _words(
+                "".join(p.extract_text() for p in PdfReader(io.BytesIO(pdf.body())).pages)
+            )
+            assert own_words in text
+            assert angio in text and medical in text
+
+            # a score changed afterwards: written against earlier findings until confirmed again
+            page.click("#tab-peak")
+            page.locator(
+                'svg.bullseye[data-kind="wall_motion"][data-stage="peak"] .sector[data-segment="4"]'
+            ).click()  # 1 -> 2: the inferior wall too
+            expect(state).to_have_attribute("data-status", "stale")
+            expect(state).to_contain_text("Written against earlier findings")
+            page.locator("#impression-block").screenshot(path=str(tmp_path / "stale.png"))
+            page.click("#confirm-impression")
+            expect(state).to_have_attribute("data-status", "current")
+            page.screenshot(path=str(tmp_path / "impression.png"), full_page=True)
+            assert errors == []
+        finally:
+            browser.close()
+
+
+def test_the_protocol_chooses_the_stages_and_fields_shown(server: tuple[str, Path]) -> None:
+    from playwright.sync_api import expect, sync_playwright
+
+    base, _ = server
+    with sync_playwright() as pw:
+        browser = pw.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
+        try:
+            page = browser.new_page(viewport={"width": 1500, "height": 1000})
+            page.set_default_timeout(8000)
+            page.goto(base + "/")
+            page.select_option("#f-protocol", "treadmill")
+            expect(page.locator("#tab-low_dose .tab-name")).to_have_text("Low workload")
+            expect(page.locator("#tab-peak .tab-name")).to_have_text("Peak exercise")
+            expect(page.locator("#f-stages-rest-atropine_mg")).to_be_hidden()
+            expect(page.locator("#f-stages-rest-dose_ug_kg_min")).to_be_hidden()
+            expect(page.locator("#f-exercise-hr_recovery_1min_bpm")).to_be_visible()
+            expect(page.locator("#vasodilator-fields")).to_be_hidden()
+
+            page.select_option("#f-protocol", "dobutamine")
+            expect(page.locator("#tab-low_dose .tab-name")).to_have_text("Low dose")
+            expect(page.locator("#f-stages-rest-atropine_mg")).to_be_visible()
+            expect(page.locator("#exercise-fields")).to_be_hidden()
+
+            page.select_option("#f-protocol", "vasodilator")
+            expect(page.locator("#tab-low_dose")).to_be_hidden()
+            page.select_option("#f-vasodilator-agent", "regadenoson")
+            expect(page.locator("#f-vasodilator-dose_mg")).to_be_visible()
+            expect(page.locator("#f-vasodilator-dose_ug_kg_min")).to_be_hidden()
+            # the server's located refusal shows beside the order field
+            page.fill("#f-order-accession_number", "A" * 17)
+            expect(page.locator("#f-order-accession_number-error")).to_contain_text(
+                "is 17 characters"
+            )
+        finally:
+            browser.close()

@@ -13,6 +13,7 @@ from typing import Any
 from pydantic import BaseModel, ConfigDict, Field
 
 from reporting.errors import InputError
+from reporting.phrases import FilledPhrase
 from reporting.results import Analysis
 
 
@@ -46,6 +47,10 @@ class AnalyzeResult(_Answer):
     narrative_html: str = Field(description="The draft narrative as an escaped HTML fragment.")
     territory_boundaries: str = Field(
         description="SVG path data of the territory boundaries under the map used (map radius 100)."
+    )
+    phrases: list[FilledPhrase] = Field(
+        default_factory=list,
+        description="The lab's phrases with their slots filled from this analysis (what the page inserts).",
     )
 
 

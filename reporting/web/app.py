@@ -38,9 +38,11 @@ from reporting.errors import InputError, InputErrors, ReportingError
 from reporting.export.record import record_dict
 from reporting.load import study_from_data
 from reporting.model import STAGE_ORDER, Protocol, SafeId, Study
+from reporting.phrases import PhraseLibrary, built_in_library, filled_library
+from reporting.results import Analysis
 from reporting.segments import BUILT_IN_MAPS
 from reporting.settings import Settings, default_settings
-from reporting.web import guard, pages, shapes
+from reporting.web import form, guard, pages, shapes
 from reporting.web.api import (
     DRAFT_BODY,
     IF_MATCH,
@@ -62,6 +64,7 @@ from reporting.web.api import (
     study_body,
 )
 from reporting.web.bodies import parse_body
+from reporting.web.reader import add_reader_routes
 from reporting.web.store import DraftOwned, Folder, Stored, checked_id
 from reporting.web.versions import PreconditionError
 from reporting.wording import CAUTIONS
@@ -96,15 +99,20 @@ def create_app(
     settings: Settings | None = None,
     max_body_bytes: int = guard.MAX_BODY_BYTES,
     allowed_hosts: tuple[str, ...] = guard.LOOPBACK_HOSTS,
+    phrases: PhraseLibrary | None = None,
+    phrases_source: str = "built-in",
 ) -> FastAPI:
     """The entry app over ``studies_dir`` (created when missing).
 
     Drafts go to ``drafts_dir`` (default ``<studies>/.drafts``, hidden from ``segreport batch``),
     reports to ``reports_dir`` (default ``<studies>/reports``). ``settings`` are the lab thresholds
     (default: the published defaults), the same object ``segreport analyze --settings`` builds.
+    ``phrases`` is the lab's phrase library (default: the built-in starter set), ``phrases_source``
+    its file name as the page shows it.
     """
     folder = Folder.at(studies_dir, drafts_dir, reports_dir)
     lab = settings or default_settings()
+    library = phrases if phrases is not None else built_in_library()
     app = FastAPI(
         title="segreport score entry",
         version=__version__,
@@ -206,7 +214,7 @@ def create_app(
             raise InputError(where, "the file must lie inside the studies folder")
         return path
 
-    def run_analysis(study: Study) -> AnalyzeResult:
+    def analysed(study: Study) -> Analysis:
         curves = None
         if study.territory_map is not None and study.territory_map not in BUILT_IN_MAPS:
             within(study.territory_map, "territory_map")
@@ -219,7 +227,10 @@ def create_app(
                 segment_model=study.segment_model,
                 settings=lab,
             )
-        analysis = analyze(study, settings=lab, territory_map=territory_map, curves=curves)
+        return analyze(study, settings=lab, territory_map=territory_map, curves=curves)
+
+    def run_analysis(study: Study) -> AnalyzeResult:
+        analysis = analysed(study)
         from reporting.render import narrative_html, narrative_text
         from reporting.render.narrative import summary
 
@@ -231,7 +242,10 @@ def create_app(
             territory_boundaries=shapes.territory_boundaries_d(
                 analysis.segment_model, [s.territory for s in analysis.segments]
             ),
+            phrases=filled_library(library, analysis),
         )
+
+    add_reader_routes(app, analyse=analysed, library=library, source=phrases_source)
 
     @app.post(
         "/api/analyze",
@@ -416,6 +430,7 @@ def create_app(
             folder=listing(),
             protocols=[p.value for p in Protocol],
             stages=[s.value for s in STAGE_ORDER],
+            form=form.page_form(),
             territory_maps=list(BUILT_IN_MAPS),
             cautions=list(CAUTIONS),
             version=__version__,

@@ -14,8 +14,10 @@ from typing import Any
 import jinja2
 
 from reporting.render.scheme import PERFUSION_WORDS, WALL_MOTION_WORDS
+from reporting.web.form import stage_titles
 
-STAGE_TITLES = {"rest": "Rest", "low_dose": "Low dose", "peak": "Peak", "recovery": "Recovery"}
+STAGE_TITLES = stage_titles(None)
+"""Tab titles before a protocol is chosen; the page script renames them for the protocol."""
 
 
 @cache

@@ -48,6 +48,7 @@ def serve(
     drafts_dir: Path | None = None,
     reports_dir: Path | None = None,
     settings: Settings | None = None,
+    phrases_path: Path | None = None,
     log_level: str = "info",
     on_ready: Callable[[str], None] | None = None,
 ) -> None:
@@ -55,11 +56,22 @@ def serve(
 
     The folder and the port are checked before anything runs: an uncreatable studies folder or a
     port in use raise :class:`ReportingError` (the command line prints ``Error:`` and exits 1).
-    ``on_ready`` gets the page's address once the port is bound.
+    ``on_ready`` gets the page's address once the port is bound. ``phrases_path`` is the lab's
+    phrase library (YAML, checked before anything runs), else the built-in starter set.
     """
     import uvicorn
 
-    app = create_app(studies_dir, drafts_dir=drafts_dir, reports_dir=reports_dir, settings=settings)
+    from reporting.phrases import load_library
+
+    library = load_library(phrases_path) if phrases_path is not None else None
+    app = create_app(
+        studies_dir,
+        drafts_dir=drafts_dir,
+        reports_dir=reports_dir,
+        settings=settings,
+        phrases=library,
+        phrases_source=phrases_path.name if phrases_path is not None else "built-in",
+    )
     sock = bind(port)
     log.info("serving %s on http://%s:%d/", studies_dir, HOST, port)
     if on_ready is not None:

@@ -10,7 +10,7 @@
   const SVG = "http://www.w3.org/2000/svg";
   const STAGES = ["rest", "low_dose", "peak", "recovery"];
   const KINDS = ["wall_motion", "perfusion"];
-  const STAGE_TITLES = { rest: "Rest", low_dose: "Low dose", peak: "Peak", recovery: "Recovery" };
+  const STAGE_TITLES = { rest: "Rest", low_dose: "Low dose", peak: "Peak", recovery: "Recovery" }; // set by the protocol
   const ID_RULE = /^[A-Za-z0-9._-]{1,64}$/;
   const CLIENT_RULE = /^t[0-9a-f]{16}$/;
   const LOCAL_PREFIX = "segreport:draft:";
@@ -22,6 +22,15 @@
 
   const geometry = readJson("geometry");
   const palette = geometry.palette;
+  const FORM = readJson("form");
+  const IMPRESSION_BOXES = ["impression", "recommendations"];
+  const IMPRESSION_WORDS = {
+    none: "No impression written yet: the report prints the computed findings. Accept the draft, edit it or write your own.",
+    unconfirmed: "Written, not yet confirmed against the findings: it is confirmed when you save.",
+    current: "Confirmed against the current findings.",
+    stale: "Written against earlier findings: the scores changed since it was confirmed. Review the impression and confirm it again.",
+    edited: "Edited: confirmed against the current findings when you save.",
+  };
 
   const state = {
     model: "17",
@@ -38,6 +47,13 @@
     draftKey: null,
     boundaries: null,
     analysisSeq: 0,
+    keptNotes: [],
+    impressionEdited: false,
+    impressionStatus: "none",
+    computedImpression: "",
+    phrases: [],
+    rawPhrases: [],
+    lastBox: "impression",
   };
   for (const kind of KINDS) for (const stage of STAGES) state.scores[kind][stage] = [];
 
@@ -403,10 +419,11 @@
   }
 
   function wireTabs() {
-    const tabs = $all('[role="tab"]');
-    tabs.forEach((tab, i) => {
+    $all('[role="tab"]').forEach((tab) => {
       tab.addEventListener("click", () => activate(tab.dataset.stage, false));
       tab.addEventListener("keydown", (event) => {
+        const tabs = $all('[role="tab"]').filter((t) => !t.hidden);
+        const i = tabs.indexOf(tab);
         let j = null;
         if (event.key === "ArrowRight") j = (i + 1) % tabs.length;
         else if (event.key === "ArrowLeft") j = (i - 1 + tabs.length) % tabs.length;
@@ -436,6 +453,12 @@
       const raw = el.value.trim();
       if (raw !== "") setPath(data, el.dataset.path, convert(raw, el.dataset.kind));
     }
+    for (const group of $all("[data-list-path]")) {
+      const picked = $all('input[type="checkbox"]', group).filter((box) => box.checked).map((box) => box.value);
+      if (picked.length) setPath(data, group.dataset.listPath, picked);
+    }
+    if (state.keptNotes.length) data.kept_notes = state.keptNotes.slice();
+    else delete data.kept_notes;
     const stages = isObject(data.stages) ? data.stages : {};
     for (const stage of STAGES) {
       for (const kind of KINDS) {
@@ -473,6 +496,28 @@
       }
       deletePath(extras, el.dataset.path);
     }
+    for (const group of $all("[data-list-path]")) {
+      const value = getPath(doc, group.dataset.listPath);
+      const wanted = Array.isArray(value) ? value.map(String) : [];
+      for (const want of wanted) {
+        if (!$all('input[type="checkbox"]', group).some((box) => box.value === want)) {
+          // keep a value the list does not offer, so the server can say what is wrong with it
+          const label = document.createElement("label");
+          label.className = "check";
+          const box = document.createElement("input");
+          box.type = "checkbox";
+          box.value = want;
+          box.addEventListener("change", changed);
+          label.append(box, ` ${want}`);
+          group.insertBefore(label, $(".field-error", group));
+        }
+      }
+      for (const box of $all('input[type="checkbox"]', group)) box.checked = wanted.includes(box.value);
+      deletePath(extras, group.dataset.listPath);
+    }
+    state.keptNotes = Array.isArray(doc.kept_notes) ? doc.kept_notes.map(String) : [];
+    delete extras.kept_notes;
+    state.impressionEdited = false;
     state.model = geometry.models[$("#f-segment_model").value] ? $("#f-segment_model").value : "17";
     state.boundaries = null;
     state.quickProblems = {};
@@ -484,8 +529,8 @@
     }
     state.extras = prune(extras);
     rebuildMaps();
-    updateExercise();
-    const first = STAGES.find((s) => isObject(getPath(doc, `stages.${s}`))) || "rest";
+    updateProtocol();
+    const first = visibleStages().find((s) => isObject(getPath(doc, `stages.${s}`))) || "rest";
     activate(first, false);
   }
 
@@ -495,10 +540,45 @@
     return { schema_version: 1, study: { date: iso }, segment_model: 17 };
   }
 
-  function updateExercise() {
-    const protocol = $("#f-protocol").value;
-    const filled = $all('#exercise-fields [data-path]').some((el) => el.value.trim() !== "");
-    $("#exercise-fields").hidden = !(protocol === "treadmill" || protocol === "bicycle" || filled);
+  // --- what the chosen protocol shows (FORM.views, from the study model) -----------------------
+
+  function protocolView() {
+    return FORM.views[$("#f-protocol").value] || FORM.views[""];
+  }
+  function holdsValue(root) {
+    return $all("[data-path]", root).some((el) => el.value.trim() !== "");
+  }
+  function stageHoldsData(stage) {
+    return KINDS.some((kind) => scoredCount(kind, stage) > 0) || holdsValue($(`#stage-${stage}`));
+  }
+  /** Stages of the protocol, plus any other stage that holds data (nothing in a file is hidden). */
+  function visibleStages() {
+    const view = protocolView();
+    return STAGES.filter((stage) => stage in view.stages || stageHoldsData(stage));
+  }
+
+  function updateProtocol() {
+    const view = protocolView();
+    const shown = visibleStages();
+    for (const stage of STAGES) {
+      STAGE_TITLES[stage] = view.stages[stage] || FORM.views[""].stages[stage];
+      $(`#tab-${stage}`).hidden = !shown.includes(stage);
+      for (const el of $all(`[data-stage-name="${stage}"]`)) el.textContent = STAGE_TITLES[stage];
+      for (const el of $all(`[data-stage-title="${stage}"]`)) el.textContent = STAGE_TITLES[stage].toLowerCase();
+    }
+    for (const wrap of $all('[data-show^="stage-field:"]')) {
+      const name = wrap.dataset.show.slice("stage-field:".length);
+      wrap.hidden = !(view.stage_fields.includes(name) || holdsValue(wrap));
+    }
+    for (const block of ["exercise", "vasodilator"]) {
+      const el = $(`#${block}-fields`);
+      el.hidden = !(view.blocks.includes(block) || holdsValue(el));
+    }
+    const agent = $("#f-vasodilator-agent").value;
+    for (const wrap of $all('[data-show^="agent:"]')) {
+      wrap.hidden = !(wrap.dataset.show === `agent:${agent}` || holdsValue(wrap));
+    }
+    if (!shown.includes(state.active)) activate(shown[0] || "rest", false);
   }
 
   // --- problems -----------------------------------------------------------------------------
@@ -632,7 +712,8 @@
     $("#map-used").textContent = `Territory map: ${record.territory_map.title}`;
     $("#stress-note").textContent = record.stress.adequacy_note;
     fillList("#findings", "#findings-block", record.conclusion.high_risk_findings.map((f) => f.detail));
-    fillList("#notes", "#notes-block", record.notes.map((n) => n.text));
+    showNotes(record.notes);
+    showImpression(result);
     $("#narrative").textContent = result.narrative_text;
     state.boundaries = result.territory_boundaries;
     for (const path of $all("svg.bullseye .boundary")) path.setAttribute("d", state.boundaries);
@@ -645,6 +726,199 @@
     el.dataset.kind = "problem";
     $("#results").classList.add("stale");
     showStageCounts(null);
+  }
+
+  // --- reader notes: kept in the report or not (kept_notes) -----------------------------------
+
+  function showNotes(notes) {
+    const list = $("#notes");
+    list.replaceChildren();
+    for (const note of notes) {
+      const li = document.createElement("li");
+      const text = document.createElement("span");
+      text.textContent = note.text;
+      li.appendChild(text);
+      if (FORM.referrer_notes.includes(note.kind)) {
+        const always = document.createElement("span");
+        always.className = "hint";
+        always.textContent = " (always in the report)";
+        li.appendChild(always);
+      } else {
+        const label = document.createElement("label");
+        label.className = "keep";
+        const box = document.createElement("input");
+        box.type = "checkbox";
+        box.dataset.keepNote = note.kind;
+        box.checked = state.keptNotes.includes(note.kind);
+        box.addEventListener("change", () => {
+          const kept = new Set(state.keptNotes);
+          if (box.checked) kept.add(note.kind); else kept.delete(note.kind);
+          state.keptNotes = FORM.note_kinds.filter((k) => kept.has(k));
+          for (const other of $all(`[data-keep-note="${note.kind}"]`)) other.checked = box.checked;
+          changed();
+        });
+        label.append(box, " keep in report");
+        li.appendChild(label);
+      }
+      list.appendChild(li);
+    }
+    $("#notes-block").hidden = notes.length === 0;
+  }
+
+  // --- the reader's impression: computed draft, own words, confirmation, phrases ---------------
+
+  function impressionWritten() {
+    return IMPRESSION_BOXES.some((name) => $(`#f-${name}`).value.trim() !== "");
+  }
+
+  function showImpressionState() {
+    const el = $("#impression-state");
+    const status = state.impressionEdited && impressionWritten() ? "edited" : state.impressionStatus;
+    el.textContent = IMPRESSION_WORDS[status] || IMPRESSION_WORDS.none;
+    el.dataset.status = status;
+    $("#impression-block").classList.toggle("stale", status === "stale");
+    $("#confirm-impression").disabled = !impressionWritten();
+  }
+
+  function showImpression(result) {
+    const record = result.record;
+    state.computedImpression = record.computed_impression || "";
+    state.impressionStatus = record.impression_status || "none";
+    $("#computed-impression").textContent = state.computedImpression;
+    state.phrases = result.phrases || [];
+    showPhrases();
+    showImpressionState();
+  }
+
+  function impressionEdited() {
+    state.impressionEdited = true;
+    showImpressionState();
+  }
+
+  /** Ask the server for the basis hash of the findings computed now, and keep it in the study. */
+  async function confirmImpression(data) {
+    const body = data || collect();
+    const response = await fetch("/api/impression/confirm", {
+      method: "POST",
+      headers: { "content-type": "application/json" },
+      body: JSON.stringify(body),
+    });
+    const answer = await response.json();
+    if (!response.ok) {
+      const count = showProblems(answer.problems || []);
+      setStatus(`Impression not confirmed: ${count ? `${count} problem${count === 1 ? "" : "s"} to fix` : answer.detail}`, "problem");
+      return null;
+    }
+    state.extras.impression_basis_sha256 = answer.impression_basis_sha256;
+    state.extras.computed_impression = answer.computed_impression;
+    state.impressionEdited = false;
+    state.impressionStatus = answer.impression_status;
+    showImpressionState();
+    analyzeSoon.cancel();
+    runAnalysis(); // newer than any analysis still on its way, which would show the old status
+    return answer;
+  }
+
+  function dropConfirmation() {
+    delete state.extras.impression_basis_sha256;
+    delete state.extras.computed_impression;
+    state.impressionEdited = false;
+  }
+
+  function phraseText(code) {
+    const filled = state.phrases.find((p) => p.code === code);
+    if (filled) return filled.text;
+    const raw = state.rawPhrases.find((p) => p.code === code);
+    return raw ? raw.text : null;
+  }
+
+  function insertInto(box, text, from, to) {
+    const start = from === undefined ? box.selectionStart : from;
+    const end = to === undefined ? box.selectionEnd : to;
+    const before = box.value.slice(0, start);
+    const gap = before && !/\s$/.test(before) ? " " : "";
+    box.value = before + gap + text + box.value.slice(end);
+    const caret = (before + gap + text).length;
+    box.setSelectionRange(caret, caret);
+    box.dispatchEvent(new Event("input", { bubbles: true }));
+  }
+
+  function showPhrases() {
+    const list = $("#phrase-list");
+    const phrases = state.phrases.length ? state.phrases : state.rawPhrases;
+    list.replaceChildren();
+    for (const phrase of phrases) {
+      const li = document.createElement("li");
+      const button = document.createElement("button");
+      button.type = "button";
+      button.className = "phrase";
+      button.dataset.code = phrase.code;
+      const code = document.createElement("code");
+      code.textContent = phrase.code;
+      const title = document.createElement("span");
+      title.className = "phrase-title";
+      title.textContent = phrase.title;
+      button.append(code, " ", title);
+      button.title = phrase.text;
+      button.addEventListener("mousedown", (event) => event.preventDefault()); // keep the caret
+      button.addEventListener("click", () => {
+        const target = phrase.field === "either" ? state.lastBox : phrase.field;
+        const box = $(`#f-${target}`);
+        insertInto(box, phraseText(phrase.code) || phrase.text, box.value.length, box.value.length);
+        box.focus();
+      });
+      li.appendChild(button);
+      list.appendChild(li);
+    }
+  }
+
+  async function loadPhrases() {
+    try {
+      const response = await fetch("/api/phrases");
+      const answer = await response.json();
+      state.rawPhrases = answer.phrases || [];
+      $("#phrase-source").textContent = `(${answer.source}, ${state.rawPhrases.length})`;
+      if (!state.phrases.length) showPhrases();
+    } catch (error) { /* the list stays empty */ }
+  }
+
+  /** A phrase code typed before the caret, followed by space, Enter or Tab, becomes its text. */
+  function expandCode(event) {
+    if (!(event.key === " " || event.key === "Enter" || event.key === "Tab") || event.ctrlKey || event.metaKey || event.altKey) return;
+    const box = event.target;
+    const caret = box.selectionStart;
+    if (caret !== box.selectionEnd) return;
+    const found = /(^|\s)(\.[a-z0-9][a-z0-9-]*)$/.exec(box.value.slice(0, caret));
+    if (!found) return;
+    const text = phraseText(found[2]);
+    if (text === null) return;
+    event.preventDefault();
+    insertInto(box, text + (event.key === " " ? " " : ""), caret - found[2].length, caret);
+  }
+
+  function wireImpression() {
+    for (const name of IMPRESSION_BOXES) {
+      const box = $(`#f-${name}`);
+      box.addEventListener("focus", () => { state.lastBox = name; });
+      box.addEventListener("keydown", expandCode);
+      box.addEventListener("input", impressionEdited);
+    }
+    $("#accept-computed").addEventListener("click", () => {
+      const box = $("#f-impression");
+      if (!state.computedImpression) { setStatus("No computed draft yet: enter scores first.", "warn"); return; }
+      if (box.value.trim() && box.value.trim() !== state.computedImpression.trim()
+          && !window.confirm("Replace the impression you wrote with the computed draft?")) return;
+      box.value = state.computedImpression;
+      box.dispatchEvent(new Event("input", { bubbles: true }));
+      box.focus();
+    });
+    $("#confirm-impression").addEventListener("click", async () => {
+      if (await confirmImpression()) {
+        changed();
+        setStatus("Impression confirmed against the current findings; save to keep it.", "ok");
+      }
+    });
+    loadPhrases();
   }
 
   async function runAnalysis() {
@@ -857,6 +1131,21 @@
       await runAnalysis(); // the server words the id rule
       setStatus("Not saved: the study id cannot name a file.", "problem");
       return false;
+    }
+    if (!(options && options.data)) {
+      if (!impressionWritten()) {
+        if (state.extras.impression_basis_sha256 !== undefined) dropConfirmation();
+      } else if (state.impressionEdited) {
+        if (!(await confirmImpression(data))) return false;
+      }
+      Object.assign(data, prune(clone({
+        impression_basis_sha256: state.extras.impression_basis_sha256,
+        computed_impression: state.extras.computed_impression,
+      })));
+      if (state.extras.impression_basis_sha256 === undefined) {
+        delete data.impression_basis_sha256;
+        delete data.computed_impression;
+      }
     }
     const target = (options && options.to) ? { to: options.to, etag: options.etag || null } : saveTarget(id);
     const { response, answer } = await putStudy(target.to, data, target.etag);
@@ -1081,7 +1370,10 @@
       state.boundaries = null;
       for (const path of $all("svg.bullseye .boundary")) path.setAttribute("d", currentBoundaries());
     });
-    $("#f-protocol").addEventListener("change", updateExercise);
+    $("#f-protocol").addEventListener("change", updateProtocol);
+    $("#f-vasodilator-agent").addEventListener("change", updateProtocol);
+    for (const group of $all("[data-list-path]")) group.addEventListener("change", changed);
+    wireImpression();
     $("#open-button").addEventListener("click", openSelected);
     $("#new-button").addEventListener("click", startNew);
     $("#save-button").addEventListener("click", () => save());
