@@ -20,11 +20,11 @@ from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.platypus import Paragraph, SimpleDocTemplate
 from reportlab.platypus.flowables import Spacer
 
-from reporting.render import style
+from reporting.render.fonts import body_fonts
 from reporting.render.pdf.styles import paragraph_styles
 from reporting.render.pdf.text import PlainText, wrap_lines
 
-FONTS = style.body_fonts()
+FONTS = body_fonts()
 STYLE: ParagraphStyle = paragraph_styles(FONTS)["para"]
 FONT, SIZE = STYLE.fontName, STYLE.fontSize
 

@@ -8,7 +8,7 @@ Each map has one purpose (segment numbers and territories, wall motion at one st
 response, perfusion at one stage). Every sector is one closed path (true circular arcs as Bézier
 curves) carrying a digit or letter, so the map reads in greyscale; not-visualised sectors are hatched
 and marked ``x``; a thicker line runs wherever neighbouring sectors belong to different territories
-under the map the analysis used. Colours and their published palettes: :mod:`reporting.render.style`.
+under the map the analysis used. Colours and their published palettes: :mod:`reporting.render.palette`.
 """
 
 from __future__ import annotations
@@ -18,13 +18,14 @@ from dataclasses import dataclass
 from functools import lru_cache
 from typing import Any
 
-from reportlab.graphics.shapes import Circle, Drawing, Group, Path, String
+from reporting.render.shapes import Circle, Drawing, Group, Path, String
 from reportlab.lib.colors import Color
 from reportlab.pdfbase.pdfmetrics import stringWidth
 
 from reporting.kinetics.models import ReserveFlag
 from reporting.model import Protocol, Stage
-from reporting.render import style
+from reporting.render import palette
+from reporting.render.fonts import MAP_FONTS, Fonts
 from reporting.render.geometry import (
     Edge,
     Sector,
@@ -45,7 +46,6 @@ from reporting.render.scheme import (
     perfusion_fill,
     wall_motion_fill,
 )
-from reporting.render.style import MAP_FONTS, Fonts
 from reporting.render.vector import TaggedGroup, TaggedPath, svg_document
 from reporting.results import Analysis, SegmentResult
 from reporting.scoring import WallMotionResponse
@@ -116,7 +116,7 @@ class Cell:
 
 
 def _not_seen(seg: SegmentResult, what: str) -> Cell:
-    return Cell(style.NOT_SEEN_FILL, "x", True, f"{seg.number} {seg.name}: {what}")
+    return Cell(palette.NOT_SEEN_FILL, "x", True, f"{seg.number} {seg.name}: {what}")
 
 
 def cells(analysis: Analysis, spec: MapSpec) -> dict[int, Cell]:
@@ -162,7 +162,7 @@ def cells(analysis: Analysis, spec: MapSpec) -> dict[int, Cell]:
                 out[n] = _not_seen(seg, "not assessable")
             else:
                 fill, mark, words = RESPONSE_STYLE[seg.response]
-                out[n] = Cell(style.hex_color(fill), mark, False, f"{n} {name}: {words}")
+                out[n] = Cell(palette.hex_color(fill), mark, False, f"{n} {name}: {words}")
     return out
 
 
@@ -236,7 +236,7 @@ def _sector_outline(
 
 def _edges_path(edges: list[Edge], cx: float, cy: float, radius: float, width: float) -> Path:
     """All territory boundaries of a map as one path of open subpaths."""
-    path = Path(strokeColor=style.INK, strokeWidth=width, fillColor=None, strokeLineCap=1)
+    path = Path(strokeColor=palette.INK, strokeWidth=width, fillColor=None, strokeLineCap=1)
     for edge in edges:
         a0 = math.radians(edge.a0)
         path.moveTo(cx + edge.r0 * radius * math.cos(a0), cy + edge.r0 * radius * math.sin(a0))
@@ -258,7 +258,7 @@ def draw_disc(
     """
     shown = cells(analysis, spec)
     segment_shapes = TaggedGroup(svg_class="segments")
-    hatching = Path(strokeColor=style.MUTED, strokeWidth=0.45, fillColor=None)
+    hatching = Path(strokeColor=palette.MUTED, strokeWidth=0.45, fillColor=None)
     marks = Group()
     font_size = max(6.0, radius * 0.17)
     for sector in sectors(analysis.segment_model):
@@ -270,7 +270,7 @@ def draw_disc(
                 cy,
                 radius,
                 fillColor=cell.fill,
-                strokeColor=style.RULE,
+                strokeColor=palette.RULE,
                 strokeWidth=0.5,
                 svg_id=f"segment-{sector.number}",
                 svg_class="segment",
@@ -287,7 +287,7 @@ def draw_disc(
         size = min(font_size, _room(sector, radius) / stringWidth(cell.mark, fonts.bold, 1))
         if cell.hatched:
             # a white backing keeps the 'x' legible over the hatch lines
-            marks.add(Circle(lx, ly, size * 0.55, fillColor=style.WHITE, strokeColor=None))
+            marks.add(Circle(lx, ly, size * 0.55, fillColor=palette.WHITE, strokeColor=None))
         marks.add(
             String(
                 lx,
@@ -295,7 +295,7 @@ def draw_disc(
                 cell.mark,
                 fontName=fonts.bold,
                 fontSize=size,
-                fillColor=style.MUTED if cell.mark == "N" else style.text_on(cell.fill),
+                fillColor=palette.MUTED if cell.mark == "N" else palette.text_on(cell.fill),
                 textAnchor="middle",
             )
         )
@@ -307,7 +307,7 @@ def draw_disc(
     edges = territory_boundaries(analysis.segment_model, territories)
     if edges:
         group.add(_edges_path(edges, cx, cy, radius, width))
-    group.add(Circle(cx, cy, radius, fillColor=None, strokeColor=style.INK, strokeWidth=0.9))
+    group.add(Circle(cx, cy, radius, fillColor=None, strokeColor=palette.INK, strokeWidth=0.9))
     group.add(marks)
     return group
 
@@ -334,7 +334,7 @@ def _orientation(group: Group, cx: float, cy: float, radius: float, fonts: Fonts
             text,
             fontName=fonts.regular,
             fontSize=size,
-            fillColor=style.MUTED,
+            fillColor=palette.MUTED,
             textAnchor="middle",
         )
         if not angle:
@@ -380,7 +380,7 @@ def bullseye(
             spec.title,
             fontName=fonts.bold,
             fontSize=title_size,
-            fillColor=style.INK,
+            fillColor=palette.INK,
             textAnchor="middle",
         )
     )
@@ -393,7 +393,7 @@ def bullseye(
             caption(analysis, spec),
             fontName=fonts.regular,
             fontSize=caption_size,
-            fillColor=style.INK,
+            fillColor=palette.INK,
             textAnchor="middle",
         )
     )

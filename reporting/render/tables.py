@@ -15,7 +15,7 @@ from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.platypus import Flowable, Table, TableStyle
 
 from reporting.model import Stage
-from reporting.render import diagram, narrative, style
+from reporting.render import diagram, narrative, palette
 from reporting.render.pdf.styles import dash, paragraph
 from reporting.results import Analysis, TerritoryResult, TerritoryStatus
 from reporting.segments import Territory
@@ -46,10 +46,10 @@ def data_table(
     table = Table(cells, colWidths=widths, repeatRows=1, hAlign="LEFT")
     commands: list[tuple[Any, ...]] = [
         ("FONT", (0, 0), (-1, -1), regular.fontName, regular.fontSize, regular.leading),
-        ("TEXTCOLOR", (0, 0), (-1, -1), style.INK),
-        ("BACKGROUND", (0, 0), (-1, 0), style.PANEL),
-        ("LINEBELOW", (0, 0), (-1, 0), 0.8, style.INK),
-        ("LINEBELOW", (0, 1), (-1, -1), 0.3, style.RULE),
+        ("TEXTCOLOR", (0, 0), (-1, -1), palette.INK),
+        ("BACKGROUND", (0, 0), (-1, 0), palette.PANEL),
+        ("LINEBELOW", (0, 0), (-1, 0), 0.8, palette.INK),
+        ("LINEBELOW", (0, 1), (-1, -1), 0.3, palette.RULE),
         ("VALIGN", (0, 0), (-1, -1), "TOP"),
         ("LEFTPADDING", (0, 0), (-1, -1), padding),
         ("RIGHTPADDING", (0, 0), (-1, -1), padding),

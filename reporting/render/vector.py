@@ -34,6 +34,8 @@ from reportlab.graphics.shapes import (
     String,
     _renderPath,
 )
+
+from reporting.render import shapes
 from reportlab.lib.attrmap import AttrMap, AttrMapValue
 from reportlab.lib.colors import Color
 from reportlab.lib.validators import isStringOrNone
@@ -54,7 +56,7 @@ _PATH_OPS = ("M", "L", "C", "Z")
 _OP_POINTS = (2, 2, 6, 0)
 
 
-class TaggedPath(Path):  # type: ignore[misc]
+class TaggedPath(shapes.Path):  # type: ignore[misc]
     """A path that becomes an SVG element with an id, a class and a tooltip."""
 
     _attrMap = AttrMap(BASE=Path, **_TAGS)
@@ -63,7 +65,7 @@ class TaggedPath(Path):  # type: ignore[misc]
     svg_title: str | None = None
 
 
-class TaggedGroup(Group):  # type: ignore[misc]
+class TaggedGroup(shapes.Group):  # type: ignore[misc]
     """A group that becomes an SVG ``<g>`` with an id, a class and a tooltip."""
 
     _attrMap = AttrMap(BASE=Group, **_TAGS)

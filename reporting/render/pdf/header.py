@@ -12,14 +12,14 @@ from reportlab.lib.styles import ParagraphStyle
 from reportlab.platypus import Flowable, Spacer, Table, TableStyle
 
 from reporting.model import Stage
-from reporting.render import narrative, style
+from reporting.render import narrative, palette
 from reporting.render.pdf.styles import Styles, dash, labelled, paragraph, sentence
 from reporting.results import Analysis, DiagnosticStatus, NonDiagnosticReason
 
 STATUS_COLOURS = {
-    DiagnosticStatus.ISCHEMIA: style.OKABE_ITO["vermillion"],
-    DiagnosticStatus.NO_ISCHEMIA: style.OKABE_ITO["bluish_green"],
-    DiagnosticStatus.NON_DIAGNOSTIC: style.OKABE_ITO["orange"],
+    DiagnosticStatus.ISCHEMIA: palette.OKABE_ITO["vermillion"],
+    DiagnosticStatus.NO_ISCHEMIA: palette.OKABE_ITO["bluish_green"],
+    DiagnosticStatus.NON_DIAGNOSTIC: palette.OKABE_ITO["orange"],
 }
 
 
@@ -34,7 +34,7 @@ def header(analysis: Analysis, width: float, st: Styles) -> list[Flowable]:
         lab_cell.append(paragraph(study.lab_address, st["small"]))
     status = study.report_status
     status_style = ParagraphStyle(
-        "status", parent=st["title"], fontSize=8, leading=10, textColor=style.MUTED
+        "status", parent=st["title"], fontSize=8, leading=10, textColor=palette.MUTED
     )
     title_cell = [
         paragraph("Stress echocardiography report", st["title"]),
@@ -47,7 +47,7 @@ def header(analysis: Analysis, width: float, st: Styles) -> list[Flowable]:
                 ("VALIGN", (0, 0), (-1, -1), "TOP"),
                 ("LEFTPADDING", (0, 0), (-1, -1), 0),
                 ("RIGHTPADDING", (0, 0), (-1, -1), 0),
-                ("LINEBELOW", (0, 0), (-1, 0), 1.2, style.INK),
+                ("LINEBELOW", (0, 0), (-1, 0), 1.2, palette.INK),
                 ("BOTTOMPADDING", (0, 0), (-1, -1), 5),
             ]
         )
@@ -160,8 +160,8 @@ def answer_box(analysis: Analysis, width: float, st: Styles) -> Table:
     box.setStyle(
         TableStyle(
             [
-                ("BACKGROUND", (0, 0), (-1, -1), style.PANEL),
-                ("LINEBEFORE", (0, 0), (0, -1), 4, style.hex_color(STATUS_COLOURS[c.status])),
+                ("BACKGROUND", (0, 0), (-1, -1), palette.PANEL),
+                ("LINEBEFORE", (0, 0), (0, -1), 4, palette.hex_color(STATUS_COLOURS[c.status])),
                 ("LEFTPADDING", (0, 0), (-1, -1), 9),
                 ("TOPPADDING", (0, 0), (-1, -1), 5),
                 ("BOTTOMPADDING", (0, 0), (-1, -1), 6),

@@ -16,13 +16,13 @@ from pathlib import Path
 from reportlab.platypus import CondPageBreak, Flowable, KeepTogether, Spacer, Table, TableStyle
 
 from reporting.model import ReportStatus
-from reporting.render import curves, diagram, narrative, style
+from reporting.render import curves, diagram, narrative, palette
 from reporting.render.diagram import MapSpec
+from reporting.render.fonts import Fonts
 from reporting.render.legend import draw_legend, legend_items
 from reporting.render.pdf.header import answer_box, header
 from reporting.render.pdf.styles import Styles, dash, paragraph, section_heading
 from reporting.render.scheme import MapKind
-from reporting.render.style import Fonts
 from reporting.render.tables import exercise_table, haemodynamics_table, territory_table
 from reporting.render.vector import DrawingFlowable
 from reporting.results import Analysis
@@ -188,9 +188,9 @@ def _sign_off(analysis: Analysis, width: float, st: Styles) -> Flowable:
     table.setStyle(
         TableStyle(
             [
-                ("LINEBELOW", (1, 0), (1, 0), 0.6, style.INK),
-                ("LINEBELOW", (3, 0), (3, 0), 0.6, style.INK),
-                ("LINEBELOW", (5, 0), (5, 0), 0.6, style.INK),
+                ("LINEBELOW", (1, 0), (1, 0), 0.6, palette.INK),
+                ("LINEBELOW", (3, 0), (3, 0), 0.6, palette.INK),
+                ("LINEBELOW", (5, 0), (5, 0), 0.6, palette.INK),
                 ("VALIGN", (0, 0), (-1, -1), "BOTTOM"),
                 ("TOPPADDING", (0, 0), (-1, -1), 14),
                 ("LEFTPADDING", (0, 0), (-1, -1), 0),

@@ -13,9 +13,9 @@ from reportlab.lib.enums import TA_LEFT, TA_RIGHT
 from reportlab.lib.styles import ParagraphStyle
 from reportlab.platypus import Flowable, Paragraph
 
-from reporting.render import style
+from reporting.render import palette, safe_text
+from reporting.render.fonts import Fonts
 from reporting.render.pdf.text import PlainText
-from reporting.render.style import Fonts
 
 Styles = dict[str, ParagraphStyle]
 
@@ -23,7 +23,7 @@ Styles = dict[str, ParagraphStyle]
 def paragraph_styles(fonts: Fonts) -> Styles:
     """The named paragraph styles of the report, in the embedded body font."""
     base = ParagraphStyle(
-        "body", fontName=fonts.regular, fontSize=8.5, leading=11, textColor=style.INK
+        "body", fontName=fonts.regular, fontSize=8.5, leading=11, textColor=palette.INK
     )
     return {
         "body": base,
@@ -32,7 +32,9 @@ def paragraph_styles(fonts: Fonts) -> Styles:
         "cell_bold": ParagraphStyle(
             "cell_bold", parent=base, fontName=fonts.bold, fontSize=7.6, leading=9.4
         ),
-        "label": ParagraphStyle("label", parent=base, fontSize=7, leading=9, textColor=style.MUTED),
+        "label": ParagraphStyle(
+            "label", parent=base, fontSize=7, leading=9, textColor=palette.MUTED
+        ),
         "lab": ParagraphStyle("lab", parent=base, fontName=fonts.bold, fontSize=13, leading=16),
         "title": ParagraphStyle(
             "title", parent=base, fontName=fonts.bold, fontSize=11, leading=14, alignment=TA_RIGHT
@@ -58,7 +60,7 @@ def paragraph(text: str, st: ParagraphStyle) -> Flowable:
     else an escaped reportlab Paragraph."""
     if st.alignment == TA_LEFT:
         return PlainText(text, st)
-    return Paragraph(style.markup_text(text, st.fontName), st)
+    return Paragraph(safe_text.markup_text(text, st.fontName), st)
 
 
 def section_heading(text: str, st: Styles) -> Flowable:
@@ -67,7 +69,7 @@ def section_heading(text: str, st: Styles) -> Flowable:
 
 def labelled(label: str, text: str, st: Styles) -> Paragraph:
     """``Indication: …`` with the label in grey; the text escaped."""
-    markup = f'<font color="#5f5f5f">{label}:</font> ' + style.markup_text(
+    markup = f'<font color="#5f5f5f">{label}:</font> ' + safe_text.markup_text(
         text, st["body"].fontName
     )
     return Paragraph(markup, st["body"])

@@ -20,7 +20,7 @@ from reportlab.lib.styles import ParagraphStyle
 from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.platypus import Flowable
 
-from reporting.render import style as look
+from reporting.render import safe_text
 
 __all__ = ["PlainText", "wrap_lines"]
 
@@ -95,7 +95,7 @@ class PlainText(Flowable):  # type: ignore[misc]
         if used:
             raise ValueError(f"PlainText cannot draw {', '.join(used)} of style {style.name!r}")
         # like Paragraph: no blank lines before or after, and blank text takes no room
-        self.text = (text if cleaned else look.printable(text, style.fontName)).strip()
+        self.text = (text if cleaned else safe_text.printable(text, style.fontName)).strip()
         self.style = style
         self.space_before = float(style.spaceBefore)
         self.space_after = float(style.spaceAfter)
