@@ -56,7 +56,7 @@ _PATH_OPS = ("M", "L", "C", "Z")
 _OP_POINTS = (2, 2, 6, 0)
 
 
-class TaggedPath(shapes.Path):  # type: ignore[misc]
+class TaggedPath(shapes.Path):
     """A path that becomes an SVG element with an id, a class and a tooltip."""
 
     _attrMap = AttrMap(BASE=Path, **_TAGS)
@@ -65,7 +65,7 @@ class TaggedPath(shapes.Path):  # type: ignore[misc]
     svg_title: str | None = None
 
 
-class TaggedGroup(shapes.Group):  # type: ignore[misc]
+class TaggedGroup(shapes.Group):
     """A group that becomes an SVG ``<g>`` with an id, a class and a tooltip."""
 
     _attrMap = AttrMap(BASE=Group, **_TAGS)
