@@ -8,7 +8,6 @@ Sensitivity and specificity differ in colour (Okabe–Ito blue and vermillion) a
 
 from __future__ import annotations
 
-from reporting.render.shapes import Circle, Drawing, Line, Rect, String
 from reportlab.lib import colors
 from reportlab.lib.units import mm
 
@@ -16,6 +15,7 @@ from reporting.qa.metrics import DiagnosticAccuracy
 from reporting.qa.review import QualityReview
 from reporting.render import palette
 from reporting.render.fonts import Fonts
+from reporting.render.shapes import Circle, Drawing, Line, Rect, String
 from reporting.segments import Territory
 
 SENSITIVITY_COLOUR = palette.hex_color(palette.OKABE_ITO["blue"])

@@ -1,4 +1,5 @@
-"""Layout pieces of the quality PDF: paragraph styles, table styles and number formatting.
+"""Layout pieces of the quality PDF: table styles and number formatting; the paragraph styles are
+the house set of :mod:`reporting.render.paragraph_styles`, shared with the report.
 
 A plain design of our own: black rules above and below each table and under its header, a light panel
 behind the four cells of a 2×2 table, bold row labels, one body font (the embedded Unicode family of
@@ -10,7 +11,6 @@ from __future__ import annotations
 
 from typing import Any
 
-from reportlab.lib.enums import TA_LEFT
 from reportlab.lib.styles import ParagraphStyle
 from reportlab.lib.units import mm
 from reportlab.platypus import Flowable, Table, TableStyle
@@ -18,36 +18,6 @@ from reportlab.platypus import Flowable, Table, TableStyle
 from reporting.qa.agreement import KappaStatistic
 from reporting.qa.metrics import Proportion
 from reporting.render import palette
-from reporting.render.fonts import Fonts
-
-
-def paragraph_styles(fonts: Fonts) -> dict[str, ParagraphStyle]:
-    base = ParagraphStyle(
-        "body",
-        fontName=fonts.regular,
-        fontSize=8.5,
-        leading=11,
-        textColor=palette.INK,
-        alignment=TA_LEFT,
-    )
-    return {
-        "title": ParagraphStyle("title", parent=base, fontName=fonts.bold, fontSize=15, leading=19),
-        "h2": ParagraphStyle(
-            "h2",
-            parent=base,
-            fontName=fonts.bold,
-            fontSize=10.5,
-            leading=14,
-            spaceBefore=2,
-            spaceAfter=3,
-        ),
-        "body": base,
-        "muted": ParagraphStyle("muted", parent=base, textColor=palette.MUTED),
-        "small": ParagraphStyle(
-            "small", parent=base, fontSize=7.5, leading=9.5, textColor=palette.MUTED
-        ),
-        "cell": ParagraphStyle("cell", parent=base, fontSize=8, leading=10),
-    }
 
 
 def table_style(

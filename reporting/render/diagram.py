@@ -18,7 +18,6 @@ from dataclasses import dataclass
 from functools import lru_cache
 from typing import Any
 
-from reporting.render.shapes import Circle, Drawing, Group, Path, String
 from reportlab.lib.colors import Color
 from reportlab.pdfbase.pdfmetrics import stringWidth
 
@@ -46,6 +45,7 @@ from reporting.render.scheme import (
     perfusion_fill,
     wall_motion_fill,
 )
+from reporting.render.shapes import Circle, Drawing, Group, Path, String
 from reporting.render.vector import TaggedGroup, TaggedPath, svg_document
 from reporting.results import Analysis, SegmentResult
 from reporting.scoring import WallMotionResponse

@@ -7,7 +7,6 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from reporting.render.shapes import Drawing, Line, Path, Rect, String
 from reportlab.lib.colors import Color
 from reportlab.pdfbase.pdfmetrics import stringWidth
 
@@ -24,6 +23,7 @@ from reporting.render.scheme import (
     perfusion_fill,
     wall_motion_fill,
 )
+from reporting.render.shapes import Drawing, Line, Path, Rect, String
 from reporting.results import Analysis
 from reporting.segments import Territory
 

@@ -34,13 +34,13 @@ from reportlab.graphics.shapes import (
     String,
     _renderPath,
 )
-
-from reporting.render import shapes
 from reportlab.lib.attrmap import AttrMap, AttrMapValue
 from reportlab.lib.colors import Color
 from reportlab.lib.validators import isStringOrNone
 from reportlab.pdfgen.canvas import Canvas
 from reportlab.platypus import Flowable
+
+from reporting.render import shapes
 
 __all__ = ["DrawingFlowable", "TaggedGroup", "TaggedPath", "paint", "svg_document"]
 

@@ -23,7 +23,7 @@ from reportlab.platypus import Flowable, Paragraph, SimpleDocTemplate, Spacer, T
 
 from reporting.files import write_atomic
 from reporting.qa.agreement import Agreement
-from reporting.qa.layout import paragraph_styles, table_style
+from reporting.qa.layout import table_style
 from reporting.qa.pdf.page import (
     FRAME_WIDTH,
     LIMITS,
@@ -38,6 +38,7 @@ from reporting.qa.pdf.page import (
 from reporting.qa.pdf.page_two import agreement_section
 from reporting.render import safe_text
 from reporting.render.fonts import body_fonts
+from reporting.render.paragraph_styles import paragraph_styles
 from reporting.results import DiagnosticStatus
 from reporting.segments import Territory
 

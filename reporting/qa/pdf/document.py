@@ -17,13 +17,13 @@ from reportlab.platypus import PageBreak, SimpleDocTemplate
 
 from reporting.files import write_atomic
 from reporting.qa.agreement import Agreement
-from reporting.qa.layout import paragraph_styles
 from reporting.qa.pdf.page import LIMITS, MARGIN, MAX_PAGES, Limits, footer
 from reporting.qa.pdf.page_one import page_one
 from reporting.qa.pdf.page_two import page_two
 from reporting.qa.review import QualityReview
 from reporting.render import safe_text
 from reporting.render.fonts import body_fonts
+from reporting.render.paragraph_styles import paragraph_styles
 
 log = logging.getLogger(__name__)
 

@@ -7,7 +7,6 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 
-from reporting.render.shapes import Drawing, Line, Rect, String
 from reportlab.pdfbase.pdfmetrics import stringWidth
 
 from reporting.model import STAGE_ORDER, Stage
@@ -26,6 +25,7 @@ from reporting.render.curves.panel import (
 from reporting.render.curves.words import territory_heading
 from reporting.render.fonts import MAP_FONTS, Fonts
 from reporting.render.scheme import TERRITORY_FILL
+from reporting.render.shapes import Drawing, Line, Rect, String
 from reporting.results import Analysis
 from reporting.wording import stage_words
 

@@ -12,7 +12,6 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from reporting.render.shapes import Group, Line, Path, PolyLine, Rect, String
 from reportlab.lib.colors import Color
 from reportlab.pdfbase.pdfmetrics import stringWidth
 
@@ -23,6 +22,7 @@ from reporting.render.curves.blocks import Panel
 from reporting.render.curves.words import stat_text, status_badge
 from reporting.render.fonts import MAP_FONTS, Fonts
 from reporting.render.scheme import CURVE_STAGE_COLOUR
+from reporting.render.shapes import Group, Line, Path, PolyLine, Rect, String
 
 PANEL_MIN_WIDTH = 92.0
 PANEL_HEIGHT = 100.0

@@ -34,10 +34,10 @@ def header(analysis: Analysis, width: float, st: Styles) -> list[Flowable]:
         lab_cell.append(paragraph(study.lab_address, st["small"]))
     status = study.report_status
     status_style = ParagraphStyle(
-        "status", parent=st["title"], fontSize=8, leading=10, textColor=palette.MUTED
+        "status", parent=st["doc_title"], fontSize=8, leading=10, textColor=palette.MUTED
     )
     title_cell = [
-        paragraph("Stress echocardiography report", st["title"]),
+        paragraph("Stress echocardiography report", st["doc_title"]),
         paragraph(f"Report status: {status.value.upper()}", status_style),
     ]
     top = Table([[lab_cell, title_cell]], colWidths=[width * 0.6, width * 0.4])

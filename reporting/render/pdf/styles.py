@@ -1,4 +1,5 @@
-"""Paragraph styles of the referring-doctor PDF and the helpers that turn text into paragraphs.
+"""The helpers that turn text into paragraphs of the referring-doctor PDF; the styles themselves
+are the house set of :mod:`reporting.render.paragraph_styles`, shared with the quality PDFs.
 
 Plain left-aligned text becomes a light :class:`~reporting.render.pdf.text.PlainText` (no markup is
 parsed); anything else goes through :func:`reporting.render.style.markup_text` (XML-escaped, unknown
@@ -9,50 +10,23 @@ from __future__ import annotations
 
 from typing import Any
 
-from reportlab.lib.enums import TA_LEFT, TA_RIGHT
+from reportlab.lib.enums import TA_LEFT
 from reportlab.lib.styles import ParagraphStyle
 from reportlab.platypus import Flowable, Paragraph
 
-from reporting.render import palette, safe_text
-from reporting.render.fonts import Fonts
+from reporting.render import safe_text
+from reporting.render.paragraph_styles import Styles, paragraph_styles
 from reporting.render.pdf.text import PlainText
 
-Styles = dict[str, ParagraphStyle]
-
-
-def paragraph_styles(fonts: Fonts) -> Styles:
-    """The named paragraph styles of the report, in the embedded body font."""
-    base = ParagraphStyle(
-        "body", fontName=fonts.regular, fontSize=8.5, leading=11, textColor=palette.INK
-    )
-    return {
-        "body": base,
-        "small": ParagraphStyle("small", parent=base, fontSize=7.2, leading=9),
-        "cell": ParagraphStyle("cell", parent=base, fontSize=7.6, leading=9.4),
-        "cell_bold": ParagraphStyle(
-            "cell_bold", parent=base, fontName=fonts.bold, fontSize=7.6, leading=9.4
-        ),
-        "label": ParagraphStyle(
-            "label", parent=base, fontSize=7, leading=9, textColor=palette.MUTED
-        ),
-        "lab": ParagraphStyle("lab", parent=base, fontName=fonts.bold, fontSize=13, leading=16),
-        "title": ParagraphStyle(
-            "title", parent=base, fontName=fonts.bold, fontSize=11, leading=14, alignment=TA_RIGHT
-        ),
-        "h2": ParagraphStyle(
-            "h2",
-            parent=base,
-            fontName=fonts.bold,
-            fontSize=9.5,
-            leading=12,
-            spaceBefore=7,
-            spaceAfter=2,
-        ),
-        "summary": ParagraphStyle(
-            "summary", parent=base, fontName=fonts.bold, fontSize=10, leading=13
-        ),
-        "para": ParagraphStyle("para", parent=base, spaceAfter=2.5),
-    }
+__all__ = [
+    "Styles",
+    "dash",
+    "labelled",
+    "paragraph",
+    "paragraph_styles",
+    "section_heading",
+    "sentence",
+]
 
 
 def paragraph(text: str, st: ParagraphStyle) -> Flowable:
