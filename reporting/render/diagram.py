@@ -52,6 +52,8 @@ from reporting.scoring import WallMotionResponse
 from reporting.wording import stage_words
 
 HATCH_SPACING_PT = 2.6
+MERGED_CAPTION_CHARS = 44
+"""Longest caption naming the merged stages (fits a quarter of the page at the caption size)."""
 
 
 @dataclass(frozen=True)
@@ -62,6 +64,8 @@ class MapSpec:
     stage: Stage | None = None
     protocol: Protocol | None = None
     """The study's protocol: exercise studies title their stages with workload words."""
+    merged: tuple[Stage, ...] = ()
+    """Stages this one map stands for (``stage`` first): identical all-normal stages shown once."""
 
     @property
     def key(self) -> str:
@@ -79,7 +83,16 @@ class MapSpec:
         }
         if self.stage is None:
             return titles[self.kind]
+        if len(self.merged) > 1:
+            return f"{titles[self.kind]} – {merged_stage_words(self.merged, self.protocol)}"
         return f"{titles[self.kind]} – {stage_title(self.stage, self.protocol)}"
+
+
+def merged_stage_words(stages: tuple[Stage, ...], protocol: Protocol | None = None) -> str:
+    """``rest and peak``; ``all stages`` for more than two."""
+    if len(stages) == 2:
+        return " and ".join(stage_title(s, protocol) for s in stages)
+    return "all stages"
 
 
 def stage_title(stage: Stage, protocol: Protocol | None = None) -> str:
@@ -100,6 +113,38 @@ def map_specs(analysis: Analysis) -> list[MapSpec]:
     if analysis.kinetics is not None and analysis.kinetics.reserve:
         specs.append(MapSpec(MapKind.RESERVE))
     return specs
+
+
+def _all_normal(scores: list[dict[Stage, int | None]], stages: list[Stage]) -> bool:
+    """Every segment seen and scored normal (1) at every one of ``stages``."""
+    return all(seg.get(stage) == 1 for seg in scores for stage in stages)
+
+
+def page_map_specs(analysis: Analysis) -> list[MapSpec]:
+    """The maps the PDF shows: :func:`map_specs` with maps that carry no information merged.
+
+    Wall-motion (or perfusion) stages that are all normal, every segment seen, are one map titled
+    with the stages it stands for; its caption says so. With every wall-motion stage normal, the
+    response map (all normal by definition) is left out. The SVG files keep one map per stage.
+    """
+    specs = map_specs(analysis)
+    out: list[MapSpec] = []
+    for kind, scores in (
+        (MapKind.WALL_MOTION, [s.wall_motion for s in analysis.segments]),
+        (MapKind.PERFUSION, [s.perfusion for s in analysis.segments]),
+    ):
+        stages = tuple(s.stage for s in specs if s.kind is kind and s.stage is not None)
+        if len(stages) > 1 and _all_normal(scores, list(stages)):
+            merged = MapSpec(kind, stages[0], analysis.protocol, merged=stages)
+            first = next(i for i, s in enumerate(specs) if s.kind is kind)
+            specs = [s for s in specs if s.kind is not kind]
+            specs.insert(first, merged)
+    wall = [s for s in specs if s.kind is MapKind.WALL_MOTION]
+    for spec in specs:
+        if spec.kind is MapKind.RESPONSE and len(wall) == 1 and len(wall[0].merged) > 1:
+            continue
+        out.append(spec)
+    return out
 
 
 # --- what each sector shows -------------------------------------------------------------------
@@ -168,6 +213,11 @@ def cells(analysis: Analysis, spec: MapSpec) -> dict[int, Cell]:
 
 def caption(analysis: Analysis, spec: MapSpec) -> str:
     """One line under a map: the index it summarises."""
+    if len(spec.merged) > 1:
+        names = [stage_title(s, spec.protocol) for s in spec.merged]
+        stages = ", ".join(names[:-1]) + " and " + names[-1]
+        words = f"{stages[:1].upper()}{stages[1:]}: all segments normal"
+        return words if len(words) <= MERGED_CAPTION_CHARS else "All segments normal at every stage"
     if spec.kind is MapKind.WALL_MOTION and spec.stage is not None:
         if spec.stage not in analysis.wmsi:
             return "WMSI not computed"

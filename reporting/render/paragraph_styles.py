@@ -29,8 +29,11 @@ def paragraph_styles(fonts: Fonts) -> Styles:
     )
     return {
         "body": base,
-        "para": ParagraphStyle("para", parent=base, spaceAfter=2.5),
+        "para": ParagraphStyle("para", parent=base, spaceAfter=1.5),
         "small": ParagraphStyle("small", parent=base, fontSize=7.2, leading=9),
+        "fine": ParagraphStyle(
+            "fine", parent=base, fontSize=6.6, leading=8, textColor=palette.MUTED
+        ),
         "muted": ParagraphStyle("muted", parent=base, textColor=palette.MUTED),
         "cell": ParagraphStyle("cell", parent=base, fontSize=7.8, leading=9.6),
         "cell_bold": ParagraphStyle(
@@ -55,8 +58,8 @@ def paragraph_styles(fonts: Fonts) -> Styles:
             fontName=fonts.bold,
             fontSize=9.5,
             leading=12,
-            spaceBefore=7,
-            spaceAfter=2,
+            spaceBefore=5,
+            spaceAfter=1.5,
         ),
         "summary": ParagraphStyle(
             "summary", parent=base, fontName=fonts.bold, fontSize=10, leading=13

@@ -21,7 +21,7 @@ from reporting.errors import InputError
 from reporting.render import narrative, safe_text
 from reporting.render.fonts import body_fonts
 from reporting.render.pdf.header import report_title
-from reporting.render.pdf.page import MARGIN, PAPERS, NumberedCanvas, footer
+from reporting.render.pdf.page import MARGIN, PAPERS, TOP_MARGIN, NumberedCanvas, footer
 from reporting.render.pdf.story import build_story
 from reporting.render.pdf.styles import paragraph_styles
 from reporting.results import Analysis
@@ -47,7 +47,7 @@ def pdf_bytes(
         pagesize=size,
         leftMargin=MARGIN,
         rightMargin=MARGIN,
-        topMargin=MARGIN,
+        topMargin=TOP_MARGIN,
         bottomMargin=MARGIN + 4 * mm,
         title=report_title(analysis),
         subject=narrative.summary(analysis),

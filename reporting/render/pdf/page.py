@@ -19,6 +19,7 @@ from reporting.results import Analysis
 
 PAPERS = {"A4": A4, "LETTER": LETTER}
 MARGIN = 15 * mm
+TOP_MARGIN = 12 * mm
 
 
 def footer(analysis: Analysis, fonts: Fonts) -> Callable[[Canvas, BaseDocTemplate], None]:
