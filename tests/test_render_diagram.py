@@ -183,7 +183,7 @@ def _luminance(hex_value: str) -> float:
 
 def test_score_colours_darken_with_the_score_so_greyscale_keeps_the_order() -> None:
     # ColorBrewer sequential schemes (Harrower & Brewer 2003) are ordered in lightness
-    for colours in (palette.YLORBR_5, palette.BLUES_3):
+    for colours in (palette.WALL_MOTION_FILLS, palette.PERFUSION_FILLS):
         lum = [_luminance(c) for c in colours]
         assert lum == sorted(lum, reverse=True)
 

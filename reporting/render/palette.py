@@ -13,10 +13,20 @@ from __future__ import annotations
 from reportlab.lib import colors
 from reportlab.lib.colors import Color
 
-# ColorBrewer "YlOrBr", 5 classes (Harrower & Brewer 2003): sequential, colour-blind safe.
-YLORBR_5 = ("#ffffd4", "#fed98e", "#fe9929", "#d95f0e", "#993404")
-# ColorBrewer "Blues", 3 classes (Harrower & Brewer 2003).
-BLUES_3 = ("#eff3ff", "#9ecae1", "#3182bd")
+NORMAL_FILL = "#ffffff"
+"""Normal is neutral: white, so only abnormal grades catch the eye."""
+# Wall-motion grades 2–5: ColorBrewer "YlOrBr" colours (Harrower & Brewer 2003; 2 and 3 from the
+# 5-class scheme, 4 and 5 from the 7-class one, which keeps neighbouring grades apart under
+# deuteranopia too): sequential, so greyscale keeps the order.
+YLORBR_ABNORMAL = ("#fed98e", "#fe9929", "#cc4c02", "#8c2d04")
+WALL_MOTION_FILLS = (NORMAL_FILL, *YLORBR_ABNORMAL)
+"""Fill of wall-motion score 1–5 (index score − 1)."""
+# Perfusion grades 2–3: ColorBrewer "Blues", 3 classes, its two darker (Harrower & Brewer 2003).
+BLUES_ABNORMAL = ("#9ecae1", "#3182bd")
+PERFUSION_FILLS = (NORMAL_FILL, *BLUES_ABNORMAL)
+"""Fill of perfusion score 1–3 (index score − 1)."""
+SCAR_GREY = "#595959"
+"""Fixed (scar) response: a dark neutral, so no wall-motion meaning borrows the perfusion blues."""
 # Okabe–Ito qualitative palette (Okabe & Ito 2008), colour-blind safe.
 OKABE_ITO = {
     "orange": "#E69F00",
@@ -33,7 +43,7 @@ INK = colors.HexColor("#1a1a1a")
 MUTED = colors.HexColor("#5f5f5f")
 RULE = colors.HexColor("#9a9a9a")
 PANEL = colors.HexColor("#f2f2f2")
-NOT_SEEN_FILL = colors.HexColor("#e6e6e6")
+NOT_SEEN_FILL = colors.HexColor("#d4d4d4")
 WHITE = colors.white
 
 

@@ -1,8 +1,9 @@
 """Our colour scheme for the maps and curves: how each score, response, territory and stage looks.
 
-Built from published colour-blind-safe palettes (see :mod:`reporting.render.palette`): ColorBrewer
-sequential "YlOrBr" for wall-motion scores and "Blues" for perfusion scores, Okabe–Ito for response
-categories, territories and the stages of fitted replenishment curves. Every category also has a
+Built from published colour-blind-safe palettes (see :mod:`reporting.render.palette`): normal is
+white everywhere; ColorBrewer sequential "YlOrBr" for abnormal wall-motion scores and "Blues" for
+abnormal perfusion scores; Okabe–Ito for response categories (a dark neutral grey for fixed, so no
+wall-motion meaning wears a perfusion blue), territories and the stages of fitted curves. Every category also has a
 digit, a letter or (for curves) a marker shape and line style, so greyscale prints stay readable.
 """
 
@@ -39,7 +40,7 @@ class MapKind(StrEnum):
 
 # Okabe–Ito colours for the categories; a letter in each sector for greyscale print.
 RESPONSE_STYLE: dict[WallMotionResponse, tuple[str, str, str]] = {
-    WallMotionResponse.NORMAL: ("#ffffff", "N", "normal"),
+    WallMotionResponse.NORMAL: (palette.NORMAL_FILL, "N", "normal"),
     WallMotionResponse.ISCHEMIC: (palette.OKABE_ITO["vermillion"], "I", "ischaemic"),
     WallMotionResponse.BIPHASIC: (palette.OKABE_ITO["reddish_purple"], "B", "biphasic"),
     WallMotionResponse.SUSTAINED_IMPROVEMENT: (
@@ -47,7 +48,7 @@ RESPONSE_STYLE: dict[WallMotionResponse, tuple[str, str, str]] = {
         "V",
         "viable, sustained improvement",
     ),
-    WallMotionResponse.FIXED: (palette.OKABE_ITO["blue"], "F", "fixed"),
+    WallMotionResponse.FIXED: (palette.SCAR_GREY, "F", "fixed"),
     WallMotionResponse.AKINETIC_TO_DYSKINETIC: (
         palette.OKABE_ITO["yellow"],
         "D",
@@ -63,16 +64,16 @@ TERRITORY_FILL = {
 
 # Kinetic reserve: light where the A·β reserve is at or above the cut-off, Okabe–Ito orange below it;
 # the value itself is printed in each sector.
-RESERVE_ADEQUATE = palette.hex_color(palette.BLUES_3[0])
+RESERVE_ADEQUATE = palette.hex_color(palette.NORMAL_FILL)
 RESERVE_LOW = palette.hex_color(palette.OKABE_ITO["orange"])
 
 
 def wall_motion_fill(score: int) -> Color:
-    return palette.hex_color(palette.YLORBR_5[score - 1])
+    return palette.hex_color(palette.WALL_MOTION_FILLS[score - 1])
 
 
 def perfusion_fill(score: int) -> Color:
-    return palette.hex_color(palette.BLUES_3[score - 1])
+    return palette.hex_color(palette.PERFUSION_FILLS[score - 1])
 
 
 # Fitted replenishment curves: one Okabe–Ito colour per stage; curves.py adds a marker shape and a
