@@ -13,8 +13,13 @@ from reportlab.platypus import Flowable, Spacer, Table, TableStyle
 
 from reporting.model import Stage
 from reporting.render import narrative, palette
+from reporting.render.letterhead import logo_flowable
 from reporting.render.pdf.styles import Styles, dash, labelled, paragraph, sentence
 from reporting.results import Analysis, DiagnosticStatus, NonDiagnosticReason
+
+LOGO_MAX_WIDTH = 110.0
+LOGO_MAX_HEIGHT = 40.0
+"""Box (pt) the lab's logo is scaled into, keeping its proportions."""
 
 STATUS_COLOURS = {
     DiagnosticStatus.ISCHEMIA: palette.OKABE_ITO["vermillion"],
@@ -32,6 +37,21 @@ def header(analysis: Analysis, width: float, st: Styles) -> list[Flowable]:
     lab_cell: list[Flowable] = [paragraph(study.lab or "Echocardiography laboratory", st["lab"])]
     if study.lab_address:
         lab_cell.append(paragraph(study.lab_address, st["small"]))
+    if study.lab_logo:
+        logo = logo_flowable(study.lab_logo, LOGO_MAX_WIDTH, LOGO_MAX_HEIGHT)
+        beside = Table([[logo, lab_cell]], colWidths=[logo.wrap(width, width)[0] + 8, None])
+        beside.setStyle(
+            TableStyle(
+                [
+                    ("VALIGN", (0, 0), (-1, -1), "MIDDLE"),
+                    ("LEFTPADDING", (0, 0), (-1, -1), 0),
+                    ("RIGHTPADDING", (0, 0), (-1, -1), 0),
+                    ("TOPPADDING", (0, 0), (-1, -1), 0),
+                    ("BOTTOMPADDING", (0, 0), (-1, -1), 0),
+                ]
+            )
+        )
+        lab_cell = [beside]
     status = study.report_status
     status_style = ParagraphStyle(
         "status", parent=st["doc_title"], fontSize=8, leading=10, textColor=palette.MUTED
