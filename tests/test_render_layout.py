@@ -114,3 +114,22 @@ def test_the_sign_off_never_stands_alone_on_a_page() -> None:
         assert "Methods." in pages[signed], sentences
         moved += signed > 0
     assert moved  # the sweep did push the sign-off to a later page
+
+
+def test_a_heading_never_ends_a_column() -> None:
+    from reporting.render.fonts import body_fonts
+    from reporting.render.paragraph_styles import paragraph_styles
+    from reporting.render.pdf.heading import HeadedParagraph
+    from reporting.render.pdf.text import PlainText
+
+    st = paragraph_styles(body_fonts())
+    body = PlainText(" ".join(["a sentence of the section"] * 30), st["para"])
+    block = HeadedParagraph(PlainText("Wall motion", st["h2"]), body)
+    _, height = block.wrap(250, 1000)
+    heading = st["h2"].leading
+    # room for the heading and one line: nothing stays behind, all of it moves on
+    assert block.split(250, heading + st["h2"].spaceAfter + st["para"].leading) == []
+    # room for the heading and several lines: the heading stays with the first lines
+    first, rest = block.split(250, height / 2)
+    assert isinstance(first, HeadedParagraph) and first.heading.text == "Wall motion"
+    assert isinstance(rest, PlainText)

@@ -60,6 +60,7 @@ def paragraph_styles(fonts: Fonts) -> Styles:
             leading=12,
             spaceBefore=5,
             spaceAfter=1.5,
+            keepWithNext=1,  # a heading never ends a column or a page
         ),
         "summary": ParagraphStyle(
             "summary", parent=base, fontName=fonts.bold, fontSize=10, leading=13

@@ -29,6 +29,7 @@ from reporting.render.diagram import MapSpec
 from reporting.render.fonts import Fonts
 from reporting.render.legend import draw_legend, legend_items
 from reporting.render.pdf.header import answer_box, header
+from reporting.render.pdf.heading import HeadedParagraph
 from reporting.render.pdf.styles import Styles, dash, paragraph, section_heading, sentence
 from reporting.render.scheme import MapKind
 from reporting.render.tables import exercise_table, haemodynamics_table, territory_table
@@ -81,8 +82,10 @@ def build_story(
         if heading == METHODS_HEADING:
             continue
         kept = [p for p in paragraphs if p not in printed] or paragraphs
-        text_flow.append(section_heading(heading, st))
-        text_flow += [paragraph(p, st["para"]) for p in kept]
+        paras = [paragraph(p, st["para"]) for p in kept]
+        # a heading never ends a column: it keeps with its first paragraph
+        title = section_heading(heading, st)
+        text_flow += [HeadedParagraph(title, paras[0]), *paras[1:]] if paras else [title]
     # the narrative in two balanced columns: short clinical sentences fill half a line better
     story.append(BalancedColumns(text_flow, nCols=2, innerPadding=14, spaceBefore=2))
     story += _curves(analysis, width, fonts, st)
