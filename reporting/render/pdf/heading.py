@@ -9,6 +9,8 @@ the heading and two lines fit, not at all, so the heading moves to the next colu
 
 from __future__ import annotations
 
+import copy
+
 from reportlab.platypus import Flowable
 
 __all__ = ["HeadedParagraph"]
@@ -22,6 +24,10 @@ class HeadedParagraph(Flowable):  # type: ignore[misc]
         self.heading = heading
         self.body = body
         self._sizes: tuple[float, float] = (0.0, 0.0)
+
+    def __deepcopy__(self, memo: dict[int, object]) -> HeadedParagraph:
+        """Parts copied as they copy themselves (BalancedColumns deep-copies at every trial)."""
+        return HeadedParagraph(copy.deepcopy(self.heading, memo), copy.deepcopy(self.body, memo))
 
     def _gap(self) -> float:
         return float(self.heading.getSpaceAfter()) + float(self.body.getSpaceBefore())

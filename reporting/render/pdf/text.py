@@ -13,6 +13,7 @@ glyphs the font lacks replaced); as nothing is parsed, no escaping is needed.
 
 from __future__ import annotations
 
+import copy
 import re
 
 from reportlab.lib.enums import TA_LEFT
@@ -126,6 +127,11 @@ class PlainText(Flowable):  # type: ignore[misc]
         self.space_after = float(style.spaceAfter)
         self.lines: list[str] = []
         self._wrapped_at: float | None = None
+
+    def __deepcopy__(self, memo: dict[int, object]) -> PlainText:
+        """A shallow copy: the text and the (shared) style never change after construction, and
+        reportlab's BalancedColumns deep-copies its content at every trial split."""
+        return copy.copy(self)
 
     def _wrap_to(self, width: float) -> list[str]:
         if width != self._wrapped_at:
