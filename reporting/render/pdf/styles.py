@@ -2,7 +2,7 @@
 are the house set of :mod:`reporting.render.paragraph_styles`, shared with the quality PDFs.
 
 Plain left-aligned text becomes a light :class:`~reporting.render.pdf.text.PlainText` (no markup is
-parsed); anything else goes through :func:`reporting.render.style.markup_text` (XML-escaped, unknown
+parsed); anything else goes through :func:`reporting.render.safe_text.markup_text` (XML-escaped, unknown
 glyphs replaced) before it becomes Paragraph markup.
 """
 
