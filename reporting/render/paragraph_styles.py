@@ -35,9 +35,9 @@ def paragraph_styles(fonts: Fonts) -> Styles:
             "fine", parent=base, fontSize=6.6, leading=8, textColor=palette.MUTED
         ),
         "muted": ParagraphStyle("muted", parent=base, textColor=palette.MUTED),
-        "cell": ParagraphStyle("cell", parent=base, fontSize=7.8, leading=9.6),
+        "cell": ParagraphStyle("cell", parent=base, fontSize=7.6, leading=9.4),
         "cell_bold": ParagraphStyle(
-            "cell_bold", parent=base, fontName=fonts.bold, fontSize=7.8, leading=9.6
+            "cell_bold", parent=base, fontName=fonts.bold, fontSize=7.6, leading=9.4
         ),
         "label": ParagraphStyle(
             "label", parent=base, fontSize=7, leading=9, textColor=palette.MUTED
