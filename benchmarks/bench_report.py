@@ -41,7 +41,8 @@ from reporting.analysis import analyze, analyze_file
 from reporting.demo import demo_study_text
 from reporting.export.record import record_json
 from reporting.load import study_from_data
-from reporting.render import curves, diagram, narrative, pdf_bytes, style, write_report
+from reporting.render import curves, diagram, narrative, pdf_bytes, write_report
+from reporting.render.fonts import body_fonts
 from reporting.render.legend import draw_legend, legend_items
 from reporting.results import Analysis
 
@@ -67,7 +68,7 @@ def load(argv: list[str]) -> Analysis:
 def baseline_content(analysis: Analysis) -> tuple[list[Drawing], list[str], list[Drawing]]:
     """The same shapes and text as the report, built once (not timed): maps and their legend
     strips, text, curve grid."""
-    fonts = style.body_fonts()
+    fonts = body_fonts()
     specs = diagram.map_specs(analysis)
     drawings = [
         diagram.bullseye(analysis, spec, radius=44, legend=False, fonts=fonts, width=127)
@@ -84,7 +85,7 @@ def baseline_content(analysis: Analysis) -> tuple[list[Drawing], list[str], list
 
 def draw_baseline(drawings: list[Drawing], lines: list[str], grid: Sequence[Drawing] = ()) -> bytes:
     """reportlab alone: one page of map drawings and text lines, a second with the curve grid."""
-    fonts = style.body_fonts()
+    fonts = body_fonts()
     buffer = io.BytesIO()
     canvas = Canvas(buffer, pagesize=A4, invariant=1)
     width, height = A4

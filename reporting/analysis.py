@@ -225,6 +225,7 @@ def analyze(
             date=study.study.date,
             lab=study.study.lab or settings.lab_name,
             lab_address=settings.lab_address,
+            lab_logo=settings.lab_logo,
             reader=study.study.reader,
             sonographer=study.study.sonographer,
             referring_physician=study.study.referring_physician,

@@ -61,6 +61,11 @@ class StudyHeader(_Result):
     lab_address: str | None = Field(
         description="Lab address or contact line from the lab settings."
     )
+    lab_logo: str | None = Field(
+        default=None,
+        description="Path of the lab's logo image (PNG or SVG) from the lab settings, printed in "
+        "the PDF letterhead.",
+    )
     reader: str | None = Field(description="Reading physician.")
     sonographer: str | None = Field(description="Sonographer.")
     referring_physician: str | None = Field(description="Referring doctor.")

@@ -14,7 +14,7 @@ from typing import Any
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
-from reporting.documents import bundled_yaml, read_yaml
+from reporting.documents import bundled_yaml, read_bytes_limited, read_yaml
 from reporting.errors import InputError, InputErrors
 from reporting.model import Protocol
 
@@ -128,6 +128,12 @@ class Settings(BaseModel):
     )
     lab_address: str | None = Field(
         max_length=300, description="Lab address or contact line for report headers."
+    )
+    lab_logo: str | None = Field(
+        default=None,
+        max_length=1000,
+        description="The lab's logo for the PDF letterhead: a PNG or SVG file, its path relative to "
+        "the settings file (checked when the settings are loaded).",
     )
     lab_uid_root: str | None = Field(
         default=None,
@@ -262,6 +268,48 @@ def default_settings() -> Settings:
     )
 
 
+LOGO_MAX_BYTES = 512 * 1024
+"""Largest logo file read (a letterhead logo is a few kilobytes)."""
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+_SVG_REFUSED = (
+    b"<!doctype",
+    b"<!entity",
+    b'href="http',
+    b"href='http",
+    b'href="file',
+    b"href='file",
+)
+
+
+class LogoKind(StrEnum):
+    """Image formats a lab logo may have."""
+
+    PNG = "png"
+    SVG = "svg"
+
+
+def read_logo(path: Path) -> bytes:
+    """The bytes of the logo at ``path``, read with a size bound; any failure is located there."""
+    return read_bytes_limited(path, what="logo image", max_bytes=LOGO_MAX_BYTES)
+
+
+def check_logo(data: bytes, path: Path) -> LogoKind:
+    """The format of logo ``data``: a PNG, or an SVG that names no document type, entity or
+    outside resource (it is drawn from the file alone). Anything else is an :class:`InputError`."""
+    if data.startswith(PNG_SIGNATURE):
+        return LogoKind.PNG
+    head = data[:4096].lstrip(b"\xef\xbb\xbf \t\r\n").lower()
+    if head.startswith((b"<?xml", b"<svg")) and b"<svg" in data[:4096].lower():
+        lowered = data.lower()
+        refused = [m.decode() for m in _SVG_REFUSED if m in lowered]
+        if refused:
+            raise InputError(
+                str(path), f"the SVG logo uses {', '.join(refused)}; a logo must be self-contained"
+            )
+        return LogoKind.SVG
+    raise InputError(str(path), "a lab logo is a PNG or SVG image; this file is neither")
+
+
 def load_settings(path: Path | None) -> Settings:
     """Defaults overridden by the lab settings file at ``path`` (``None``: the defaults)."""
     if path is None:
@@ -272,6 +320,12 @@ def load_settings(path: Path | None) -> Settings:
     if not isinstance(overrides, dict):
         raise InputError(str(path), "a settings file is a mapping of setting name -> value")
     merged = default_settings().model_dump() | overrides
+    if isinstance(merged.get("lab_logo"), str):
+        # a logo path is relative to the settings file; the image itself is checked here, so a
+        # bad logo is an error located at the setting, before any report is made
+        logo = path.parent / merged["lab_logo"]
+        check_logo(read_logo(logo), logo)
+        merged["lab_logo"] = str(logo.resolve())
     try:
         return Settings.model_validate(merged)
     except ValidationError as exc:

@@ -22,7 +22,8 @@ from reporting.demo import demo_study_text
 from reporting.kinetics.models import FitStatus
 from reporting.load import study_from_data
 from reporting.model import Stage
-from reporting.render import curves, pdf_bytes, style
+from reporting.render import curves, pdf_bytes
+from reporting.render.fonts import MAP_FONTS, body_fonts
 from reporting.results import Analysis
 from reporting.segments import Territory
 
@@ -250,10 +251,10 @@ def test_time_axis_covers_every_frame(demo6: Analysis) -> None:
 def test_beta_falls_back_to_a_word_without_a_greek_glyph(demo6: Analysis) -> None:
     assert demo6.kinetics is not None
     fit = demo6.kinetics.segments[0]
-    assert curves.stat_text(fit, style.MAP_FONTS).startswith("rest beta ")
+    assert curves.stat_text(fit, MAP_FONTS).startswith("rest beta ")
     # The packaged body font has β on every machine: no "or not embedded" escape.
-    assert style.body_fonts().embedded
-    assert "β" in curves.stat_text(fit, style.body_fonts())
+    assert body_fonts().embedded
+    assert "β" in curves.stat_text(fit, body_fonts())
 
 
 # Hides every system font folder, as on a machine without DejaVu; then prints the curve page text.

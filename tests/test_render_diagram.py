@@ -15,7 +15,7 @@ from reporting.analysis import analyze
 from reporting.demo import demo_study_names, demo_study_text
 from reporting.load import study_from_data
 from reporting.model import Stage
-from reporting.render import diagram, geometry, map_svgs, scheme, style
+from reporting.render import diagram, geometry, map_svgs, palette, scheme
 from reporting.render.diagram import MapSpec
 from reporting.render.scheme import MapKind
 from reporting.results import Analysis
@@ -177,14 +177,14 @@ def test_every_sector_carries_a_mark_for_greyscale_print() -> None:
 
 
 def _luminance(hex_value: str) -> float:
-    c = style.hex_color(hex_value)
+    c = palette.hex_color(hex_value)
     return float(0.2126 * c.red + 0.7152 * c.green + 0.0722 * c.blue)
 
 
 def test_score_colours_darken_with_the_score_so_greyscale_keeps_the_order() -> None:
     # ColorBrewer sequential schemes (Harrower & Brewer 2003) are ordered in lightness
-    for palette in (style.YLORBR_5, style.BLUES_3):
-        lum = [_luminance(c) for c in palette]
+    for colours in (palette.WALL_MOTION_FILLS, palette.PERFUSION_FILLS):
+        lum = [_luminance(c) for c in colours]
         assert lum == sorted(lum, reverse=True)
 
 

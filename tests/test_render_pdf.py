@@ -24,7 +24,8 @@ from reporting.errors import InputError
 from reporting.export.record import record_json
 from reporting.files import write_atomic
 from reporting.load import study_from_data
-from reporting.render import pdf_bytes, style, write_report
+from reporting.render import pdf_bytes, write_report
+from reporting.render.fonts import body_fonts
 from reporting.render.narrative import summary
 from reporting.results import Analysis
 from reporting.segments import Territory
@@ -141,7 +142,7 @@ def test_hostile_text_in_every_free_text_field_of_the_study_renders() -> None:
     pdf = pdf_bytes(analyze(study_from_data(data)))
     text = _text(pdf)
     assert "<b>&</para>" in text  # shown literally, not taken as markup
-    if style.body_fonts().regular == "DejaVuSans":  # the fallback font covers Latin only
+    if body_fonts().regular == "DejaVuSans":  # the fallback font covers Latin only
         assert "Привет" in text and "Ωμέγα" in text
 
 

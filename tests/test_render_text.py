@@ -16,15 +16,17 @@ from hypothesis import strategies as st
 from pypdf import PdfReader
 from reportlab.lib.enums import TA_RIGHT
 from reportlab.lib.styles import ParagraphStyle
+from reportlab.lib.utils import simpleSplit
 from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.platypus import Paragraph, SimpleDocTemplate
 from reportlab.platypus.flowables import Spacer
 
-from reporting.render import style
+from reporting.render.fonts import body_fonts
+from reporting.render.pdf import text as text_module
 from reporting.render.pdf.styles import paragraph_styles
 from reporting.render.pdf.text import PlainText, wrap_lines
 
-FONTS = style.body_fonts()
+FONTS = body_fonts()
 STYLE: ParagraphStyle = paragraph_styles(FONTS)["para"]
 FONT, SIZE = STYLE.fontName, STYLE.fontSize
 
@@ -213,3 +215,30 @@ def test_style_features_it_cannot_draw_are_refused(feature: str) -> None:
 def test_min_width_is_the_widest_word() -> None:
     para = PlainText("a b widest\nshort", STYLE)
     assert para.minWidth() == pytest.approx(_width("widest"))
+
+
+plain_words = st.text(
+    alphabet=st.sampled_from("abcdefghijklmnopqrstuvwxyzABCDEFGHIJ0123456789.,;:()–-ÄéßЖ日%"),
+    min_size=1,
+    max_size=14,
+)
+
+
+@settings(max_examples=2000, deadline=None)
+@given(words=st.lists(plain_words, min_size=1, max_size=60), width=st.floats(60, 520))
+def test_our_no_break_filling_gives_simple_splits_lines(words: list[str], width: float) -> None:
+    """The one line filler of our own (kept for lines with a no-break space, at which reportlab's
+    public simpleSplit would break) fills lines exactly as simpleSplit does (the oracle)."""
+    pieces = text_module._pieces(words, FONT, SIZE, width)
+    assert text_module._greedy(pieces, FONT, SIZE, width) == simpleSplit(
+        " ".join(pieces), FONT, SIZE, width
+    )
+
+
+@settings(max_examples=2000, deadline=None)
+@given(words=st.lists(plain_words, min_size=1, max_size=60), width=st.floats(60, 520))
+def test_plain_lines_are_simple_splits_lines(words: list[str], width: float) -> None:
+    """Without over-long words or no-break spaces, the lines are reportlab's simpleSplit's."""
+    text = " ".join(words)
+    if all(_width(w) <= width for w in words):
+        assert wrap_lines(text, FONT, SIZE, width) == simpleSplit(text, FONT, SIZE, width)

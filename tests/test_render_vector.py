@@ -34,7 +34,8 @@ from reportlab.lib import colors
 from reportlab.pdfgen.canvas import Canvas
 
 from reporting.analysis import analyze_file
-from reporting.render import curves, diagram, style, vector
+from reporting.render import curves, diagram, vector
+from reporting.render.fonts import MAP_FONTS
 from reporting.render.legend import draw_legend, legend_items
 from reporting.results import Analysis
 
@@ -59,8 +60,8 @@ def _drawings() -> list[tuple[str, Drawing]]:
         for spec in diagram.map_specs(analysis):
             out.append((f"{name}:{spec.key}", diagram.bullseye(analysis, spec)))
             items = legend_items(analysis, spec.kind)
-            out.append((f"{name}:{spec.key}:legend", draw_legend(items, 400, style.MAP_FONTS)))
-    grid = curves.curve_grid(_analysis("DEMO-0006.yaml"), 500, style.MAP_FONTS)
+            out.append((f"{name}:{spec.key}:legend", draw_legend(items, 400, MAP_FONTS)))
+    grid = curves.curve_grid(_analysis("DEMO-0006.yaml"), 500, MAP_FONTS)
     out += [(f"curves:{i}", d) for i, d in enumerate(grid)]
     return out
 

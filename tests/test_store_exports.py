@@ -88,6 +88,8 @@ def store(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Any]:
         store_cmd(db, "import", str(write_study(base / "o1", other)))
         store_cmd(db, "sign", "DEMO-0004")
         other["stages"]["peak"]["wall_motion"] = "111111 111111 1111 1"
+        # the reader confirms the impression against the corrected scores (else signing refuses)
+        other = _reconfirmed(other)
         store_cmd(
             db,
             "amend",
@@ -281,3 +283,15 @@ def test_each_replacing_sr_names_the_one_before(store: dict[str, Any]) -> None:
         ref = after.PredecessorDocumentsSequence[0].ReferencedSeriesSequence[0]
         assert ref.SeriesInstanceUID == before.SeriesInstanceUID
         assert ref.ReferencedSOPSequence[0].ReferencedSOPInstanceUID == before.SOPInstanceUID
+
+
+def _reconfirmed(data: dict[str, Any]) -> dict[str, Any]:
+    """``data`` with the reader's impression confirmed against its own scores (issue #13)."""
+    from reporting.analysis import analyze
+    from reporting.impression import confirm_impression
+    from reporting.load import study_from_data
+
+    study = study_from_data(data)
+    confirmed = confirm_impression(study, analyze(study))
+    result: dict[str, Any] = json.loads(confirmed.model_dump_json(exclude_none=True))
+    return result

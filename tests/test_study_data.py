@@ -30,9 +30,9 @@ from reporting.export.record import record_json
 from reporting.load import study_from_data
 from reporting.model import Stage
 from reporting.render import diagram, pdf_bytes
+from reporting.render.fonts import MAP_FONTS
 from reporting.render.narrative import build_narrative, conduct, narrative_text, text_blocks
 from reporting.render.pdf.styles import paragraph_styles
-from reporting.render.style import MAP_FONTS
 from reporting.render.tables import haemodynamics_table
 from reporting.results import Analysis
 from reporting.settings import Settings, default_settings, load_settings

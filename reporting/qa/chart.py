@@ -8,27 +8,30 @@ Sensitivity and specificity differ in colour (Okabe–Ito blue and vermillion) a
 
 from __future__ import annotations
 
-from reportlab.graphics.shapes import Circle, Drawing, Line, Rect, String
 from reportlab.lib import colors
 from reportlab.lib.units import mm
 
 from reporting.qa.metrics import DiagnosticAccuracy
 from reporting.qa.review import QualityReview
-from reporting.render import style
+from reporting.render import palette
+from reporting.render.fonts import Fonts
+from reporting.render.shapes import Circle, Drawing, Line, Rect, String
 from reporting.segments import Territory
 
-SENSITIVITY_COLOUR = style.hex_color(style.OKABE_ITO["blue"])
-SPECIFICITY_COLOUR = style.hex_color(style.OKABE_ITO["vermillion"])
+SENSITIVITY_COLOUR = palette.hex_color(palette.OKABE_ITO["blue"])
+SPECIFICITY_COLOUR = palette.hex_color(palette.OKABE_ITO["vermillion"])
 
 
-def accuracy_chart(review: QualityReview, fonts: style.Fonts, width: float) -> Drawing:
+def accuracy_chart(review: QualityReview, fonts: Fonts, width: float) -> Drawing:
     """Sensitivity (circles) and specificity (squares) per patient and per territory, with whiskers."""
     height = float(52 * mm)
     left, right, bottom, top = 30.0, 110.0, 18.0, 8.0
     plot_w, plot_h = width - left - right, height - bottom - top
     d = Drawing(width, height)
     d.add(
-        Rect(left, bottom, plot_w, plot_h, fillColor=None, strokeColor=style.RULE, strokeWidth=0.5)
+        Rect(
+            left, bottom, plot_w, plot_h, fillColor=None, strokeColor=palette.RULE, strokeWidth=0.5
+        )
     )
 
     def y_of(value: float) -> float:
@@ -42,7 +45,7 @@ def accuracy_chart(review: QualityReview, fonts: style.Fonts, width: float) -> D
                 y,
                 left + plot_w,
                 y,
-                strokeColor=style.PANEL if 0 < tick < 1 else style.RULE,
+                strokeColor=palette.PANEL if 0 < tick < 1 else palette.RULE,
                 strokeWidth=0.5,
             )
         )
@@ -53,7 +56,7 @@ def accuracy_chart(review: QualityReview, fonts: style.Fonts, width: float) -> D
                 f"{tick * 100:.0f} %",
                 fontName=fonts.regular,
                 fontSize=7,
-                fillColor=style.MUTED,
+                fillColor=palette.MUTED,
                 textAnchor="end",
             )
         )
@@ -70,7 +73,7 @@ def accuracy_chart(review: QualityReview, fonts: style.Fonts, width: float) -> D
                 name,
                 fontName=fonts.regular,
                 fontSize=8,
-                fillColor=style.INK,
+                fillColor=palette.INK,
                 textAnchor="middle",
             )
         )
@@ -87,7 +90,7 @@ def accuracy_chart(review: QualityReview, fonts: style.Fonts, width: float) -> D
                         "n/a",
                         fontName=fonts.regular,
                         fontSize=7,
-                        fillColor=style.MUTED,
+                        fillColor=palette.MUTED,
                         textAnchor="middle",
                     )
                 )
@@ -107,7 +110,9 @@ def accuracy_chart(review: QualityReview, fonts: style.Fonts, width: float) -> D
         y = bottom + plot_h - 10 - row * 14
         d.add(_marker(marker, legend_x, y + 2.5, colour))
         d.add(
-            String(legend_x + 8, y, label, fontName=fonts.regular, fontSize=8, fillColor=style.INK)
+            String(
+                legend_x + 8, y, label, fontName=fonts.regular, fontSize=8, fillColor=palette.INK
+            )
         )
     d.add(
         Line(
@@ -115,12 +120,16 @@ def accuracy_chart(review: QualityReview, fonts: style.Fonts, width: float) -> D
             bottom + plot_h - 38,
             legend_x + 3,
             bottom + plot_h - 38,
-            strokeColor=style.MUTED,
+            strokeColor=palette.MUTED,
         )
     )
     d.add(
         Line(
-            legend_x, bottom + plot_h - 38, legend_x, bottom + plot_h - 28, strokeColor=style.MUTED
+            legend_x,
+            bottom + plot_h - 38,
+            legend_x,
+            bottom + plot_h - 28,
+            strokeColor=palette.MUTED,
         )
     )
     d.add(
@@ -129,7 +138,7 @@ def accuracy_chart(review: QualityReview, fonts: style.Fonts, width: float) -> D
             bottom + plot_h - 28,
             legend_x + 3,
             bottom + plot_h - 28,
-            strokeColor=style.MUTED,
+            strokeColor=palette.MUTED,
         )
     )
     d.add(
@@ -139,7 +148,7 @@ def accuracy_chart(review: QualityReview, fonts: style.Fonts, width: float) -> D
             "95 % interval",
             fontName=fonts.regular,
             fontSize=8,
-            fillColor=style.INK,
+            fillColor=palette.INK,
         )
     )
     return d

@@ -1,8 +1,9 @@
-"""Layout pieces of the quality PDF: paragraph styles, table styles and number formatting.
+"""Layout pieces of the quality PDF: table styles and number formatting; the paragraph styles are
+the house set of :mod:`reporting.render.paragraph_styles`, shared with the report.
 
 A plain design of our own: black rules above and below each table and under its header, a light panel
 behind the four cells of a 2×2 table, bold row labels, one body font (the embedded Unicode family of
-:mod:`reporting.render.style`). Percentages are whole numbers, kappas two decimals; a missing value
+:mod:`reporting.render.palette`). Percentages are whole numbers, kappas two decimals; a missing value
 prints as "n/a", never as 0.
 """
 
@@ -10,43 +11,13 @@ from __future__ import annotations
 
 from typing import Any
 
-from reportlab.lib.enums import TA_LEFT
 from reportlab.lib.styles import ParagraphStyle
 from reportlab.lib.units import mm
 from reportlab.platypus import Flowable, Table, TableStyle
 
 from reporting.qa.agreement import KappaStatistic
 from reporting.qa.metrics import Proportion
-from reporting.render import style
-
-
-def paragraph_styles(fonts: style.Fonts) -> dict[str, ParagraphStyle]:
-    base = ParagraphStyle(
-        "body",
-        fontName=fonts.regular,
-        fontSize=8.5,
-        leading=11,
-        textColor=style.INK,
-        alignment=TA_LEFT,
-    )
-    return {
-        "title": ParagraphStyle("title", parent=base, fontName=fonts.bold, fontSize=15, leading=19),
-        "h2": ParagraphStyle(
-            "h2",
-            parent=base,
-            fontName=fonts.bold,
-            fontSize=10.5,
-            leading=14,
-            spaceBefore=2,
-            spaceAfter=3,
-        ),
-        "body": base,
-        "muted": ParagraphStyle("muted", parent=base, textColor=style.MUTED),
-        "small": ParagraphStyle(
-            "small", parent=base, fontSize=7.5, leading=9.5, textColor=style.MUTED
-        ),
-        "cell": ParagraphStyle("cell", parent=base, fontSize=8, leading=10),
-    }
+from reporting.render import palette
 
 
 def table_style(
@@ -61,11 +32,11 @@ def table_style(
     commands: list[tuple[Any, ...]] = [
         ("FONT", (0, 0), (-1, -1), font, 8),
         ("FONT", (0, 0), (-1, header_rows - 1), bold, 8),
-        ("TEXTCOLOR", (0, 0), (-1, -1), style.INK),
+        ("TEXTCOLOR", (0, 0), (-1, -1), palette.INK),
         ("VALIGN", (0, 0), (-1, -1), "MIDDLE"),
-        ("LINEABOVE", (0, 0), (-1, 0), 0.6, style.INK),
-        ("LINEBELOW", (0, header_rows - 1), (-1, header_rows - 1), 0.4, style.RULE),
-        ("LINEBELOW", (0, -1), (-1, -1), 0.6, style.INK),
+        ("LINEABOVE", (0, 0), (-1, 0), 0.6, palette.INK),
+        ("LINEBELOW", (0, header_rows - 1), (-1, header_rows - 1), 0.4, palette.RULE),
+        ("LINEBELOW", (0, -1), (-1, -1), 0.6, palette.INK),
         ("TOPPADDING", (0, 0), (-1, -1), 2),
         ("BOTTOMPADDING", (0, 0), (-1, -1), 2),
         ("LEFTPADDING", (0, 0), (-1, -1), 3),
@@ -75,7 +46,7 @@ def table_style(
         commands.append(("FONT", (0, header_rows), (0, -1), bold, 8))
     if align_numbers:
         commands.append(("ALIGN", (1, 0), (-1, -1), "RIGHT"))
-        commands.append(("BACKGROUND", (1, 1), (2, 2), style.PANEL))
+        commands.append(("BACKGROUND", (1, 1), (2, 2), palette.PANEL))
     return TableStyle(commands)
 
 

@@ -11,19 +11,12 @@ from __future__ import annotations
 import logging
 from pathlib import Path
 
-from reportlab import rl_config
-
-# Attribute validation of reportlab shapes costs about a fifth of the PDF time; our drawings are
-# built by tested code, so it is switched off before reportlab.graphics.shapes is first imported
-# (the flag is read when that module loads).
-rl_config.shapeChecking = 0
-
-from reporting.export.record import record_json  # noqa: E402
-from reporting.files import all_or_nothing, write_atomic  # noqa: E402
-from reporting.render import diagram  # noqa: E402
-from reporting.render.narrative import narrative_html, narrative_text  # noqa: E402
-from reporting.render.pdf import PAPERS, pdf_bytes  # noqa: E402
-from reporting.results import Analysis  # noqa: E402
+from reporting.export.record import record_json
+from reporting.files import all_or_nothing, write_atomic
+from reporting.render import diagram
+from reporting.render.narrative import narrative_html, narrative_text
+from reporting.render.pdf import PAPERS, pdf_bytes
+from reporting.results import Analysis
 
 log = logging.getLogger(__name__)
 

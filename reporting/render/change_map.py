@@ -12,7 +12,7 @@ from __future__ import annotations
 from enum import StrEnum
 
 from reporting.comparison import ischemic_response
-from reporting.render import style
+from reporting.render import palette
 from reporting.render.scheme import RESPONSE_STYLE
 from reporting.results import Analysis
 from reporting.scoring import WallMotionResponse
@@ -34,9 +34,9 @@ class SegmentTrend(StrEnum):
 
 
 CHANGE_STYLE: dict[SegmentTrend, tuple[str, str, str]] = {
-    SegmentTrend.WORSE: (style.OKABE_ITO["vermillion"], "+", "more ischaemic than before"),
-    SegmentTrend.BETTER: (style.OKABE_ITO["bluish_green"], "-", "less ischaemic than before"),
-    SegmentTrend.OTHER: (style.OKABE_ITO["yellow"], "~", "other change of response"),
+    SegmentTrend.WORSE: (palette.OKABE_ITO["vermillion"], "+", "more ischaemic than before"),
+    SegmentTrend.BETTER: (palette.OKABE_ITO["bluish_green"], "-", "less ischaemic than before"),
+    SegmentTrend.OTHER: (palette.OKABE_ITO["yellow"], "~", "other change of response"),
     SegmentTrend.SAME: ("#ffffff", "=", "unchanged"),
 }
 """Fill (hex), mark and legend words per trend; not-compared sectors are hatched and marked x."""

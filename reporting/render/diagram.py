@@ -8,7 +8,7 @@ Each map has one purpose (segment numbers and territories, wall motion at one st
 response, perfusion at one stage). Every sector is one closed path (true circular arcs as Bézier
 curves) carrying a digit or letter, so the map reads in greyscale; not-visualised sectors are hatched
 and marked ``x``; a thicker line runs wherever neighbouring sectors belong to different territories
-under the map the analysis used. Colours and their published palettes: :mod:`reporting.render.style`.
+under the map the analysis used. Colours and their published palettes: :mod:`reporting.render.palette`.
 """
 
 from __future__ import annotations
@@ -18,13 +18,13 @@ from dataclasses import dataclass
 from functools import lru_cache
 from typing import Any
 
-from reportlab.graphics.shapes import Circle, Drawing, Group, Path, String
 from reportlab.lib.colors import Color
 from reportlab.pdfbase.pdfmetrics import stringWidth
 
 from reporting.kinetics.models import ReserveFlag
 from reporting.model import Protocol, Stage
-from reporting.render import style
+from reporting.render import palette
+from reporting.render.fonts import MAP_FONTS, Fonts
 from reporting.render.geometry import (
     Edge,
     Sector,
@@ -45,13 +45,15 @@ from reporting.render.scheme import (
     perfusion_fill,
     wall_motion_fill,
 )
-from reporting.render.style import MAP_FONTS, Fonts
+from reporting.render.shapes import Circle, Drawing, Group, Path, String
 from reporting.render.vector import TaggedGroup, TaggedPath, svg_document
 from reporting.results import Analysis, SegmentResult
 from reporting.scoring import WallMotionResponse
 from reporting.wording import stage_words
 
 HATCH_SPACING_PT = 2.6
+MERGED_CAPTION_CHARS = 44
+"""Longest caption naming the merged stages (fits a quarter of the page at the caption size)."""
 
 
 @dataclass(frozen=True)
@@ -62,6 +64,8 @@ class MapSpec:
     stage: Stage | None = None
     protocol: Protocol | None = None
     """The study's protocol: exercise studies title their stages with workload words."""
+    merged: tuple[Stage, ...] = ()
+    """Stages this one map stands for (``stage`` first): identical all-normal stages shown once."""
 
     @property
     def key(self) -> str:
@@ -80,7 +84,16 @@ class MapSpec:
         }
         if self.stage is None:
             return titles[self.kind]
+        if len(self.merged) > 1:
+            return f"{titles[self.kind]} – {merged_stage_words(self.merged, self.protocol)}"
         return f"{titles[self.kind]} – {stage_title(self.stage, self.protocol)}"
+
+
+def merged_stage_words(stages: tuple[Stage, ...], protocol: Protocol | None = None) -> str:
+    """``rest and peak``; ``all stages`` for more than two."""
+    if len(stages) == 2:
+        return " and ".join(stage_title(s, protocol) for s in stages)
+    return "all stages"
 
 
 def stage_title(stage: Stage, protocol: Protocol | None = None) -> str:
@@ -103,6 +116,38 @@ def map_specs(analysis: Analysis) -> list[MapSpec]:
     return specs
 
 
+def _all_normal(scores: list[dict[Stage, int | None]], stages: list[Stage]) -> bool:
+    """Every segment seen and scored normal (1) at every one of ``stages``."""
+    return all(seg.get(stage) == 1 for seg in scores for stage in stages)
+
+
+def page_map_specs(analysis: Analysis) -> list[MapSpec]:
+    """The maps the PDF shows: :func:`map_specs` with maps that carry no information merged.
+
+    Wall-motion (or perfusion) stages that are all normal, every segment seen, are one map titled
+    with the stages it stands for; its caption says so. With every wall-motion stage normal, the
+    response map (all normal by definition) is left out. The SVG files keep one map per stage.
+    """
+    specs = map_specs(analysis)
+    out: list[MapSpec] = []
+    for kind, scores in (
+        (MapKind.WALL_MOTION, [s.wall_motion for s in analysis.segments]),
+        (MapKind.PERFUSION, [s.perfusion for s in analysis.segments]),
+    ):
+        stages = tuple(s.stage for s in specs if s.kind is kind and s.stage is not None)
+        if len(stages) > 1 and _all_normal(scores, list(stages)):
+            merged = MapSpec(kind, stages[0], analysis.protocol, merged=stages)
+            first = next(i for i, s in enumerate(specs) if s.kind is kind)
+            specs = [s for s in specs if s.kind is not kind]
+            specs.insert(first, merged)
+    wall = [s for s in specs if s.kind is MapKind.WALL_MOTION]
+    for spec in specs:
+        if spec.kind is MapKind.RESPONSE and len(wall) == 1 and len(wall[0].merged) > 1:
+            continue
+        out.append(spec)
+    return out
+
+
 # --- what each sector shows -------------------------------------------------------------------
 
 
@@ -117,7 +162,7 @@ class Cell:
 
 
 def _not_seen(seg: SegmentResult, what: str) -> Cell:
-    return Cell(style.NOT_SEEN_FILL, "x", True, f"{seg.number} {seg.name}: {what}")
+    return Cell(palette.NOT_SEEN_FILL, "x", True, f"{seg.number} {seg.name}: {what}")
 
 
 def cells(analysis: Analysis, spec: MapSpec) -> dict[int, Cell]:
@@ -165,7 +210,7 @@ def cells(analysis: Analysis, spec: MapSpec) -> dict[int, Cell]:
                 out[n] = _not_seen(seg, "not assessable")
             else:
                 fill, mark, words = RESPONSE_STYLE[seg.response]
-                out[n] = Cell(style.hex_color(fill), mark, False, f"{n} {name}: {words}")
+                out[n] = Cell(palette.hex_color(fill), mark, False, f"{n} {name}: {words}")
     return out
 
 
@@ -181,7 +226,7 @@ def _change_cells(analysis: Analysis) -> dict[int, Cell]:
         else:
             fill, mark, _ = CHANGE_STYLE[trend]
             out[seg.number] = Cell(
-                style.hex_color(fill), mark, False, f"{seg.number} {seg.name}: {words}"
+                palette.hex_color(fill), mark, False, f"{seg.number} {seg.name}: {words}"
             )
     return out
 
@@ -192,6 +237,11 @@ def caption(analysis: Analysis, spec: MapSpec) -> str:
         from reporting.render.change_map import change_caption
 
         return change_caption(analysis)
+    if len(spec.merged) > 1:
+        names = [stage_title(s, spec.protocol) for s in spec.merged]
+        stages = ", ".join(names[:-1]) + " and " + names[-1]
+        words = f"{stages[:1].upper()}{stages[1:]}: all segments normal"
+        return words if len(words) <= MERGED_CAPTION_CHARS else "All segments normal at every stage"
     if spec.kind is MapKind.WALL_MOTION and spec.stage is not None:
         if spec.stage not in analysis.wmsi:
             return "WMSI not computed"
@@ -260,7 +310,7 @@ def _sector_outline(
 
 def _edges_path(edges: list[Edge], cx: float, cy: float, radius: float, width: float) -> Path:
     """All territory boundaries of a map as one path of open subpaths."""
-    path = Path(strokeColor=style.INK, strokeWidth=width, fillColor=None, strokeLineCap=1)
+    path = Path(strokeColor=palette.INK, strokeWidth=width, fillColor=None, strokeLineCap=1)
     for edge in edges:
         a0 = math.radians(edge.a0)
         path.moveTo(cx + edge.r0 * radius * math.cos(a0), cy + edge.r0 * radius * math.sin(a0))
@@ -282,7 +332,7 @@ def draw_disc(
     """
     shown = cells(analysis, spec)
     segment_shapes = TaggedGroup(svg_class="segments")
-    hatching = Path(strokeColor=style.MUTED, strokeWidth=0.45, fillColor=None)
+    hatching = Path(strokeColor=palette.MUTED, strokeWidth=0.45, fillColor=None)
     marks = Group()
     font_size = max(6.0, radius * 0.17)
     for sector in sectors(analysis.segment_model):
@@ -294,7 +344,7 @@ def draw_disc(
                 cy,
                 radius,
                 fillColor=cell.fill,
-                strokeColor=style.RULE,
+                strokeColor=palette.RULE,
                 strokeWidth=0.5,
                 svg_id=f"segment-{sector.number}",
                 svg_class="segment",
@@ -311,7 +361,7 @@ def draw_disc(
         size = min(font_size, _room(sector, radius) / stringWidth(cell.mark, fonts.bold, 1))
         if cell.hatched:
             # a white backing keeps the 'x' legible over the hatch lines
-            marks.add(Circle(lx, ly, size * 0.55, fillColor=style.WHITE, strokeColor=None))
+            marks.add(Circle(lx, ly, size * 0.55, fillColor=palette.WHITE, strokeColor=None))
         marks.add(
             String(
                 lx,
@@ -319,7 +369,7 @@ def draw_disc(
                 cell.mark,
                 fontName=fonts.bold,
                 fontSize=size,
-                fillColor=style.MUTED if cell.mark == "N" else style.text_on(cell.fill),
+                fillColor=palette.MUTED if cell.mark == "N" else palette.text_on(cell.fill),
                 textAnchor="middle",
             )
         )
@@ -331,7 +381,7 @@ def draw_disc(
     edges = territory_boundaries(analysis.segment_model, territories)
     if edges:
         group.add(_edges_path(edges, cx, cy, radius, width))
-    group.add(Circle(cx, cy, radius, fillColor=None, strokeColor=style.INK, strokeWidth=0.9))
+    group.add(Circle(cx, cy, radius, fillColor=None, strokeColor=palette.INK, strokeWidth=0.9))
     group.add(marks)
     return group
 
@@ -358,7 +408,7 @@ def _orientation(group: Group, cx: float, cy: float, radius: float, fonts: Fonts
             text,
             fontName=fonts.regular,
             fontSize=size,
-            fillColor=style.MUTED,
+            fillColor=palette.MUTED,
             textAnchor="middle",
         )
         if not angle:
@@ -404,7 +454,7 @@ def bullseye(
             spec.title,
             fontName=fonts.bold,
             fontSize=title_size,
-            fillColor=style.INK,
+            fillColor=palette.INK,
             textAnchor="middle",
         )
     )
@@ -417,7 +467,7 @@ def bullseye(
             caption(analysis, spec),
             fontName=fonts.regular,
             fontSize=caption_size,
-            fillColor=style.INK,
+            fillColor=palette.INK,
             textAnchor="middle",
         )
     )

@@ -6,7 +6,7 @@ machine, whatever fonts the system has: Latin, Greek (the β of the curve panels
 Armenian, Georgian, Hebrew, Arabic letters and many symbols. Nothing is looked up in system font
 folders, so no machine can silently swap in a font that lacks a glyph. Should the packaged files
 be missing or damaged, the PDF falls back to the built-in Helvetica (WinAnsi only) with a warning,
-and text it cannot show is replaced visibly (see :mod:`reporting.render.style`).
+and text it cannot show is replaced visibly (see :mod:`reporting.render.safe_text`).
 
 Maps and their legends use Helvetica (:data:`MAP_FONTS`), which every PDF viewer has and which the
 SVG output names too; strings drawn there keep to WinAnsi characters.

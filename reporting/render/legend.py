@@ -7,11 +7,11 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from reportlab.graphics.shapes import Drawing, Line, Path, Rect, String
 from reportlab.lib.colors import Color
 from reportlab.pdfbase.pdfmetrics import stringWidth
 
-from reporting.render import style
+from reporting.render import palette
+from reporting.render.fonts import MAP_FONTS, Fonts
 from reporting.render.scheme import (
     PERFUSION_WORDS,
     RESERVE_ADEQUATE,
@@ -23,7 +23,7 @@ from reporting.render.scheme import (
     perfusion_fill,
     wall_motion_fill,
 )
-from reporting.render.style import MAP_FONTS, Fonts
+from reporting.render.shapes import Drawing, Line, Path, Rect, String
 from reporting.results import Analysis
 from reporting.segments import Territory
 
@@ -39,7 +39,7 @@ class LegendItem:
 
 def legend_items(analysis: Analysis, kind: MapKind) -> list[LegendItem]:
     """The legend entries of a map of ``kind``."""
-    seen = LegendItem(style.NOT_SEEN_FILL, "x", True, "not visualised")
+    seen = LegendItem(palette.NOT_SEEN_FILL, "x", True, "not visualised")
     boundary = LegendItem(None, "", False, "territory boundary", line=True)
     if kind is MapKind.SEGMENTS:
         items = [LegendItem(TERRITORY_FILL[t], "", False, t.value) for t in Territory]
@@ -53,16 +53,16 @@ def legend_items(analysis: Analysis, kind: MapKind) -> list[LegendItem]:
         items = [
             LegendItem(RESERVE_ADEQUATE, "", False, "A·β reserve at or above cut-off"),
             LegendItem(RESERVE_LOW, "", False, "below cut-off"),
-            LegendItem(style.NOT_SEEN_FILL, "x", True, "no good fit"),
+            LegendItem(palette.NOT_SEEN_FILL, "x", True, "no good fit"),
         ]
     elif kind is MapKind.CHANGE:
         from reporting.render.change_map import CHANGE_STYLE, NOT_COMPARED_WORDS
 
         items = [
-            LegendItem(style.hex_color(fill), mark, False, words)
+            LegendItem(palette.hex_color(fill), mark, False, words)
             for fill, mark, words in CHANGE_STYLE.values()
         ]
-        items.append(LegendItem(style.NOT_SEEN_FILL, "x", True, NOT_COMPARED_WORDS))
+        items.append(LegendItem(palette.NOT_SEEN_FILL, "x", True, NOT_COMPARED_WORDS))
     elif kind is MapKind.PERFUSION:
         items = [
             LegendItem(perfusion_fill(s), str(s), False, w) for s, w in PERFUSION_WORDS.items()
@@ -70,10 +70,10 @@ def legend_items(analysis: Analysis, kind: MapKind) -> list[LegendItem]:
         items.append(seen)
     else:
         items = [
-            LegendItem(style.hex_color(fill), mark, False, words)
+            LegendItem(palette.hex_color(fill), mark, False, words)
             for fill, mark, words in RESPONSE_STYLE.values()
         ]
-        items.append(LegendItem(style.NOT_SEEN_FILL, "x", True, "not assessable"))
+        items.append(LegendItem(palette.NOT_SEEN_FILL, "x", True, "not assessable"))
     return [*items, boundary]
 
 
@@ -107,29 +107,29 @@ def draw_legend(
                 label,
                 fontName=fonts.bold,
                 fontSize=size,
-                fillColor=style.INK,
+                fillColor=palette.INK,
             )
         )
     for x, r, item in placed:
         y = (rows - 1 - r) * row_height + 1.5
         if item.line:
             drawing.add(
-                Line(x, y + box / 2, x + box, y + box / 2, strokeColor=style.INK, strokeWidth=1.8)
+                Line(x, y + box / 2, x + box, y + box / 2, strokeColor=palette.INK, strokeWidth=1.8)
             )
         else:
             drawing.add(
-                Rect(x, y, box, box, fillColor=item.fill, strokeColor=style.RULE, strokeWidth=0.5)
+                Rect(x, y, box, box, fillColor=item.fill, strokeColor=palette.RULE, strokeWidth=0.5)
             )
             if item.hatched:
                 # the same 45° hatch as a not-visualised sector
-                hatch = Path(strokeColor=style.MUTED, strokeWidth=0.45, fillColor=None)
+                hatch = Path(strokeColor=palette.MUTED, strokeWidth=0.45, fillColor=None)
                 for k in range(-3, 4):
                     c = box * k / 4
                     hatch.moveTo(x + max(0.0, -c), y + max(0.0, c))
                     hatch.lineTo(x + box - max(0.0, c), y + box - max(0.0, -c))
                 drawing.add(hatch)
             if item.mark:
-                fill = item.fill or style.WHITE
+                fill = item.fill or palette.WHITE
                 drawing.add(
                     String(
                         x + box / 2,
@@ -137,7 +137,7 @@ def draw_legend(
                         item.mark,
                         fontName=fonts.bold,
                         fontSize=size,
-                        fillColor=style.text_on(fill) if not item.hatched else style.INK,
+                        fillColor=palette.text_on(fill) if not item.hatched else palette.INK,
                         textAnchor="middle",
                     )
                 )
@@ -148,7 +148,7 @@ def draw_legend(
                 item.text,
                 fontName=fonts.regular,
                 fontSize=size,
-                fillColor=style.INK,
+                fillColor=palette.INK,
             )
         )
     return drawing

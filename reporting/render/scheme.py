@@ -1,8 +1,9 @@
 """Our colour scheme for the maps and curves: how each score, response, territory and stage looks.
 
-Built from published colour-blind-safe palettes (see :mod:`reporting.render.style`): ColorBrewer
-sequential "YlOrBr" for wall-motion scores and "Blues" for perfusion scores, Okabe–Ito for response
-categories, territories and the stages of fitted replenishment curves. Every category also has a
+Built from published colour-blind-safe palettes (see :mod:`reporting.render.palette`): normal is
+white everywhere; ColorBrewer sequential "YlOrBr" for abnormal wall-motion scores and "Blues" for
+abnormal perfusion scores; Okabe–Ito for response categories (a dark neutral grey for fixed, so no
+wall-motion meaning wears a perfusion blue), territories and the stages of fitted curves. Every category also has a
 digit, a letter or (for curves) a marker shape and line style, so greyscale prints stay readable.
 """
 
@@ -13,7 +14,7 @@ from enum import StrEnum
 from reportlab.lib.colors import Color
 
 from reporting.model import Stage
-from reporting.render import style
+from reporting.render import palette
 from reporting.scoring import WallMotionResponse
 from reporting.segments import Territory
 
@@ -41,47 +42,47 @@ class MapKind(StrEnum):
 
 # Okabe–Ito colours for the categories; a letter in each sector for greyscale print.
 RESPONSE_STYLE: dict[WallMotionResponse, tuple[str, str, str]] = {
-    WallMotionResponse.NORMAL: ("#ffffff", "N", "normal"),
-    WallMotionResponse.ISCHEMIC: (style.OKABE_ITO["vermillion"], "I", "ischaemic"),
-    WallMotionResponse.BIPHASIC: (style.OKABE_ITO["reddish_purple"], "B", "biphasic"),
+    WallMotionResponse.NORMAL: (palette.NORMAL_FILL, "N", "normal"),
+    WallMotionResponse.ISCHEMIC: (palette.OKABE_ITO["vermillion"], "I", "ischaemic"),
+    WallMotionResponse.BIPHASIC: (palette.OKABE_ITO["reddish_purple"], "B", "biphasic"),
     WallMotionResponse.SUSTAINED_IMPROVEMENT: (
-        style.OKABE_ITO["bluish_green"],
+        palette.OKABE_ITO["bluish_green"],
         "V",
         "viable, sustained improvement",
     ),
-    WallMotionResponse.FIXED: (style.OKABE_ITO["blue"], "F", "fixed"),
+    WallMotionResponse.FIXED: (palette.SCAR_GREY, "F", "fixed"),
     WallMotionResponse.AKINETIC_TO_DYSKINETIC: (
-        style.OKABE_ITO["yellow"],
+        palette.OKABE_ITO["yellow"],
         "D",
         "akinetic to dyskinetic",
     ),
 }
 TERRITORY_FILL = {
-    Territory.LAD: style.tint(style.OKABE_ITO["sky_blue"], 0.5),
-    Territory.LCX: style.tint(style.OKABE_ITO["orange"], 0.45),
-    Territory.RCA: style.tint(style.OKABE_ITO["bluish_green"], 0.55),
+    Territory.LAD: palette.tint(palette.OKABE_ITO["sky_blue"], 0.5),
+    Territory.LCX: palette.tint(palette.OKABE_ITO["orange"], 0.45),
+    Territory.RCA: palette.tint(palette.OKABE_ITO["bluish_green"], 0.55),
 }
 
 
 # Kinetic reserve: light where the A·β reserve is at or above the cut-off, Okabe–Ito orange below it;
 # the value itself is printed in each sector.
-RESERVE_ADEQUATE = style.hex_color(style.BLUES_3[0])
-RESERVE_LOW = style.hex_color(style.OKABE_ITO["orange"])
+RESERVE_ADEQUATE = palette.hex_color(palette.NORMAL_FILL)
+RESERVE_LOW = palette.hex_color(palette.OKABE_ITO["orange"])
 
 
 def wall_motion_fill(score: int) -> Color:
-    return style.hex_color(style.YLORBR_5[score - 1])
+    return palette.hex_color(palette.WALL_MOTION_FILLS[score - 1])
 
 
 def perfusion_fill(score: int) -> Color:
-    return style.hex_color(style.BLUES_3[score - 1])
+    return palette.hex_color(palette.PERFUSION_FILLS[score - 1])
 
 
 # Fitted replenishment curves: one Okabe–Ito colour per stage; curves.py adds a marker shape and a
 # line style per stage, so rest and peak stay apart in greyscale too.
 CURVE_STAGE_COLOUR: dict[Stage, Color] = {
-    Stage.REST: style.hex_color(style.OKABE_ITO["blue"]),
-    Stage.LOW_DOSE: style.hex_color(style.OKABE_ITO["bluish_green"]),
-    Stage.PEAK: style.hex_color(style.OKABE_ITO["vermillion"]),
-    Stage.RECOVERY: style.hex_color(style.OKABE_ITO["reddish_purple"]),
+    Stage.REST: palette.hex_color(palette.OKABE_ITO["blue"]),
+    Stage.LOW_DOSE: palette.hex_color(palette.OKABE_ITO["bluish_green"]),
+    Stage.PEAK: palette.hex_color(palette.OKABE_ITO["vermillion"]),
+    Stage.RECOVERY: palette.hex_color(palette.OKABE_ITO["reddish_purple"]),
 }

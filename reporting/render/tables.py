@@ -15,7 +15,7 @@ from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.platypus import Flowable, Table, TableStyle
 
 from reporting.model import Stage
-from reporting.render import diagram, narrative, style
+from reporting.render import diagram, narrative, palette
 from reporting.render.pdf.styles import dash, paragraph
 from reporting.results import Analysis, TerritoryResult, TerritoryStatus
 from reporting.segments import Territory
@@ -46,10 +46,10 @@ def data_table(
     table = Table(cells, colWidths=widths, repeatRows=1, hAlign="LEFT")
     commands: list[tuple[Any, ...]] = [
         ("FONT", (0, 0), (-1, -1), regular.fontName, regular.fontSize, regular.leading),
-        ("TEXTCOLOR", (0, 0), (-1, -1), style.INK),
-        ("BACKGROUND", (0, 0), (-1, 0), style.PANEL),
-        ("LINEBELOW", (0, 0), (-1, 0), 0.8, style.INK),
-        ("LINEBELOW", (0, 1), (-1, -1), 0.3, style.RULE),
+        ("TEXTCOLOR", (0, 0), (-1, -1), palette.INK),
+        ("BACKGROUND", (0, 0), (-1, 0), palette.PANEL),
+        ("LINEBELOW", (0, 0), (-1, 0), 0.8, palette.INK),
+        ("LINEBELOW", (0, 1), (-1, -1), 0.3, palette.RULE),
         ("VALIGN", (0, 0), (-1, -1), "TOP"),
         ("LEFTPADDING", (0, 0), (-1, -1), padding),
         ("RIGHTPADDING", (0, 0), (-1, -1), padding),
@@ -65,15 +65,21 @@ def data_table(
     return table
 
 
-def territory_table(analysis: Analysis, width: float, st: dict[str, ParagraphStyle]) -> Table:
+def territory_table(
+    analysis: Analysis,
+    width: float,
+    st: dict[str, ParagraphStyle],
+    *,
+    one_wmsi_column: bool = False,
+) -> Table:
+    """WMSI and findings per territory. ``one_wmsi_column``: the stages were all normal (one map
+    stands for them), so one WMSI column stands for every stage too."""
     stages = [s for s in analysis.stages if s in analysis.segments[0].wall_motion]
+    titles = [f"WMSI {diagram.stage_title(s, analysis.protocol)}" for s in stages]
+    if one_wmsi_column and stages:
+        stages, titles = stages[:1], ["WMSI, every stage"]
     perfusion = analysis.perfusion.scored
-    head = [
-        "Territory",
-        "Segments",
-        *[f"WMSI {diagram.stage_title(s, analysis.protocol)}" for s in stages],
-        "Ischaemic segments",
-    ]
+    head = ["Territory", "Segments", *titles, "Ischaemic segments"]
     if perfusion:
         head.append("Perfusion defects")
     kinetics = analysis.kinetics.territory_reserve if analysis.kinetics else None
@@ -111,7 +117,7 @@ def territory_table(analysis: Analysis, width: float, st: dict[str, ParagraphSty
     if kinetics is not None:
         glob.append("")
     rows.append(glob)
-    fixed = [0.11, 0.19] + [0.09] * len(stages)
+    fixed = [0.11, 0.19] + [0.09] * len(stages) if not one_wmsi_column else [0.2, 0.32, 0.2]
     if kinetics is not None:
         fixed.append(0.13)
     rest = 1 - sum(fixed)
@@ -178,7 +184,7 @@ def haemodynamics_table(analysis: Analysis, width: float, st: dict[str, Paragrap
         if esv:
             cells.append("–" if d.lv_esv_ml is None else f"{d.lv_esv_ml:g}")
         rows.append(cells)
-    weights = [1.0] + ([2.0] if dose else []) + [1.0] * (3 if percent else 2) + [1.4]
+    weights = [1.0] + ([2.4] if dose else []) + [1.0] * (3 if percent else 2) + [1.3]
     weights += [0.9] * (lvef + esv)
     return data_table(rows, [w / sum(weights) * width for w in weights], st)
 

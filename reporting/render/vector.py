@@ -40,6 +40,8 @@ from reportlab.lib.validators import isStringOrNone
 from reportlab.pdfgen.canvas import Canvas
 from reportlab.platypus import Flowable
 
+from reporting.render import shapes
+
 __all__ = ["DrawingFlowable", "TaggedGroup", "TaggedPath", "paint", "svg_document"]
 
 _TAGS = {
@@ -54,7 +56,7 @@ _PATH_OPS = ("M", "L", "C", "Z")
 _OP_POINTS = (2, 2, 6, 0)
 
 
-class TaggedPath(Path):  # type: ignore[misc]
+class TaggedPath(shapes.Path):
     """A path that becomes an SVG element with an id, a class and a tooltip."""
 
     _attrMap = AttrMap(BASE=Path, **_TAGS)
@@ -63,7 +65,7 @@ class TaggedPath(Path):  # type: ignore[misc]
     svg_title: str | None = None
 
 
-class TaggedGroup(Group):  # type: ignore[misc]
+class TaggedGroup(shapes.Group):
     """A group that becomes an SVG ``<g>`` with an id, a class and a tooltip."""
 
     _attrMap = AttrMap(BASE=Group, **_TAGS)

@@ -13,7 +13,8 @@ import math
 from functools import cache
 from typing import Any
 
-from reporting.render import scheme, style
+from reporting.render import palette as house_palette
+from reporting.render import scheme
 from reporting.render.geometry import Edge, Sector, sectors, territory_boundaries
 from reporting.segments import (
     BUILT_IN_MAPS,
@@ -116,7 +117,7 @@ def palette() -> dict[str, Any]:
     """Fills and text colours for each score, and their words, as the report uses them."""
 
     def entry(fill: Any, word: str) -> dict[str, str]:
-        return {"fill": _hex(fill), "ink": _hex(style.text_on(fill)), "word": word}
+        return {"fill": _hex(fill), "ink": _hex(house_palette.text_on(fill)), "word": word}
 
     return {
         "wall_motion": {
@@ -126,5 +127,5 @@ def palette() -> dict[str, Any]:
         "perfusion": {
             str(s): entry(scheme.perfusion_fill(s), w) for s, w in scheme.PERFUSION_WORDS.items()
         },
-        "not_seen": entry(style.NOT_SEEN_FILL, "not visualised"),
+        "not_seen": entry(house_palette.NOT_SEEN_FILL, "not visualised"),
     }

@@ -23,7 +23,7 @@ from reportlab.platypus import Flowable, Paragraph, SimpleDocTemplate, Spacer, T
 
 from reporting.files import write_atomic
 from reporting.qa.agreement import Agreement
-from reporting.qa.layout import paragraph_styles, table_style
+from reporting.qa.layout import table_style
 from reporting.qa.pdf.page import (
     FRAME_WIDTH,
     LIMITS,
@@ -36,7 +36,9 @@ from reporting.qa.pdf.page import (
     id_list,
 )
 from reporting.qa.pdf.page_two import agreement_section
-from reporting.render import style
+from reporting.render import safe_text
+from reporting.render.fonts import body_fonts
+from reporting.render.paragraph_styles import paragraph_styles
 from reporting.results import DiagnosticStatus
 from reporting.segments import Territory
 
@@ -53,8 +55,8 @@ STATUS_TEXT = {
 
 def agreement_pdf_bytes(agreement: Agreement) -> bytes:
     """The agreement PDF as bytes (the same input gives the same bytes)."""
-    style.warn_lost_characters(
-        agreement_text_fields(agreement), style.body_fonts().regular, "reader agreement PDF"
+    safe_text.warn_lost_characters(
+        agreement_text_fields(agreement), body_fonts().regular, "reader agreement PDF"
     )
     data = b""
     for limits in LIMITS:
@@ -80,7 +82,7 @@ def agreement_text_fields(agreement: Agreement) -> list[tuple[str, str | None]]:
 
 
 def _build(agreement: Agreement, limits: Limits) -> tuple[bytes, int]:
-    fonts = style.body_fonts()
+    fonts = body_fonts()
     s = paragraph_styles(fonts)
     buffer = io.BytesIO()
     doc = SimpleDocTemplate(
@@ -134,12 +136,12 @@ def _disagreements(
     for d in rows_in[: limits.discordant_rows]:
         rows.append(
             [
-                Paragraph(style.markup_text(d.study_id, font), s["cell"]),
+                Paragraph(safe_text.markup_text(d.study_id, font), s["cell"]),
                 Paragraph(
-                    style.markup_text(clip(d.reader_a or "—", READER_CHARS), font), s["cell"]
+                    safe_text.markup_text(clip(d.reader_a or "—", READER_CHARS), font), s["cell"]
                 ),
                 Paragraph(
-                    style.markup_text(clip(d.reader_b or "—", READER_CHARS), font), s["cell"]
+                    safe_text.markup_text(clip(d.reader_b or "—", READER_CHARS), font), s["cell"]
                 ),
                 STATUS_TEXT[d.status_a],
                 STATUS_TEXT[d.status_b],

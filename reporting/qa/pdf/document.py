@@ -17,20 +17,21 @@ from reportlab.platypus import PageBreak, SimpleDocTemplate
 
 from reporting.files import write_atomic
 from reporting.qa.agreement import Agreement
-from reporting.qa.layout import paragraph_styles
 from reporting.qa.pdf.page import LIMITS, MARGIN, MAX_PAGES, Limits, footer
 from reporting.qa.pdf.page_one import page_one
 from reporting.qa.pdf.page_two import page_two
 from reporting.qa.review import QualityReview
-from reporting.render import style
+from reporting.render import safe_text
+from reporting.render.fonts import body_fonts
+from reporting.render.paragraph_styles import paragraph_styles
 
 log = logging.getLogger(__name__)
 
 
 def review_pdf_bytes(review: QualityReview, agreement: Agreement | None = None) -> bytes:
     """The quality PDF as bytes (the same input gives the same bytes)."""
-    style.warn_lost_characters(
-        free_text_fields(review, agreement), style.body_fonts().regular, "quality review PDF"
+    safe_text.warn_lost_characters(
+        free_text_fields(review, agreement), body_fonts().regular, "quality review PDF"
     )
     data = b""
     for limits in LIMITS:
@@ -69,7 +70,7 @@ def free_text_fields(
 
 
 def _build(review: QualityReview, agreement: Agreement | None, limits: Limits) -> tuple[bytes, int]:
-    fonts = style.body_fonts()
+    fonts = body_fonts()
     styles = paragraph_styles(fonts)
     buffer = io.BytesIO()
     doc = SimpleDocTemplate(

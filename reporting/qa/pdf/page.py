@@ -17,7 +17,8 @@ from reportlab.lib.pagesizes import A4
 from reportlab.lib.units import mm
 
 from reporting.qa.review import ExcludedStudy, QualityReview
-from reporting.render import style
+from reporting.render import palette, safe_text
+from reporting.render.fonts import Fonts
 
 
 @dataclass(frozen=True)
@@ -38,19 +39,19 @@ PAGE_WIDTH, PAGE_HEIGHT = A4
 FRAME_WIDTH = PAGE_WIDTH - 2 * MARGIN
 
 
-def footer(review: QualityReview, fonts: style.Fonts) -> Callable[[Any, Any], None]:
+def footer(review: QualityReview, fonts: Fonts) -> Callable[[Any, Any], None]:
     """The page callback drawing the title, the period and the page number under the frame."""
     return footer_line(f"Stress echo quality review · {period(review)}", fonts)
 
 
-def footer_line(text: str, fonts: style.Fonts) -> Callable[[Any, Any], None]:
+def footer_line(text: str, fonts: Fonts) -> Callable[[Any, Any], None]:
     """The page callback drawing ``text`` and the page number under the frame."""
-    line = style.printable(text, fonts.regular)
+    line = safe_text.printable(text, fonts.regular)
 
     def draw(canvas: Any, document: Any) -> None:
         canvas.saveState()
         canvas.setFont(fonts.regular, 7.5)
-        canvas.setFillColor(style.MUTED)
+        canvas.setFillColor(palette.MUTED)
         canvas.drawString(MARGIN, MARGIN - 2 * mm, line)
         canvas.drawRightString(PAGE_WIDTH - MARGIN, MARGIN - 2 * mm, f"page {document.page}")
         canvas.restoreState()
@@ -99,6 +100,6 @@ def id_list(values: Sequence[str], limits: Limits, json_name: str = "review JSON
     return shown + (f" … and {more} more in the {json_name}" if more > 0 else "")
 
 
-def free_text(text: str, fonts: style.Fonts) -> str:
+def free_text(text: str, fonts: Fonts) -> str:
     """User text made safe for paragraph markup in the body font."""
-    return style.markup_text(text, fonts.regular)
+    return safe_text.markup_text(text, fonts.regular)

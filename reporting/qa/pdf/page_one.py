@@ -17,12 +17,13 @@ from reporting.qa.layout import interval, number, percent, short, side_by_side, 
 from reporting.qa.metrics import DiagnosticAccuracy, Proportion
 from reporting.qa.pdf.page import FRAME_WIDTH, Limits, clip, free_text, period
 from reporting.qa.review import QualityReview
-from reporting.render import style
+from reporting.render import safe_text
+from reporting.render.fonts import Fonts
 from reporting.segments import Territory
 
 
 def page_one(
-    review: QualityReview, s: dict[str, ParagraphStyle], fonts: style.Fonts, limits: Limits
+    review: QualityReview, s: dict[str, ParagraphStyle], fonts: Fonts, limits: Limits
 ) -> list[Flowable]:
     c = review.counts
     labs = "; ".join(review.labs) if review.labs else "lab not recorded"
@@ -156,7 +157,7 @@ def groups(review: QualityReview, s: dict[str, ParagraphStyle], limits: Limits) 
             rows.append(
                 [
                     kind if i == 0 else "",
-                    Paragraph(style.markup_text(clip(name, 60), s["cell"].fontName), s["cell"]),
+                    Paragraph(safe_text.markup_text(clip(name, 60), s["cell"].fontName), s["cell"]),
                     str(g.studies),
                     short(p.sensitivity),
                     short(p.specificity),

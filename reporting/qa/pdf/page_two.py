@@ -25,7 +25,7 @@ from reporting.qa.pdf.page import (
 )
 from reporting.qa.review import Outcome, QualityReview
 from reporting.qa.status import NonDiagnosticRate
-from reporting.render import style
+from reporting.render import safe_text
 from reporting.segments import Territory
 from reporting.wording import stage_words
 
@@ -74,7 +74,7 @@ def page_two(
                 [
                     d.study_id,
                     d.date.isoformat() if d.date else str(d.year),
-                    style.printable(clip(d.reader or "—", READER_CHARS), s["cell"].fontName),
+                    safe_text.printable(clip(d.reader or "—", READER_CHARS), s["cell"].fontName),
                     Paragraph(echo, s["cell"]),
                     Paragraph(angio, s["cell"]),
                     OUTCOME_TEXT[d.patient_outcome],
@@ -161,7 +161,7 @@ def non_diagnostic_section(
     for name, rate in named:
         rows.append(
             [
-                Paragraph(style.markup_text(name, s["cell"].fontName), s["cell"]),
+                Paragraph(safe_text.markup_text(name, s["cell"].fontName), s["cell"]),
                 str(rate.studies),
                 str(rate.viability_only),
                 short(rate.non_diagnostic),
@@ -243,8 +243,8 @@ def agreement_section(
     return [
         Paragraph("Reader agreement", s["h2"]),
         Paragraph(
-            f"Reader set A: {style.markup_text(readers_a, font)}. Reader set B: "
-            f"{style.markup_text(readers_b, font)}. {agreement.matched_studies} studies read by both; "
+            f"Reader set A: {safe_text.markup_text(readers_a, font)}. Reader set B: "
+            f"{safe_text.markup_text(readers_b, font)}. {agreement.matched_studies} studies read by both; "
             f"{unmatched} read by one side only (not compared). Wall-motion rows compare segment "
             "scores pooled over the studies; ischaemia rows compare yes/no per study, or per study "
             "and territory. Bands of Landis &amp; Koch 1977.",

@@ -7,11 +7,10 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 
-from reportlab.graphics.shapes import Drawing, Line, Rect, String
 from reportlab.pdfbase.pdfmetrics import stringWidth
 
 from reporting.model import STAGE_ORDER, Stage
-from reporting.render import style
+from reporting.render import palette
 from reporting.render.curves.blocks import TerritoryBlock, curve_blocks, time_axis
 from reporting.render.curves.panel import (
     FLAGGED_FILL,
@@ -24,8 +23,9 @@ from reporting.render.curves.panel import (
     markers,
 )
 from reporting.render.curves.words import territory_heading
+from reporting.render.fonts import MAP_FONTS, Fonts
 from reporting.render.scheme import TERRITORY_FILL
-from reporting.render.style import MAP_FONTS, Fonts
+from reporting.render.shapes import Drawing, Line, Rect, String
 from reporting.results import Analysis
 from reporting.wording import stage_words
 
@@ -82,15 +82,15 @@ def _heading(
             9,
             9,
             fillColor=TERRITORY_FILL[block.territory],
-            strokeColor=style.RULE,
+            strokeColor=palette.RULE,
             strokeWidth=0.5,
         )
     )
     label = block.territory.value
-    drawing.add(String(13, y, label, fontName=fonts.bold, fontSize=8, fillColor=style.INK))
+    drawing.add(String(13, y, label, fontName=fonts.bold, fontSize=8, fillColor=palette.INK))
     x = 13 + stringWidth(label, fonts.bold, 8) + 6
     text = fit_text(territory_heading(block, fonts), fonts.regular, 6.8, width - x)
-    drawing.add(String(x, y, text, fontName=fonts.regular, fontSize=6.8, fillColor=style.INK))
+    drawing.add(String(x, y, text, fontName=fonts.regular, fontSize=6.8, fillColor=palette.INK))
 
 
 def legend(stages: Sequence[Stage], width: float, fonts: Fonts = MAP_FONTS) -> Drawing:
@@ -123,7 +123,7 @@ def legend(stages: Sequence[Stage], width: float, fonts: Fonts = MAP_FONTS) -> D
                     12,
                     8,
                     fillColor=FLAGGED_FILL,
-                    strokeColor=style.MUTED,
+                    strokeColor=palette.MUTED,
                     strokeWidth=0.6,
                 )
             )
@@ -144,7 +144,7 @@ def legend(stages: Sequence[Stage], width: float, fonts: Fonts = MAP_FONTS) -> D
             drawing.add(markers(look, [(x + 6, y + 3)], 1.8))
         drawing.add(
             String(
-                x + 16, y + 0.8, text, fontName=fonts.regular, fontSize=size, fillColor=style.INK
+                x + 16, y + 0.8, text, fontName=fonts.regular, fontSize=size, fillColor=palette.INK
             )
         )
     return drawing

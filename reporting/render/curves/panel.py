@@ -12,17 +12,17 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from reportlab.graphics.shapes import Group, Line, Path, PolyLine, Rect, String
 from reportlab.lib.colors import Color
 from reportlab.pdfbase.pdfmetrics import stringWidth
 
 from reporting.kinetics.models import FitStatus
 from reporting.model import Stage
-from reporting.render import style
+from reporting.render import palette, safe_text
 from reporting.render.curves.blocks import Panel
 from reporting.render.curves.words import stat_text, status_badge
+from reporting.render.fonts import MAP_FONTS, Fonts
 from reporting.render.scheme import CURVE_STAGE_COLOUR
-from reporting.render.style import MAP_FONTS, Fonts
+from reporting.render.shapes import Group, Line, Path, PolyLine, Rect, String
 
 PANEL_MIN_WIDTH = 92.0
 PANEL_HEIGHT = 100.0
@@ -30,8 +30,8 @@ STAT_LINE = 6.6
 CURVE_SAMPLES = 24
 MARKER_RADIUS = 1.35
 HATCH_SPACING = 3.2
-FLAGGED_FILL = style.hex_color("#ebebeb")
-HATCH_COLOUR = style.hex_color("#bdbdbd")
+FLAGGED_FILL = palette.hex_color("#ebebeb")
+HATCH_COLOUR = palette.hex_color("#bdbdbd")
 
 
 @dataclass(frozen=True)
@@ -79,15 +79,15 @@ def draw_panel(
             y,
             w,
             h,
-            fillColor=style.WHITE,
-            strokeColor=style.MUTED if flagged else style.RULE,
+            fillColor=palette.WHITE,
+            strokeColor=palette.MUTED if flagged else palette.RULE,
             strokeWidth=0.9 if flagged else 0.5,
         )
     )
     seg = panel.segment
     title = fit_text(f"{seg.number} {seg.name}", fonts.bold, 6.4, w - 6)
     group.add(
-        String(x + 3, y + h - 8.5, title, fontName=fonts.bold, fontSize=6.4, fillColor=style.INK)
+        String(x + 3, y + h - 8.5, title, fontName=fonts.bold, fontSize=6.4, fillColor=palette.INK)
     )
 
     # plot area
@@ -110,7 +110,7 @@ def draw_panel(
         group.add(Rect(x0, y0, x1 - x0, y1 - y0, fillColor=FLAGGED_FILL, strokeColor=None))
         group.add(hatch(x0, y0, x1 - x0, y1 - y0))
     # both axes and their ticks as one path; tick labels: time under the axis, intensity at 0 and top
-    axes = Path(strokeColor=style.MUTED, strokeWidth=0.45, fillColor=None)
+    axes = Path(strokeColor=palette.MUTED, strokeWidth=0.45, fillColor=None)
     axes.moveTo(x0, y1)
     axes.lineTo(x0, y0)
     axes.lineTo(x1, y0)
@@ -142,7 +142,7 @@ def draw_panel(
                 text,
                 fontName=fonts.regular,
                 fontSize=5,
-                fillColor=style.MUTED,
+                fillColor=palette.MUTED,
                 textAnchor=anchor,
             )
         )
@@ -183,13 +183,13 @@ def draw_panel(
                 by - 1.2,
                 tw + 3,
                 size + 2,
-                fillColor=style.WHITE,
-                strokeColor=style.INK,
+                fillColor=palette.WHITE,
+                strokeColor=palette.INK,
                 strokeWidth=0.4,
             )
         )
         group.add(
-            String(bx, by + 0.4, text, fontName=fonts.bold, fontSize=size, fillColor=style.INK)
+            String(bx, by + 0.4, text, fontName=fonts.bold, fontSize=size, fillColor=palette.INK)
         )
 
     # one line per fit: a key (line and marker) and β, R²
@@ -211,7 +211,7 @@ def draw_panel(
         bad = fit.status is not FitStatus.OK
         font = fonts.bold if bad else fonts.regular
         text, size = shrink(stat_text(fit, fonts), font, 5.4, w - 18)
-        group.add(String(x + 15, ly, text, fontName=font, fontSize=size, fillColor=style.INK))
+        group.add(String(x + 15, ly, text, fontName=font, fontSize=size, fillColor=palette.INK))
     return group
 
 
@@ -222,7 +222,7 @@ def markers(look: StageLook, points: Sequence[tuple[float, float]], r: float) ->
     """Every data point of one stage as one path of small closed shapes (cheap to build and draw)."""
     hollow = look.marker in ("circle", "triangle")
     path = Path(
-        fillColor=style.WHITE if hollow else look.colour,
+        fillColor=palette.WHITE if hollow else look.colour,
         strokeColor=look.colour if hollow else None,
         strokeWidth=0.6,
     )
@@ -268,7 +268,7 @@ def shrink(
     text: str, font: str, size: float, width: float, smallest: float = 4.2
 ) -> tuple[str, float]:
     """``text`` and a font size at which it fits ``width``: smaller down to ``smallest``, then cut."""
-    text = style.printable(text, font)
+    text = safe_text.printable(text, font)
     natural = stringWidth(text, font, size)
     if natural <= width:
         return text, size
@@ -278,7 +278,7 @@ def shrink(
 
 def fit_text(text: str, font: str, size: float, width: float) -> str:
     """``text`` cut with an ellipsis to ``width`` points."""
-    text = style.printable(text, font)
+    text = safe_text.printable(text, font)
     if stringWidth(text, font, size) <= width:
         return text
     while text and stringWidth(text + "…", font, size) > width:

@@ -8,9 +8,9 @@ built-in fonts of the maps), β is written as ``beta``.
 from __future__ import annotations
 
 from reporting.kinetics.models import FitStatus, ReserveFlag, SegmentFit
-from reporting.render import style
+from reporting.render import safe_text
 from reporting.render.curves.blocks import TerritoryBlock
-from reporting.render.style import MAP_FONTS, Fonts
+from reporting.render.fonts import MAP_FONTS, Fonts
 from reporting.results import Analysis
 from reporting.wording import number_list, stage_words
 
@@ -78,4 +78,4 @@ def status_badge(fit: SegmentFit, fonts: Fonts = MAP_FONTS) -> str:
 
 def glyph(text: str, fallback: str, font: str) -> str:
     """``text`` when the font has its glyphs, else the plain ``fallback``."""
-    return text if style.printable(text, font) == text else fallback
+    return text if safe_text.printable(text, font) == text else fallback

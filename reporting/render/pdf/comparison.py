@@ -13,9 +13,9 @@ from reporting.comparison import Comparison, TerritoryChange, segments_compared
 from reporting.render import diagram
 from reporting.render.change_map import response_words
 from reporting.render.diagram import MapSpec
+from reporting.render.fonts import Fonts
 from reporting.render.pdf.styles import Styles, paragraph, section_heading
 from reporting.render.scheme import MapKind
-from reporting.render.style import Fonts
 from reporting.render.vector import DrawingFlowable
 from reporting.results import Analysis, NoteKind
 from reporting.wording import stage_words

@@ -18,9 +18,10 @@ from reportlab.lib.units import mm
 from reportlab.platypus import BaseDocTemplate, Frame, PageTemplate
 
 from reporting.errors import InputError
-from reporting.render import narrative, style
+from reporting.render import narrative, safe_text
+from reporting.render.fonts import body_fonts
 from reporting.render.pdf.header import report_title
-from reporting.render.pdf.page import MARGIN, PAPERS, NumberedCanvas, footer
+from reporting.render.pdf.page import MARGIN, PAPERS, TOP_MARGIN, NumberedCanvas, footer
 from reporting.render.pdf.signature import SignatureBlock
 from reporting.render.pdf.story import build_story
 from reporting.render.pdf.styles import paragraph_styles
@@ -44,8 +45,8 @@ def pdf_bytes(
     size = PAPERS.get(paper.upper())
     if size is None:
         raise InputError("paper", f"unknown paper size {paper!r}; use A4 or Letter")
-    fonts = style.body_fonts()
-    style.warn_lost_characters(
+    fonts = body_fonts()
+    safe_text.warn_lost_characters(
         free_text_fields(analysis), fonts.regular, f"{analysis.study.id} PDF"
     )
     styles = paragraph_styles(fonts)
@@ -55,11 +56,11 @@ def pdf_bytes(
         pagesize=size,
         leftMargin=MARGIN,
         rightMargin=MARGIN,
-        topMargin=MARGIN,
+        topMargin=TOP_MARGIN,
         bottomMargin=MARGIN + 4 * mm,
         title=report_title(analysis),
         subject=narrative.summary(analysis),
-        author=style.printable(analysis.study.lab or "segreport", fonts.regular),
+        author=safe_text.printable(analysis.study.lab or "segreport", fonts.regular),
         creator=analysis.generator,
         keywords=f"stress echocardiography; {int(analysis.segment_model)}-segment model",
         invariant=1,

@@ -12,14 +12,19 @@ from reportlab.lib.styles import ParagraphStyle
 from reportlab.platypus import Flowable, Spacer, Table, TableStyle
 
 from reporting.model import Stage
-from reporting.render import narrative, style
+from reporting.render import narrative, palette
+from reporting.render.letterhead import logo_flowable
 from reporting.render.pdf.styles import Styles, dash, labelled, paragraph, sentence
 from reporting.results import Analysis, DiagnosticStatus, NonDiagnosticReason
 
+LOGO_MAX_WIDTH = 110.0
+LOGO_MAX_HEIGHT = 40.0
+"""Box (pt) the lab's logo is scaled into, keeping its proportions."""
+
 STATUS_COLOURS = {
-    DiagnosticStatus.ISCHEMIA: style.OKABE_ITO["vermillion"],
-    DiagnosticStatus.NO_ISCHEMIA: style.OKABE_ITO["bluish_green"],
-    DiagnosticStatus.NON_DIAGNOSTIC: style.OKABE_ITO["orange"],
+    DiagnosticStatus.ISCHEMIA: palette.OKABE_ITO["vermillion"],
+    DiagnosticStatus.NO_ISCHEMIA: palette.OKABE_ITO["bluish_green"],
+    DiagnosticStatus.NON_DIAGNOSTIC: palette.OKABE_ITO["orange"],
 }
 
 
@@ -32,12 +37,27 @@ def header(analysis: Analysis, width: float, st: Styles) -> list[Flowable]:
     lab_cell: list[Flowable] = [paragraph(study.lab or "Echocardiography laboratory", st["lab"])]
     if study.lab_address:
         lab_cell.append(paragraph(study.lab_address, st["small"]))
+    if study.lab_logo:
+        logo = logo_flowable(study.lab_logo, LOGO_MAX_WIDTH, LOGO_MAX_HEIGHT)
+        beside = Table([[logo, lab_cell]], colWidths=[logo.wrap(width, width)[0] + 8, None])
+        beside.setStyle(
+            TableStyle(
+                [
+                    ("VALIGN", (0, 0), (-1, -1), "MIDDLE"),
+                    ("LEFTPADDING", (0, 0), (-1, -1), 0),
+                    ("RIGHTPADDING", (0, 0), (-1, -1), 0),
+                    ("TOPPADDING", (0, 0), (-1, -1), 0),
+                    ("BOTTOMPADDING", (0, 0), (-1, -1), 0),
+                ]
+            )
+        )
+        lab_cell = [beside]
     status = study.report_status
     status_style = ParagraphStyle(
-        "status", parent=st["title"], fontSize=8, leading=10, textColor=style.MUTED
+        "status", parent=st["doc_title"], fontSize=8, leading=10, textColor=palette.MUTED
     )
     title_cell = [
-        paragraph("Stress echocardiography report", st["title"]),
+        paragraph("Stress echocardiography report", st["doc_title"]),
         paragraph(f"Report status: {status.value.upper()}", status_style),
     ]
     top = Table([[lab_cell, title_cell]], colWidths=[width * 0.6, width * 0.4])
@@ -47,7 +67,7 @@ def header(analysis: Analysis, width: float, st: Styles) -> list[Flowable]:
                 ("VALIGN", (0, 0), (-1, -1), "TOP"),
                 ("LEFTPADDING", (0, 0), (-1, -1), 0),
                 ("RIGHTPADDING", (0, 0), (-1, -1), 0),
-                ("LINEBELOW", (0, 0), (-1, 0), 1.2, style.INK),
+                ("LINEBELOW", (0, 0), (-1, 0), 1.2, palette.INK),
                 ("BOTTOMPADDING", (0, 0), (-1, -1), 5),
             ]
         )
@@ -160,8 +180,8 @@ def answer_box(analysis: Analysis, width: float, st: Styles) -> Table:
     box.setStyle(
         TableStyle(
             [
-                ("BACKGROUND", (0, 0), (-1, -1), style.PANEL),
-                ("LINEBEFORE", (0, 0), (0, -1), 4, style.hex_color(STATUS_COLOURS[c.status])),
+                ("BACKGROUND", (0, 0), (-1, -1), palette.PANEL),
+                ("LINEBEFORE", (0, 0), (0, -1), 4, palette.hex_color(STATUS_COLOURS[c.status])),
                 ("LEFTPADDING", (0, 0), (-1, -1), 9),
                 ("TOPPADDING", (0, 0), (-1, -1), 5),
                 ("BOTTOMPADDING", (0, 0), (-1, -1), 6),

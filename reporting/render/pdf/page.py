@@ -13,12 +13,13 @@ from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.pdfgen.canvas import Canvas
 from reportlab.platypus import BaseDocTemplate
 
-from reporting.render import style
-from reporting.render.style import Fonts
+from reporting.render import palette, safe_text
+from reporting.render.fonts import Fonts, body_fonts
 from reporting.results import Analysis
 
 PAPERS = {"A4": A4, "LETTER": LETTER}
 MARGIN = 15 * mm
+TOP_MARGIN = 12 * mm
 
 
 def footer(analysis: Analysis, fonts: Fonts) -> Callable[[Canvas, BaseDocTemplate], None]:
@@ -27,11 +28,11 @@ def footer(analysis: Analysis, fonts: Fonts) -> Callable[[Canvas, BaseDocTemplat
     def on_page(canvas: Canvas, doc: BaseDocTemplate) -> None:
         canvas.saveState()
         y = MARGIN - 1 * mm
-        canvas.setStrokeColor(style.RULE)
+        canvas.setStrokeColor(palette.RULE)
         canvas.setLineWidth(0.4)
         canvas.line(doc.leftMargin, y + 9, doc.leftMargin + doc.width, y + 9)
         canvas.setFont(fonts.regular, 7)
-        canvas.setFillColor(style.MUTED)
+        canvas.setFillColor(palette.MUTED)
         name = analysis.patient.name or analysis.patient.id or ""
         left = " · ".join(
             x for x in (analysis.study.id, name, analysis.study.report_status.value) if x
@@ -44,7 +45,7 @@ def footer(analysis: Analysis, fonts: Fonts) -> Callable[[Canvas, BaseDocTemplat
 
 def fit_line(text: str, font: str, size: float, width: float) -> str:
     """``text`` on one line, cut with an ellipsis to ``width`` points."""
-    text = " ".join(style.printable(text, font).split())
+    text = " ".join(safe_text.printable(text, font).split())
     if stringWidth(text, font, size) <= width:
         return text
     while text and stringWidth(text + "…", font, size) > width:
@@ -68,8 +69,8 @@ class NumberedCanvas(Canvas):  # type: ignore[misc]
         for state in self._pages:
             self.__dict__.update(state)
             self.saveState()
-            self.setFont(style.body_fonts().regular, 7)
-            self.setFillColor(style.MUTED)
+            self.setFont(body_fonts().regular, 7)
+            self.setFillColor(palette.MUTED)
             width = self._pagesize[0]
             self.drawRightString(
                 width - MARGIN, MARGIN - 1 * mm, f"Page {self._pageNumber} of {total}"

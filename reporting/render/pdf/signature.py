@@ -14,7 +14,7 @@ import datetime as dt
 from pydantic import BaseModel, ConfigDict, Field
 from reportlab.platypus import Flowable, KeepTogether, Spacer, Table, TableStyle
 
-from reporting.render import style
+from reporting.render import palette
 from reporting.render.pdf.styles import Styles, labelled, paragraph
 
 SHORT_HASH_CHARS = 12
@@ -95,7 +95,7 @@ def signed_block(block: SignatureBlock, width: float, st: Styles) -> Flowable:
     table.setStyle(
         TableStyle(
             [
-                ("LINEABOVE", (0, 0), (-1, 0), 0.6, style.INK),
+                ("LINEABOVE", (0, 0), (-1, 0), 0.6, palette.INK),
                 ("VALIGN", (0, 0), (-1, -1), "TOP"),
                 ("LEFTPADDING", (0, 0), (-1, -1), 0),
                 ("TOPPADDING", (0, 0), (-1, -1), 1.5),

@@ -3,8 +3,8 @@
 Almost every paragraph of the report (table cells, narrative, cautions) is plain text in one font.
 reportlab's Paragraph parses XML markup and handles fragments of mixed style for every one of them,
 which made up about a fifth of the PDF's time. :class:`PlainText` does only what plain text needs:
-greedy line breaking at spaces with the font's real widths, words wider than the column broken
-between characters, explicit line breaks kept, splitting across frames and pages between lines
+greedy line breaking at spaces by reportlab's public ``simpleSplit`` (the font's real widths), words
+wider than the column broken between characters (our own), explicit line breaks kept, splitting across frames and pages between lines
 under the style's orphan and widow rules.
 Lines sit where Paragraph puts them (first baseline one font size below the top, then one leading
 apart), so the page looks the same. Text is made printable first (control characters dropped,
@@ -13,19 +13,24 @@ glyphs the font lacks replaced); as nothing is parsed, no escaping is needed.
 
 from __future__ import annotations
 
+import copy
 import re
 
 from reportlab.lib.enums import TA_LEFT
 from reportlab.lib.styles import ParagraphStyle
+from reportlab.lib.utils import simpleSplit
 from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.platypus import Flowable
 
-from reporting.render import style as look
+from reporting.render import safe_text
 
 __all__ = ["PlainText", "wrap_lines"]
 
 
 _BREAKABLE = re.compile(r"[ \t\r\f\v]+")
+_NO_BREAK = re.compile(r"[^\S \t\r\f\v\n]")
+"""A space that is not a break: U+00A0, U+202F, U+2007 (and any other Unicode space, which
+``simpleSplit`` would turn into an ordinary one)."""
 # style features PlainText does not draw, with the value that means "not used"
 _UNSUPPORTED = {
     "leftIndent": 0,
@@ -50,37 +55,58 @@ def _break_word(word: str, font: str, size: float, width: float) -> list[str]:
     return pieces
 
 
+def _pieces(words: list[str], font: str, size: float, width: float) -> list[str]:
+    """``words`` with every word wider than ``width`` broken between characters (our one rule)."""
+    out: list[str] = []
+    for word in words:
+        out += (
+            [word]
+            if stringWidth(word, font, size) <= width
+            else _break_word(word, font, size, width)
+        )
+    return out
+
+
+def _greedy(words: list[str], font: str, size: float, width: float) -> list[str]:
+    """Greedy filling of ``words`` (none wider than ``width``), as ``simpleSplit`` fills lines.
+
+    Used only for a line holding a no-break space: ``simpleSplit`` splits at every Unicode space,
+    U+00A0 included, and would break ``100 %`` apart.
+    """
+    space = stringWidth(" ", font, size)
+    lines: list[str] = []
+    current: list[str] = []
+    used = -space
+    for word in words:
+        w = stringWidth(word, font, size)
+        if current and used + space + w > width:
+            lines.append(" ".join(current))
+            current, used = [], -space
+        current.append(word)
+        used += space + w
+    return [*lines, " ".join(current)]
+
+
 def wrap_lines(text: str, font: str, size: float, width: float) -> list[str]:
     """``text`` broken into lines no wider than ``width`` points (greedy, at spaces).
 
-    Runs of spaces count as one; a newline always starts a new line; a word wider than the
-    whole line starts a line of its own and is broken between characters. Only ordinary spaces
-    and tabs separate words: a no-break space (U+00A0, U+202F, U+2007) keeps ``100 %`` together.
+    The breaking is reportlab's public :func:`reportlab.lib.utils.simpleSplit`; what we add is
+    only the breaking of a word wider than the whole line between characters (it then starts a
+    line of its own). Runs of spaces count as one; a newline always starts a new line. Only
+    ordinary spaces and tabs separate words: a no-break space (U+00A0, U+202F, U+2007) keeps
+    ``100 %`` together.
     """
-    space = stringWidth(" ", font, size)
     lines: list[str] = []
     for chunk in text.split("\n"):
         words = [w for w in _BREAKABLE.split(chunk) if w]
         if not words:
             lines.append("")
             continue
-        current: list[str] = []
-        used = 0.0
-        for word in words:
-            w = stringWidth(word, font, size)
-            if current and used + space + w <= width:
-                current.append(word)
-                used += space + w
-                continue
-            if current:
-                lines.append(" ".join(current))
-            if w <= width:
-                current, used = [word], w
-                continue
-            *whole, last = _break_word(word, font, size, width)
-            lines += whole
-            current, used = [last], stringWidth(last, font, size)
-        lines.append(" ".join(current))
+        pieces = _pieces(words, font, size, width)
+        if _NO_BREAK.search(chunk):
+            lines += _greedy(pieces, font, size, width)
+        else:
+            lines += simpleSplit(" ".join(pieces), font, size, width)
     return lines
 
 
@@ -95,12 +121,17 @@ class PlainText(Flowable):  # type: ignore[misc]
         if used:
             raise ValueError(f"PlainText cannot draw {', '.join(used)} of style {style.name!r}")
         # like Paragraph: no blank lines before or after, and blank text takes no room
-        self.text = (text if cleaned else look.printable(text, style.fontName)).strip()
+        self.text = (text if cleaned else safe_text.printable(text, style.fontName)).strip()
         self.style = style
         self.space_before = float(style.spaceBefore)
         self.space_after = float(style.spaceAfter)
         self.lines: list[str] = []
         self._wrapped_at: float | None = None
+
+    def __deepcopy__(self, memo: dict[int, object]) -> PlainText:
+        """A shallow copy: the text and the (shared) style never change after construction, and
+        reportlab's BalancedColumns deep-copies its content at every trial split."""
+        return copy.copy(self)
 
     def _wrap_to(self, width: float) -> list[str]:
         if width != self._wrapped_at:

@@ -1,10 +1,4 @@
-"""Colours and text safety shared by the maps and the PDF; fonts live in :mod:`reporting.render.fonts`.
-
-The colours are our own scheme built from two published colour-blind-safe palettes: the sequential
-ColorBrewer schemes of Harrower M & Brewer CA, Cartographic Journal 2003;40:27–37 ("YlOrBr" for wall
-motion, "Blues" for perfusion) and the qualitative Okabe–Ito palette (Okabe M & Ito K, "Color
-Universal Design", 2002/2008) for categories. Every sector also carries a digit, a letter or a hatch,
-so a map stays readable when printed in greyscale.
+"""Text safety for the PDFs: user free text made printable in the body font.
 
 Free text from users passes through :func:`markup_text` before it reaches reportlab paragraph markup:
 XML special characters are escaped, control characters dropped, and characters the body font has no
@@ -20,71 +14,9 @@ import re
 from collections.abc import Iterable
 from xml.sax.saxutils import escape
 
-from reportlab.lib import colors
-from reportlab.lib.colors import Color
-
-# Re-exported: the maps, the PDF and the quality PDF import these from here.
-from reporting.render.fonts import MAP_FONTS as MAP_FONTS
-from reporting.render.fonts import Fonts as Fonts
-from reporting.render.fonts import body_fonts as body_fonts
 from reporting.render.fonts import glyphs
 
 log = logging.getLogger(__name__)
-
-# --- palettes ---------------------------------------------------------------------------------
-
-# ColorBrewer "YlOrBr", 5 classes (Harrower & Brewer 2003): sequential, colour-blind safe.
-YLORBR_5 = ("#ffffd4", "#fed98e", "#fe9929", "#d95f0e", "#993404")
-# ColorBrewer "Blues", 3 classes (Harrower & Brewer 2003).
-BLUES_3 = ("#eff3ff", "#9ecae1", "#3182bd")
-# Okabe–Ito qualitative palette (Okabe & Ito 2008), colour-blind safe.
-OKABE_ITO = {
-    "orange": "#E69F00",
-    "sky_blue": "#56B4E9",
-    "bluish_green": "#009E73",
-    "yellow": "#F0E442",
-    "blue": "#0072B2",
-    "vermillion": "#D55E00",
-    "reddish_purple": "#CC79A7",
-    "black": "#000000",
-}
-
-INK = colors.HexColor("#1a1a1a")
-MUTED = colors.HexColor("#5f5f5f")
-RULE = colors.HexColor("#9a9a9a")
-PANEL = colors.HexColor("#f2f2f2")
-NOT_SEEN_FILL = colors.HexColor("#e6e6e6")
-WHITE = colors.white
-
-
-def hex_color(value: str) -> Color:
-    return colors.HexColor(value)
-
-
-def tint(value: str, amount: float) -> Color:
-    """``value`` mixed with white; ``amount`` 0 keeps the colour, 1 gives white."""
-    base = colors.HexColor(value)
-    return Color(
-        base.red + (1 - base.red) * amount,
-        base.green + (1 - base.green) * amount,
-        base.blue + (1 - base.blue) * amount,
-    )
-
-
-def text_on(fill: Color) -> Color:
-    """Black or white, whichever reads better on ``fill`` (relative luminance, WCAG 2.x)."""
-
-    def channel(c: float) -> float:
-        return c / 12.92 if c <= 0.03928 else ((c + 0.055) / 1.055) ** 2.4
-
-    luminance = (
-        0.2126 * channel(fill.red) + 0.7152 * channel(fill.green) + 0.0722 * channel(fill.blue)
-    )
-    # Contrast with black (L + 0.05) / 0.05 against white 1.05 / (L + 0.05): black wins above ~0.18.
-    return INK if luminance > 0.18 else WHITE
-
-
-# --- fonts: in reporting.render.fonts; the names stay importable from here ------------------------
 
 _CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f\ud800-\udfff\ufeff]")
 _WINANSI = frozenset(range(0x20, 0x7F)) | frozenset(range(0xA0, 0x100))
