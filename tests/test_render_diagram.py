@@ -238,3 +238,32 @@ def test_svg_for_16_and_18_segment_models(model: int) -> None:
     for text in map_svgs(analysis).values():
         root = ET.fromstring(text.encode("utf-8"))
         assert len([e for e in root.iter() if e.get("class") == "segment"]) == model
+
+
+def test_every_wall_motion_response_has_a_style() -> None:
+    # A response without a style made the PDF fail with a KeyError (found by the batch benchmark).
+    from reporting.scoring import WallMotionResponse
+
+    missing = [r for r in WallMotionResponse if r is not WallMotionResponse.NOT_ASSESSABLE]
+    missing = [r for r in missing if r not in scheme.RESPONSE_STYLE]
+    assert missing == []
+
+
+def test_a_segment_abnormal_from_low_dose_is_drawn_and_reported() -> None:
+    from conftest import analysed, stages
+
+    from reporting.render import pdf_bytes
+    from reporting.scoring import WallMotionResponse
+
+    # segment 1 not seen at rest, hypokinetic from low dose on: flagged, never "fixed" (common practice)
+    analysis = analysed(
+        stages=stages(
+            rest="x11111 111111 1111 1",
+            low_dose="211111 111111 1111 1",
+            peak="211111 111111 1111 1",
+        )
+    )
+    assert analysis.segments[0].response is WallMotionResponse.ABNORMAL_AT_LOW_DOSE
+    svgs = map_svgs(analysis)
+    assert "abnormal from low dose" in svgs["response"]
+    assert pdf_bytes(analysis).startswith(b"%PDF")

@@ -56,6 +56,12 @@ RESPONSE_STYLE: dict[WallMotionResponse, tuple[str, str, str]] = {
         "D",
         "akinetic to dyskinetic",
     ),
+    # abnormal from its first view at low dose: never called fixed, left for the reader's review
+    WallMotionResponse.ABNORMAL_AT_LOW_DOSE: (
+        palette.OKABE_ITO["orange"],
+        "L",
+        "abnormal from low dose (review)",
+    ),
 }
 TERRITORY_FILL = {
     Territory.LAD: palette.tint(palette.OKABE_ITO["sky_blue"], 0.5),

@@ -12,8 +12,7 @@ from dataclasses import dataclass
 from enum import StrEnum
 from functools import cache
 from pathlib import Path
-
-import jinja2
+from typing import TYPE_CHECKING
 
 from reporting.errors import InputError
 from reporting.notes import REFERRER_NOTES, NoteKind
@@ -33,6 +32,9 @@ from reporting.render.narrative.sections import (
     wall_motion_paragraphs,
 )
 from reporting.results import Analysis, ImpressionStatus
+
+if TYPE_CHECKING:  # jinja2 loads only when a template is rendered, not for the computed findings
+    import jinja2
 
 TEXT_TEMPLATE = "narrative.txt.j2"
 HTML_TEMPLATE = "narrative.html.j2"
@@ -212,6 +214,8 @@ def _autoescape(name: str | None) -> bool:
 @cache
 def environment(templates_dir: str | None = None) -> jinja2.Environment:
     """The jinja2 environment; a lab folder, when given, is searched before the packaged one."""
+    import jinja2
+
     loaders: list[jinja2.BaseLoader] = []
     if templates_dir is not None:
         loaders.append(jinja2.FileSystemLoader(templates_dir))
@@ -227,6 +231,8 @@ def environment(templates_dir: str | None = None) -> jinja2.Environment:
 
 
 def _render(name: str, narrative: Narrative, templates_dir: Path | str | None) -> str:
+    import jinja2
+
     env = environment(str(templates_dir) if templates_dir is not None else None)
     try:
         return env.get_template(name).render(
