@@ -265,5 +265,5 @@ def test_a_segment_abnormal_from_low_dose_is_drawn_and_reported() -> None:
     )
     assert analysis.segments[0].response is WallMotionResponse.ABNORMAL_AT_LOW_DOSE
     svgs = map_svgs(analysis)
-    assert "abnormal from low dose" in svgs["response"]
+    assert "abnormal at first view" in svgs["response"]
     assert pdf_bytes(analysis).startswith(b"%PDF")

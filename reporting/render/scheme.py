@@ -60,7 +60,7 @@ RESPONSE_STYLE: dict[WallMotionResponse, tuple[str, str, str]] = {
     WallMotionResponse.ABNORMAL_AT_LOW_DOSE: (
         palette.OKABE_ITO["orange"],
         "L",
-        "abnormal from low dose (review)",
+        "abnormal at first view (review)",
     ),
 }
 TERRITORY_FILL = {
