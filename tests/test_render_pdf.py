@@ -17,7 +17,7 @@ import pytest
 import yaml
 from pypdf import PdfReader
 
-import reporting.render as render
+import reporting.render.report as render_report
 from reporting.analysis import analyze
 from reporting.demo import demo_study_text
 from reporting.errors import InputError
@@ -240,7 +240,7 @@ def test_write_report_leaves_nothing_behind_when_a_write_fails(
             raise OSError("disk full")
         write_atomic(path, data)
 
-    monkeypatch.setattr(render, "write_atomic", failing)
+    monkeypatch.setattr(render_report, "write_atomic", failing)
     with pytest.raises(OSError, match="disk full"):
         write_report(_analysis("DEMO-0002"), tmp_path)
     assert list(tmp_path.iterdir()) == []
@@ -256,7 +256,7 @@ def test_write_report_keeps_files_that_were_there_before(
     def failing(path: Path, data: bytes | str) -> None:
         raise OSError("read-only")
 
-    monkeypatch.setattr(render, "write_atomic", failing)
+    monkeypatch.setattr(render_report, "write_atomic", failing)
     with pytest.raises(OSError):
         write_report(analysis, tmp_path)
     assert {p.name: p.read_bytes() for p in tmp_path.iterdir()} == before
