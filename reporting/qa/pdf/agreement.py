@@ -16,10 +16,9 @@ import logging
 from pathlib import Path
 from typing import Any
 
-from reportlab.lib.pagesizes import A4
 from reportlab.lib.styles import ParagraphStyle
 from reportlab.lib.units import mm
-from reportlab.platypus import Flowable, Paragraph, SimpleDocTemplate, Spacer, Table
+from reportlab.platypus import Flowable, Paragraph, Spacer, Table
 
 from reporting.files import write_atomic
 from reporting.qa.agreement import Agreement
@@ -27,13 +26,13 @@ from reporting.qa.layout import table_style
 from reporting.qa.pdf.page import (
     FRAME_WIDTH,
     LIMITS,
-    MARGIN,
     MAX_PAGES,
     READER_CHARS,
     Limits,
     clip,
     footer_line,
     id_list,
+    quality_document,
 )
 from reporting.qa.pdf.page_two import agreement_section
 from reporting.render import safe_text
@@ -85,18 +84,11 @@ def _build(agreement: Agreement, limits: Limits) -> tuple[bytes, int]:
     fonts = body_fonts()
     s = paragraph_styles(fonts)
     buffer = io.BytesIO()
-    doc = SimpleDocTemplate(
+    doc = quality_document(
         buffer,
-        pagesize=A4,
-        leftMargin=MARGIN,
-        rightMargin=MARGIN,
-        topMargin=MARGIN,
-        bottomMargin=MARGIN + 4 * mm,
         title=TITLE,
-        author="segreport",
         subject="Agreement of two readers of the same stress echo studies",
         creator=agreement.generator,
-        invariant=1,
     )
     on_page = footer_line(f"{TITLE} · {agreement.matched_studies} studies read by both", fonts)
     story: list[Flowable] = [

@@ -11,13 +11,11 @@ import io
 import logging
 from pathlib import Path
 
-from reportlab.lib.pagesizes import A4
-from reportlab.lib.units import mm
-from reportlab.platypus import PageBreak, SimpleDocTemplate
+from reportlab.platypus import PageBreak
 
 from reporting.files import write_atomic
 from reporting.qa.agreement import Agreement
-from reporting.qa.pdf.page import LIMITS, MARGIN, MAX_PAGES, Limits, footer
+from reporting.qa.pdf.page import LIMITS, MAX_PAGES, Limits, footer, quality_document
 from reporting.qa.pdf.page_one import page_one
 from reporting.qa.pdf.page_two import page_two
 from reporting.qa.review import QualityReview
@@ -73,18 +71,11 @@ def _build(review: QualityReview, agreement: Agreement | None, limits: Limits) -
     fonts = body_fonts()
     styles = paragraph_styles(fonts)
     buffer = io.BytesIO()
-    doc = SimpleDocTemplate(
+    doc = quality_document(
         buffer,
-        pagesize=A4,
-        leftMargin=MARGIN,
-        rightMargin=MARGIN,
-        topMargin=MARGIN,
-        bottomMargin=MARGIN + 4 * mm,
         title="Stress echo quality review",
-        author="segreport",
         subject="Stress echocardiography against angiography; reader agreement",
         creator=review.generator,
-        invariant=1,
     )
     on_page = footer(review, fonts)
     story = [

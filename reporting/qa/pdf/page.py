@@ -103,3 +103,22 @@ def id_list(values: Sequence[str], limits: Limits, json_name: str = "review JSON
 def free_text(text: str, fonts: Fonts) -> str:
     """User text made safe for paragraph markup in the body font."""
     return safe_text.markup_text(text, fonts.regular)
+
+
+def quality_document(buffer: Any, *, title: str, subject: str, creator: str) -> Any:
+    """The A4 page template shared by the quality-review and reader-agreement PDFs (byte-stable)."""
+    from reportlab.platypus import SimpleDocTemplate
+
+    return SimpleDocTemplate(
+        buffer,
+        pagesize=A4,
+        leftMargin=MARGIN,
+        rightMargin=MARGIN,
+        topMargin=MARGIN,
+        bottomMargin=MARGIN + 4 * mm,
+        title=title,
+        author="segreport",
+        subject=subject,
+        creator=creator,
+        invariant=1,
+    )
