@@ -764,3 +764,23 @@ def test_aggregate_files_have_the_usual_permissions(
     for name in ("registry.ndjson", "studies.csv", "segments.csv", "failures.csv"):
         if (out / name).exists():
             assert stat.S_IMODE((out / name).stat().st_mode) == FILE_MODE, name
+
+
+def test_fhir_bundles_use_the_labs_code_and_identifier_systems(tmp_path: Path) -> None:
+    # `batch --fhir --settings F` must build the same Bundle as `fhir --settings F`: the lab's own
+    # identifier system names the order and patient identifiers (HL7 FHIR R4 Identifier.system).
+    indir = write_folder(tmp_path, valid=2, broken=False)
+    lab = tmp_path / "lab.yaml"
+    uri = "https://echo.larkspur-valley.org/fhir/id"
+    lab.write_text(f"lab_identifier_system_uri: {uri}\n", encoding="utf-8")
+    out = tmp_path / "out"
+    summary = run_batch(
+        indir, BatchOptions(outdir=out, pdf=False, fhir=True, settings_path=lab), jobs=1
+    )
+    assert summary.done == 2
+    systems = {
+        ident["system"]
+        for entry in json.loads((out / "GEN-0000.fhir.json").read_text())["entry"]
+        for ident in entry["resource"].get("identifier", [])
+    }
+    assert systems and all(s.startswith(uri + "/") for s in systems), systems

@@ -141,8 +141,11 @@ def _write_outputs(analysis: Analysis, options: BatchOptions) -> dict[str, str]:
             written = {record: text, **written}
         if options.fhir:
             from reporting.export.fhir import bundle_json
+            from reporting.settings import load_settings
 
-            bundle = bundle_json(analysis, pdf=written.get(pdf_path)).encode()
+            # the lab's code and identifier systems come from its settings file, as in `fhir`
+            settings = load_settings(options.settings_path)
+            bundle = bundle_json(analysis, pdf=written.get(pdf_path), settings=settings).encode()
             write_atomic(fhir_path, bundle)
             written[fhir_path] = bundle
     return {p.relative_to(outdir).as_posix(): stamps.digest(b) for p, b in written.items()}
