@@ -163,6 +163,30 @@ def test_deidentified_export_holds_no_names(
     assert "Brennan Quillfeather" not in registry and "DEMO-0001" not in registry
 
 
+def test_an_export_is_an_audit_event_naming_its_chain_head(
+    db: str, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # Taking records out of the store is traced (21 CFR 11.10(e)): the event says what kind of
+    # export it was and which chain head it was taken at, and holds no path or key.
+    from reporting.store.audit import body_of
+    from reporting.store.schema import EventRow
+    from reporting.store.service import open_store
+
+    monkeypatch.setenv("SEGREPORT_DEID_KEY", "a test key of enough length")
+    as_alice(db, "import", str(write_study(tmp_path / "in", study_data())))
+    out = tmp_path / "Quillfeather export"
+    assert run("export", "-o", str(out), "--deidentify", "--db", db).exit_code == 0
+    head = (out / "chain-head.txt").read_text().strip()
+    with open_store(db).read() as session:
+        last = session.query(EventRow).order_by(EventRow.seq.desc()).first()
+        assert last is not None
+        body = body_of(last)
+    assert (last.action, last.actor) == ("export", None)
+    assert body["detail"]["chain_head"] == head and body["detail"]["deidentified"] is True
+    assert "Quillfeather" not in last.body.decode() and "test key" not in last.body.decode()
+    assert run("verify", "--expect-head", head, "--db", db).exit_code == 0
+
+
 ACTIONS = st.lists(
     st.sampled_from(["import-change", "sign", "amend", "addendum"]), min_size=1, max_size=6
 )

@@ -8,7 +8,8 @@ record JSON; an unsigned one is analysed again from its stored content. The file
 ``segments.csv`` (and Parquet with pyarrow) and ``failures.csv``; with a de-identification key
 every record goes through the project's de-identification first (see :func:`_released`). The
 export also writes ``chain-head.txt``, the audit chain head it was taken at, to be kept apart
-from the store (``store verify --expect-head``).
+from the store (``store verify --expect-head``), and adds an ``export`` event to the audit trail
+naming that head.
 """
 
 from __future__ import annotations
@@ -27,6 +28,7 @@ from reporting.export import tables
 from reporting.files import write_atomic
 from reporting.results import Analysis
 from reporting.store import audit, content
+from reporting.store.canonical import Origin
 from reporting.store.engine import Database
 from reporting.store.schema import SignatureRow, StudyRow, VersionRow
 
@@ -129,5 +131,20 @@ def export(
         aggregates.abort()
         raise
     write_atomic(outdir / HEAD_FILE, head + "\n")
+    with db.write() as session:
+        # who took what out of the store, and at which head (21 CFR 11.10(e)); no paths, which
+        # may name a patient, and no key
+        audit.append(
+            session,
+            action="export",
+            actor=None,
+            origin=Origin.CLI,
+            detail={
+                "deidentified": key is not None,
+                "final_only": final_only,
+                "files": len(written) + 1,
+                "chain_head": head,
+            },
+        )
     log.info("exported the store into %s at chain head %s", outdir, head)
     return [*written, outdir / HEAD_FILE]
