@@ -190,6 +190,12 @@ def test_amendment_names_superseded_version_and_reason_on_page_one(
     pdf = history.show(db, "DEMO-0001", 2, tmp_path / "out")[2].read_bytes()
     page1 = pdf_text(pdf, 0)
     assert "version 2 supersedes version 1" in page1 and "peak heart rate mistyped" in page1
+    # the heading and every footer give the version's own FHIR status, not "final"
+    assert "Report status: AMENDED" in page1 and "FINAL" not in page1
+    assert "DEMO-0001 · Brennan Quillfeather · amended" in pdf_text(pdf, -1)
+    assert "Report status: FINAL" in pdf_text(
+        history.show(db, "DEMO-0001", 1, tmp_path / "first")[2].read_bytes(), 0
+    )
     appended = signing.amend(
         db, "DEMO-0001", login(db), addendum="Recovery images reviewed again.", origin=CLI
     )

@@ -76,7 +76,15 @@ def pdf_bytes(
         topPadding=0,
         bottomPadding=0,
     )
-    doc.addPageTemplates([PageTemplate(id="page", frames=[frame], onPage=footer(analysis, fonts))])
+    doc.addPageTemplates(
+        [
+            PageTemplate(
+                id="page",
+                frames=[frame],
+                onPage=footer(analysis, fonts, signature.status if signature else None),
+            )
+        ]
+    )
     story = build_story(analysis, doc.width, styles, fonts, templates_dir, signature)
     doc.build(story, canvasmaker=NumberedCanvas)
     log.debug("built the PDF of %s", analysis.study.id)

@@ -32,7 +32,9 @@ def report_title(analysis: Analysis) -> str:
     return f"Stress echocardiography report {analysis.study.id}"
 
 
-def header(analysis: Analysis, width: float, st: Styles) -> list[Flowable]:
+def header(
+    analysis: Analysis, width: float, st: Styles, status: str | None = None
+) -> list[Flowable]:
     study, patient = analysis.study, analysis.patient
     lab_cell: list[Flowable] = [paragraph(study.lab or "Echocardiography laboratory", st["lab"])]
     if study.lab_address:
@@ -52,13 +54,13 @@ def header(analysis: Analysis, width: float, st: Styles) -> list[Flowable]:
             )
         )
         lab_cell = [beside]
-    status = study.report_status
+    shown = status or study.report_status.value
     status_style = ParagraphStyle(
         "status", parent=st["doc_title"], fontSize=8, leading=10, textColor=palette.MUTED
     )
     title_cell = [
         paragraph("Stress echocardiography report", st["doc_title"]),
-        paragraph(f"Report status: {status.value.upper()}", status_style),
+        paragraph(f"Report status: {shown.upper()}", status_style),
     ]
     top = Table([[lab_cell, title_cell]], colWidths=[width * 0.6, width * 0.4])
     top.setStyle(

@@ -22,8 +22,11 @@ MARGIN = 15 * mm
 TOP_MARGIN = 12 * mm
 
 
-def footer(analysis: Analysis, fonts: Fonts) -> Callable[[Canvas, BaseDocTemplate], None]:
-    """The ``onPage`` callback drawing the footer rule and the study, patient and status line."""
+def footer(
+    analysis: Analysis, fonts: Fonts, status: str | None = None
+) -> Callable[[Canvas, BaseDocTemplate], None]:
+    """The ``onPage`` callback drawing the footer rule and the study, patient and status line
+    (``status``: a signed version's own status, e.g. amended, instead of the study's)."""
 
     def on_page(canvas: Canvas, doc: BaseDocTemplate) -> None:
         canvas.saveState()
@@ -35,7 +38,7 @@ def footer(analysis: Analysis, fonts: Fonts) -> Callable[[Canvas, BaseDocTemplat
         canvas.setFillColor(palette.MUTED)
         name = analysis.patient.name or analysis.patient.id or ""
         left = " · ".join(
-            x for x in (analysis.study.id, name, analysis.study.report_status.value) if x
+            x for x in (analysis.study.id, name, status or analysis.study.report_status.value) if x
         )
         canvas.drawString(doc.leftMargin, y, fit_line(left, fonts.regular, 7, doc.width * 0.75))
         canvas.restoreState()

@@ -53,7 +53,7 @@ def build_story(
     signature: SignatureBlock | None = None,
 ) -> list[Flowable]:
     story: list[Flowable] = []
-    story += header(analysis, width, st)
+    story += header(analysis, width, st, signature.status if signature is not None else None)
     if signature is not None:
         story += supersession_note(signature, st)
     story.append(Spacer(1, 5))
