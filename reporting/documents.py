@@ -11,6 +11,7 @@ build — reported as an :class:`~reporting.errors.InputError` with the file and
 
 from __future__ import annotations
 
+import errno
 import json
 import os
 import stat
@@ -53,20 +54,31 @@ def _not_regular(mode: int) -> str | None:
     return "not a regular file"
 
 
-def _open_regular(path: Path, what: str) -> tuple[int, int]:
+def _open_regular(
+    path: Path, what: str, where: str | None = None, *, follow_links: bool = True
+) -> tuple[int, int]:
     """An open read-only descriptor of ``path`` and its size, refusing anything but a regular file.
 
     The type is checked with ``stat`` before opening (opening a device or a pipe can block or have
-    effects) and again on the open descriptor, so a file swapped in between is refused too.
+    effects) and again on the open descriptor, so a file swapped in between is refused too. With
+    ``follow_links=False`` a symbolic link is refused as well (the entry server reads only files
+    that are really in its folder). Problems are located at ``where`` (default: the path).
     """
-    where = str(path)
+    where = str(path) if where is None else where
+    flags = os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | os.O_CLOEXEC
     try:
-        info = os.stat(path)  # follows symbolic links: a link to /dev/zero is a device
+        if follow_links:
+            info = os.stat(path)  # follows symbolic links: a link to /dev/zero is a device
+        else:
+            info = os.lstat(path)
+            if stat.S_ISLNK(info.st_mode):
+                raise InputError(where, f"cannot read {what}: it is a symbolic link")
+            flags |= getattr(os, "O_NOFOLLOW", 0)
         if stat.S_ISDIR(info.st_mode):
             raise InputError(where, f"is a folder, not a {what}")
         kind = _not_regular(info.st_mode)
         if kind is None:
-            fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | os.O_CLOEXEC)
+            fd = os.open(path, flags)
             try:
                 info = os.fstat(fd)
             except OSError:
@@ -80,6 +92,8 @@ def _open_regular(path: Path, what: str) -> tuple[int, int]:
     except IsADirectoryError:
         raise InputError(where, f"is a folder, not a {what}") from None
     except OSError as exc:
+        if exc.errno == errno.ELOOP:  # the path became a link after lstat
+            raise InputError(where, f"cannot read {what}: it is a symbolic link") from None
         raise InputError(where, f"cannot read {what}: {exc.strerror or exc}") from None
     if kind is not None:
         raise InputError(where, f"is {kind}, not a regular file; a {what} must be a regular file")
@@ -95,15 +109,23 @@ def _read_up_to(fd: int, limit: int) -> bytes:
     return b"".join(chunks)
 
 
-def read_bytes_limited(path: Path, *, what: str = "file", max_bytes: int) -> bytes:
+def read_bytes_limited(
+    path: Path,
+    *,
+    what: str = "file",
+    max_bytes: int,
+    where: str | None = None,
+    follow_links: bool = True,
+) -> bytes:
     """The bytes of the regular file ``path``, refused when larger than ``max_bytes``.
 
     The size is checked before reading and at most ``max_bytes + 1`` bytes are ever read (a file
     growing while it is read is refused too), so a huge or sparse file costs neither time nor
-    memory. Every failure is an :class:`InputError` located at ``path``.
+    memory. Every failure is an :class:`InputError` located at ``where`` (default: the path);
+    ``follow_links=False`` refuses a symbolic link.
     """
-    fd, size = _open_regular(path, what)
-    where = str(path)
+    where = str(path) if where is None else where
+    fd, size = _open_regular(path, what, where, follow_links=follow_links)
     try:
         if size > max_bytes:
             raise InputError(where, f"file is {size:,} bytes; a {what} is at most {max_bytes:,}")
@@ -131,22 +153,31 @@ def open_regular(path: Path, *, what: str = "file") -> BinaryIO:
     return os.fdopen(fd, "rb")
 
 
-def read_head(path: Path, limit: int, *, what: str = "file") -> bytes:
-    """At most the first ``limit`` bytes of the regular file ``path`` (for listings and peeks).
+def read_head(
+    path: Path,
+    limit: int,
+    *,
+    what: str = "file",
+    where: str | None = None,
+    follow_links: bool = True,
+) -> tuple[bytes, int]:
+    """At most the first ``limit`` bytes of the regular file ``path`` (for listings and peeks),
+    and the file's size in bytes.
 
     Refuses what :func:`read_bytes_limited` refuses except size: a large file gives its head.
     """
-    with open_regular(path, what=what) as handle:
-        try:
-            return handle.read(limit)
-        except OSError as exc:
-            raise InputError(str(path), f"cannot read {what}: {exc.strerror or exc}") from None
+    where = str(path) if where is None else where
+    fd, size = _open_regular(path, what, where, follow_links=follow_links)
+    try:
+        return _read_up_to(fd, limit), size
+    except OSError as exc:
+        raise InputError(where, f"cannot read {what}: {exc.strerror or exc}") from None
+    finally:
+        os.close(fd)
 
 
-def read_text(path: Path, *, what: str = "file", max_bytes: int = MAX_DOCUMENT_BYTES) -> str:
-    """The UTF-8 text of ``path``, or an :class:`InputError` saying why it cannot be read."""
-    where = str(path)
-    raw = read_bytes_limited(path, what=what, max_bytes=max_bytes)
+def decode_text(raw: bytes, where: str) -> str:
+    """The UTF-8 text of a whole document's bytes; empty, binary or non-UTF-8 text is refused."""
     if not raw.strip():
         raise InputError(where, "file is empty")
     if b"\x00" in raw:
@@ -155,6 +186,12 @@ def read_text(path: Path, *, what: str = "file", max_bytes: int = MAX_DOCUMENT_B
         return raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
         raise InputError(where, f"not UTF-8 text (byte {exc.start})") from None
+
+
+def read_text(path: Path, *, what: str = "file", max_bytes: int = MAX_DOCUMENT_BYTES) -> str:
+    """The UTF-8 text of ``path``, or an :class:`InputError` saying why it cannot be read."""
+    raw = read_bytes_limited(path, what=what, max_bytes=max_bytes)
+    return decode_text(raw, str(path))
 
 
 class OverlongInteger(str):

@@ -129,6 +129,25 @@ def test_head_reads_only_the_head(tmp_path: Path) -> None:
     from reporting.documents import read_head
 
     big = _hostile("sparse-4GB", tmp_path, ".yaml")
-    assert read_head(big, 10) == b"\x00" * 10
+    assert read_head(big, 10) == (b"\x00" * 10, 4 * 1024**3)
     with pytest.raises(InputError, match="is a device"):
         read_head(_hostile("link-to-dev-zero", tmp_path, ".yml"), 10)
+
+
+def test_without_following_links_a_link_is_refused_and_located_as_told(tmp_path: Path) -> None:
+    # the entry server reads only files really in its folder: a link to a file elsewhere (here a
+    # readable study) is refused, and the message names the file as the server shows it
+    from reporting.documents import read_bytes_limited, read_head
+
+    target = tmp_path / "elsewhere.yaml"
+    target.write_text("study: {}\n")
+    link = tmp_path / "T-1.yaml"
+    link.symlink_to(target)
+    assert read_bytes_limited(link, max_bytes=100) == b"study: {}\n"  # followed by default
+    for read in (
+        lambda: read_bytes_limited(link, max_bytes=100, where="T-1.yaml", follow_links=False),
+        lambda: read_head(link, 10, where="T-1.yaml", follow_links=False),
+    ):
+        with pytest.raises(InputError) as caught:
+            read()
+        assert str(caught.value) == "T-1.yaml: cannot read file: it is a symbolic link"

@@ -164,7 +164,7 @@ def test_a_fifo_named_like_a_study_is_refused_not_waited_on(
     assert body["problems"][0] == {
         "location": "T-0001.yaml",
         "path": "T-0001.yaml",
-        "problem": "cannot read study file: not a regular file",
+        "problem": "is a named pipe (FIFO), not a regular file; a study file must be a regular file",
     }
     assert client.get("/api/studies").json()["studies"] == []
     assert time.monotonic() - started < 1

@@ -7,7 +7,7 @@ A new study is written as ``<id>.yaml`` in the study-file format (scores in the
 one-character-per-segment form, grouped by ring); an existing one keeps its file name and format
 (``X.json`` stays JSON), always through :func:`~reporting.files.write_atomic` and only when its
 ``If-Match`` names the stored bytes (:mod:`reporting.web.versions`). Files are read with a size
-limit and the listing reads only their heads (:mod:`reporting.web.reading`). Drafts are the page's
+limit and the listing reads only their heads (:mod:`reporting.documents`). Drafts are the page's
 raw, possibly incomplete form data as JSON, each owned by the browser tab that wrote it, kept in a
 hidden folder that ``segreport batch`` skips.
 """
@@ -26,16 +26,31 @@ from typing import Any
 import yaml
 from pydantic import TypeAdapter, ValidationError
 
-from reporting.documents import MAX_DOCUMENT_BYTES, parse_json, parse_yaml
+from reporting.documents import (
+    MAX_DOCUMENT_BYTES,
+    decode_text,
+    parse_json,
+    parse_yaml,
+    read_bytes_limited,
+    read_head,
+)
 from reporting.errors import InputError, InputErrors, OutputError, ReportingError
 from reporting.files import write_atomic
 from reporting.load import STUDY_SUFFIXES, study_from_data
 from reporting.model import NOT_VISUALISED, SafeId, Study
 from reporting.segments import Ring, SegmentModel, segments_of
-from reporting.web.reading import decode_text, peek_scalars, read_head, read_limited
+from reporting.web.reading import peek_scalars
 from reporting.web.versions import check_if_match, etag_of
 
 log = logging.getLogger(__name__)
+
+
+def _read_whole(path: Path, where: str, what: str = "study file") -> bytes:
+    """A file of the studies folder: a regular file (not a link) of at most the document limit."""
+    return read_bytes_limited(
+        path, what=what, max_bytes=MAX_DOCUMENT_BYTES, where=where, follow_links=False
+    )
+
 
 DRAFTS_FOLDER = ".drafts"
 REPORTS_FOLDER = "reports"
@@ -177,7 +192,7 @@ class Folder:
         path = self.study_path(study_id)
         if path is None:
             raise FileNotFoundError(study_id)
-        content = read_limited(path, path.name, max_bytes=MAX_DOCUMENT_BYTES)
+        content = _read_whole(path, path.name)
         data = _parse(content, path)
         try:
             study = study_from_data(data, source=path.name)
@@ -199,7 +214,7 @@ class Folder:
             path = self.study_path(study_id)
             current = None
             if path is not None:
-                current = read_limited(path, path.name, max_bytes=MAX_DOCUMENT_BYTES)
+                current = _read_whole(path, path.name)
             target = path or inside(self.studies, f"{checked_id(study_id, 'study id')}.yaml")
             check_if_match(current, if_match, target.name)
             allowed = {study_id}
@@ -224,7 +239,9 @@ class Folder:
     def _draft_owner(self, path: Path) -> str | None:
         if not path.is_file():
             return None
-        head, _ = read_head(path, f"drafts/{path.name}", limit=HEAD_BYTES, what="draft")
+        head, _ = read_head(
+            path, HEAD_BYTES, what="draft", where=f"drafts/{path.name}", follow_links=False
+        )
         return peek_scalars(head.decode("utf-8", "replace"), {("client",)}).get(("client",), "")
 
     def save_draft(self, draft_id: str, form: dict[str, Any], client: str) -> Path:
@@ -254,7 +271,7 @@ class Folder:
         if not path.is_file():
             raise FileNotFoundError(draft_id)
         where = f"drafts/{path.name}"
-        raw = read_limited(path, where, max_bytes=MAX_DOCUMENT_BYTES, what="draft")
+        raw = _read_whole(path, where, what="draft")
         data = parse_json(decode_text(raw, where), where)
         if not isinstance(data, dict):
             raise InputError(where, "a draft holds a mapping")
@@ -284,7 +301,9 @@ class Folder:
         for path in paths:
             try:
                 checked_id(path.stem, path.name)
-                head, _ = read_head(path, path.name, limit=HEAD_BYTES, what="draft")
+                head, _ = read_head(
+                    path, HEAD_BYTES, what="draft", where=path.name, follow_links=False
+                )
             except InputError:
                 continue
             study_id = peek_scalars(head.decode("utf-8", "replace"), {("study_id",)})
@@ -337,7 +356,9 @@ def _listing(path: Path) -> Listing:
     valid: bool | None = None
     values: dict[tuple[str, ...], str] = {}
     try:
-        head, size = read_head(path, path.name, limit=HEAD_BYTES)
+        head, size = read_head(
+            path, HEAD_BYTES, what="study file", where=path.name, follow_links=False
+        )
         if size > MAX_DOCUMENT_BYTES or not head.strip() or b"\x00" in head:
             valid = False  # too large, empty or binary: opening it would be refused
         else:
