@@ -61,3 +61,11 @@ def ordered(name: str = "DEMO-0002", **order_changes: Any) -> Analysis:
 
 def with_data(data: dict[str, Any]) -> Analysis:
     return analyze(study_from_data(data))
+
+
+def perfusion_not_seen() -> Analysis:
+    """DEMO-0002 with the apical cap (segment 17) not visualised for perfusion at peak."""
+    data = demo_data("DEMO-0002")
+    data["stages"]["peak"]["perfusion"] = "111111 221111 2311 x"
+    data["order"] = dict(ORDER)
+    return analyze(study_from_data(data))

@@ -24,6 +24,7 @@ from interop_cases import (
     UNSIGNED,
     demo_data,
     ordered,
+    perfusion_not_seen,
     with_data,
 )
 from pydicom.dataset import Dataset
@@ -182,6 +183,36 @@ def test_wall_motion_per_stage_and_segment_matches_the_analysis() -> None:
                 value = float(item.MeasuredValueSequence[0].NumericValue)
                 assert value == pytest.approx(a.wmsi[stage], rel=1e-9)
     assert seen == sum(len(s.wall_motion) for s in a.segments)
+
+
+def test_a_segment_not_visualised_for_perfusion_is_a_value_less_qualified_score(
+    tmp_path: Path,
+) -> None:
+    # DICOM PS3.3 C.18.1: Measured Value Sequence is type 2 (present, empty when there is no value)
+    # and the Numeric Value Qualifier Code Sequence says why (PS3.16 CID 42, DCM 114006)
+    a = perfusion_not_seen()
+    objects = dicom_objects(a, PDF, FINAL, at=AT)
+    sr = read_back(objects.sr)
+    peak = next(
+        c
+        for c in sr.ContentSequence
+        if concept_of(c) == key("findings")
+        and any(
+            concept_of(i) == key("protocol_stage") and value_of(i) == key("stage.peak")
+            for i in c.ContentSequence
+        )
+    )
+    scores = [i for i in peak.ContentSequence if concept_of(i) == key("perfusion")]
+    assert len(scores) == 17
+    apex = [i for i in scores if value_of(i.ContentSequence[0]) == key("segment.apex")]
+    assert len(apex) == 1 and len(apex[0].MeasuredValueSequence) == 0
+    qualifier = apex[0].NumericValueQualifierCodeSequence[0]
+    assert (qualifier.CodingSchemeDesignator, qualifier.CodeValue) == ("DCM", "114006")
+    assert all(len(i.MeasuredValueSequence) == 1 for i in scores if i is not apex[0])
+    if shutil.which("dciodvfy"):
+        path = tmp_path / "sr.dcm"
+        path.write_bytes(dicom_bytes(objects.sr))
+        assert dciodvfy_errors(path) == []
 
 
 def test_conclusion_is_the_pdfs_impression() -> None:

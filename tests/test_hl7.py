@@ -27,6 +27,7 @@ from interop_cases import (
     UNSIGNED,
     demo_data,
     ordered,
+    perfusion_not_seen,
     with_data,
 )
 
@@ -117,7 +118,7 @@ def test_every_obx_value_matches_its_value_type() -> None:
         else:
             pytest.fail(f"unexpected value type {kind}")
     assert kinds["ED"] == 1 and kinds["FT"] == 1
-    assert kinds["CWE"] == sum(len(s.wall_motion) for s in a.segments)
+    assert kinds["CWE"] == sum(len(s.wall_motion) for s in a.segments)  # all perfusion seen
     wmsi = [o for o in obx(message) if field(o, 3).startswith("125202^")]
     assert [float(field(o, 5)) for o in wmsi] == list(a.wmsi.values())
 
@@ -126,8 +127,9 @@ def test_stage_and_segment_are_in_the_sub_id() -> None:
     a = ordered()
     by_number = {s.number: s for s in a.segments}
     seen = 0
+    perfusion = code("perfusion").value
     for o in obx(oru_message(a, PDF, UNSIGNED, at=AT)):
-        if field(o, 2) != "CWE":
+        if field(o, 2) != "CWE" or field(o, 3).startswith(perfusion + "^"):
             continue
         stage_n, segment_n = (int(x) for x in field(o, 4).split("."))
         stage = a.stages[
@@ -187,3 +189,21 @@ def test_hl7_command_writes_the_message(tmp_path: Path) -> None:
     assert text.startswith("MSH|^~\\&|") and "\r" in text and "\n" not in text
     obr: Any = next(s for s in segments(text) if s[0] == "OBR")
     assert field(obr, 25) == "P"  # file mode is never signed
+
+
+def test_a_segment_not_visualised_for_perfusion_is_said_not_left_out() -> None:
+    # HL7 v2.5.1 7.4.2: OBX-2 gives the value type of OBX-5 per observation; a perfusion score
+    # that could not be read is sent as the coded finding "Not visualized" (DICOM PS3.16 CID 3703,
+    # DCM 122288) under the same observation id and sub-id, so the receiver sees every segment.
+    a = perfusion_not_seen()
+    rows = [o for o in obx(oru_message(a, PDF, FINAL, at=AT)) if field(o, 4).startswith("3.")]
+    perfusion = [o for o in rows if field(o, 3).startswith(code("perfusion").value + "^")]
+    assert len(perfusion) == 17
+    unseen = [o for o in perfusion if field(o, 4) == "3.17"]
+    assert [(field(o, 2), field(o, 5).split("^")[:3]) for o in unseen] == [
+        ("CWE", ["122288", "Not visualized", "DCM"])
+    ]
+    assert all(field(o, 2) == "NM" for o in perfusion if o not in unseen)
+    message = oru_message(a, PDF, FINAL, at=AT)
+    parsed = parse_message(message, validation_level=VALIDATION_LEVEL.TOLERANT, find_groups=True)
+    assert parsed.validate() is True  # hl7apy's HL7 v2.5.1 structure and datatype checks

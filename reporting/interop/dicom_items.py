@@ -36,6 +36,7 @@ TEXT_VALUE = 0x0040A160
 CONCEPT_CODE_SEQUENCE = 0x0040A168
 MEASURED_VALUE_SEQUENCE = 0x0040A300
 NUMERIC_VALUE = 0x0040A30A
+NUMERIC_VALUE_QUALIFIER_CODE_SEQUENCE = 0x0040A301
 CONTENT_SEQUENCE = 0x0040A730
 
 
@@ -80,9 +81,14 @@ def content_item(
     text: str | None = None,
     concept: str | None = None,
     measured: tuple[str, str] | None = None,
+    no_value: str | None = None,
     children: list[bytes] | None = None,
 ) -> bytes:
-    """One content item; ``measured`` is (DS value, unit key); elements in tag order."""
+    """One content item; ``measured`` is (DS value, unit key); elements in tag order.
+
+    ``no_value`` (a code key) makes a NUM item without a value: an empty Measured Value Sequence
+    (type 2) and the reason in the Numeric Value Qualifier Code Sequence (PS3.3 C.18.1, CID 42).
+    """
     out = b""
     if relationship is not None:
         out += element(RELATIONSHIP_TYPE, b"CS", _text(relationship))
@@ -101,6 +107,9 @@ def content_item(
         inner = sequence(MEASUREMENT_UNITS_CODE_SEQUENCE, [coded(unit)])
         inner += element(NUMERIC_VALUE, b"DS", _text(value))
         out += sequence(MEASURED_VALUE_SEQUENCE, [inner])
+    elif no_value is not None:
+        out += sequence(MEASURED_VALUE_SEQUENCE, [])
+        out += sequence(NUMERIC_VALUE_QUALIFIER_CODE_SEQUENCE, [coded(no_value)])
     if children:
         out += sequence(CONTENT_SEQUENCE, children)
     return out

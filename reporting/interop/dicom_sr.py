@@ -5,7 +5,8 @@ procedure report and a stress result does not follow it (DICOM PS3.16 TID 5200).
 context groups named there, all from ``data/codes.csv``: the procedure and stress protocol, one
 ``Findings`` container per stage with its protocol stage (CID 3207), heart rate, blood pressure,
 LVEF, WMSI (DCM 125202), perfusion defect extent, and per segment the wall motion (CID 3703/3704)
-and perfusion score with the segment as Finding Site (CID 3717); the territories in the PDF's own
+and perfusion score with the segment as Finding Site (CID 3717), a segment not visualised for
+perfusion as a value-less score qualified "Measurement failure" (CID 42); the territories in the PDF's own
 sentences with the artery as Finding Site; the conclusion (the PDF's Impression), the Duke risk band
 and the high-risk findings; the cautions as a comment. Only a signed release is VERIFIED, with its
 Verifying Observer and Organization; a corrected one lists the SR it replaces in the Predecessor
@@ -69,6 +70,10 @@ def _num(name: str, value: float, unit: str, *mods: bytes) -> bytes:
     return items.content_item("CONTAINS", "NUM", name, measured=measured, children=list(mods))
 
 
+def _no_value(name: str, reason: str, *mods: bytes) -> bytes:
+    return items.content_item("CONTAINS", "NUM", name, no_value=reason, children=list(mods))
+
+
 def _decimal_string(value: float) -> str:
     # DS holds at most 16 characters: full precision where it fits, else 10 significant digits.
     text = repr(float(value)).removesuffix(".0") if float(value).is_integer() else repr(value)
@@ -114,9 +119,14 @@ def _stage_findings(analysis: Analysis, stage: Stage) -> bytes:
             value = "wall_motion.x" if score is None else f"wall_motion.{score}"
             children.append(_wall_motion(site, value))
     for seg in analysis.segments:
-        score = seg.perfusion.get(stage)
-        if score is not None:  # not visualised: no value to report, the PDF lists those
-            children.append(_num("perfusion", score, "unit.none", _site(f"segment.{seg.name}")))
+        if stage not in seg.perfusion:
+            continue
+        score = seg.perfusion[stage]
+        where = _site(f"segment.{seg.name}")
+        if score is None:  # not visualised: a perfusion item without a value, saying why
+            children.append(_no_value("perfusion", "measurement_failure", where))
+        else:
+            children.append(_num("perfusion", score, "unit.none", where))
     return _container("CONTAINS", "findings", children)
 
 

@@ -5,7 +5,7 @@ numbers and the result status (P preliminary, F final, C corrected: from the :cl
 lines with the cautions, then OBX: the conclusion (FT, the PDF's Impression word for word), per stage
 the WMSI (NM, DCM 125202) and LVEF (NM, LOINC 10230-1), per stage and segment the wall motion (CWE,
 SNOMED CT codes of DICOM CID 3703/3704; observation id the segment's LOINC code where one exists)
-and the perfusion score (NM), and the PDF as an encapsulated-data OBX (``^AP^PDF^Base64^…``).
+and the perfusion score (NM; CWE "Not visualized", DCM 122288, when it was not seen), and the PDF as an encapsulated-data OBX (``^AP^PDF^Base64^…``).
 
 The stage and segment of a result travel in OBX-4 (Observation Sub-ID) as ``<stage>.<segment>``
 (stage 1 rest, 2 low dose, 3 peak, 4 recovery; segment 0 for whole-heart values) and in the
@@ -148,11 +148,15 @@ class _Message:
                     self.obx("CWE", self.wall_motion_id(seg, stage), f"{n}.{seg.number}",
                              _cwe(value))  # fmt: skip
             for seg in a.segments:
-                score = seg.perfusion.get(stage)
-                if score is not None:
-                    text = f"Myocardial perfusion score, {seg.name} segment, {stage.value}"
-                    self.obx("NM", _cwe(code("perfusion"), text), f"{n}.{seg.number}",
-                             str(score), _cwe(no_units))  # fmt: skip
+                if stage not in seg.perfusion:
+                    continue
+                score = seg.perfusion[stage]
+                text = f"Myocardial perfusion score, {seg.name} segment, {stage.value}"
+                ident, sub_id = _cwe(code("perfusion"), text), f"{n}.{seg.number}"
+                if score is None:  # not visualised: said as a coded value, not left out
+                    self.obx("CWE", ident, sub_id, _cwe(code("wall_motion.x")))
+                else:
+                    self.obx("NM", ident, sub_id, str(score), _cwe(no_units))
         if pdf is not None:
             data = base64.b64encode(pdf).decode("ascii")
             self.obx("ED", _cwe(code("report_title")), "0.0", f"^AP^PDF^Base64^{data}")
