@@ -73,7 +73,7 @@ def phrases(request: Request) -> PhraseListing:
     lab = lab_of(request)
     if lab.phrases is None:
         return phrase_listing(built_in_library(), "built-in")
-    return phrase_listing(lab.phrases, "lab")
+    return phrase_listing(lab.phrases, lab.phrases_source)
 
 
 @router.post(
