@@ -151,6 +151,7 @@ def conflict(
 ) -> JSONResponse:
     """412/428 with the study as stored now and, for 412, the changes field by field."""
     changes: list[FieldChange] = []
+    merged: dict[str, Any] | None = None
     if current is not None:
         theirs = current.study
         before = base.study if base is not None else theirs
@@ -158,6 +159,8 @@ def conflict(
             FieldChange(**c.as_json())
             for c in conflicts.changes(before, theirs, before if mine is None else mine)
         ]
+        if mine is not None and base is not None:
+            merged = conflicts.mine_on_top(base.study, theirs, mine)
     body = StudyConflict(
         detail=detail,
         problems=[Problem(location=f"study {study_id}", path="", problem=detail)],
@@ -168,6 +171,7 @@ def conflict(
         changed_by=current.author if current else None,
         changed_at=current.created_at if current else None,
         changes=changes,
+        merged=merged,
     )
     headers = {"etag": current.etag} if current else {}
     return JSONResponse(body.model_dump(mode="json"), status_code=status, headers=headers)
