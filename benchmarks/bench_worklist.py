@@ -48,7 +48,8 @@ def synthetic_store(url: str, count: int, *, seed: int = 15) -> Any:
     db = service.init_store(url, "bench", full_name=None, password=PASSWORD, origin=Origin.CLI)
     demo = study_from_data(yaml.safe_load(DEMO.read_text(encoding="utf-8")), source="demo")
     template = demo.model_dump(mode="json", exclude_none=True)
-    # one real signed record stands in for every signed study (its prior-study comparisons run)
+    # one real signed record, with each study's patient id, stands in for every signed one (so
+    # prior-study comparisons run)
     record = record_json(analyze(demo)).encode()
     rng = random.Random(seed)
     patients = max(1, count // 4)
@@ -93,7 +94,7 @@ def synthetic_store(url: str, count: int, *, seed: int = 15) -> Any:
                             "signer_name": "B",
                             "signed_at": created,
                             "meaning": "m",
-                            "record_json": record,
+                            "record_json": record.replace(b"LV-100231", patient.encode()),
                             "record_sha256": "0" * 64,
                             "pdf": b"%PDF-stand-in",
                             "pdf_sha256": "0" * 64,
