@@ -48,7 +48,7 @@ def synthetic_store(url: str, count: int, *, seed: int = 15) -> Any:
     db = service.init_store(url, "bench", full_name=None, password=PASSWORD, origin=Origin.CLI)
     demo = study_from_data(yaml.safe_load(DEMO.read_text(encoding="utf-8")), source="demo")
     template = demo.model_dump(mode="json", exclude_none=True)
-    # one real signed record, with each study's patient id, stands in for every signed one (so
+    # one real signed record, with each study's id, patient and date, stands in for every signed one (so
     # prior-study comparisons run)
     record = record_json(analyze(demo)).encode()
     rng = random.Random(seed)
@@ -94,7 +94,9 @@ def synthetic_store(url: str, count: int, *, seed: int = 15) -> Any:
                             "signer_name": "B",
                             "signed_at": created,
                             "meaning": "m",
-                            "record_json": record.replace(b"LV-100231", patient.encode()),
+                            "record_json": record.replace(b"LV-100231", patient.encode())
+                            .replace(b'"2026-10-14"', f'"{date}"'.encode())
+                            .replace(b"DEMO-0001", sid.encode()),
                             "record_sha256": "0" * 64,
                             "pdf": b"%PDF-stand-in",
                             "pdf_sha256": "0" * 64,
