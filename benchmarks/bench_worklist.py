@@ -15,6 +15,7 @@ from __future__ import annotations
 import argparse
 import copy
 import datetime as dt
+import json
 import random
 import statistics
 import sys
@@ -50,7 +51,7 @@ def synthetic_store(url: str, count: int, *, seed: int = 15) -> Any:
     template = demo.model_dump(mode="json", exclude_none=True)
     # one real signed record, with each study's id, patient and date, stands in for every signed one (so
     # prior-study comparisons run)
-    record = record_json(analyze(demo)).encode()
+    record = json.loads(record_json(analyze(demo)))
     rng = random.Random(seed)
     patients = max(1, count // 4)
     chunk = 5000
@@ -94,9 +95,7 @@ def synthetic_store(url: str, count: int, *, seed: int = 15) -> Any:
                             "signer_name": "B",
                             "signed_at": created,
                             "meaning": "m",
-                            "record_json": record.replace(b"LV-100231", patient.encode())
-                            .replace(b'"2026-10-14"', f'"{date}"'.encode())
-                            .replace(b"DEMO-0001", sid.encode()),
+                            "record_json": _record(record, sid, date, patient),
                             "record_sha256": "0" * 64,
                             "pdf": b"%PDF-stand-in",
                             "pdf_sha256": "0" * 64,
@@ -132,6 +131,14 @@ def synthetic_store(url: str, count: int, *, seed: int = 15) -> Any:
             if assignments:
                 session.execute(insert(AssignmentRow), assignments)
     return db
+
+
+def _record(template: dict[str, Any], sid: str, date: str, patient: str) -> bytes:
+    """The template record as the signed record of study ``sid`` (its id, date and patient)."""
+    value = dict(template)
+    value["study"] = template["study"] | {"id": sid, "date": date, "year": int(date[:4])}
+    value["patient"] = template["patient"] | {"id": patient}
+    return json.dumps(value).encode()
 
 
 def _median_ms(run: Any, repeats: int) -> float:
