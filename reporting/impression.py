@@ -39,11 +39,12 @@ import hashlib
 import json
 import logging
 from collections.abc import Iterable, Mapping
+from functools import lru_cache
 from json.encoder import encode_basestring_ascii
 from operator import attrgetter
 from typing import Any
 
-from reporting.model import Study
+from reporting.model import Stage, Study
 from reporting.results import Analysis, ImpressionStatus
 
 log = logging.getLogger(__name__)
@@ -170,10 +171,16 @@ def _texts(values: Iterable[str]) -> str:
     return f"[{','.join(map(_quoted, sorted(values)))}]"
 
 
-def _scores(scores: Mapping[str, int | None]) -> str:
+def _scores(scores: Mapping[Stage, int | None]) -> str:
     """``{"peak":2,"rest":1}``: scores per stage, stages in sorted order, null = not seen."""
-    items = [f"{_quoted(k)}:{'null' if v is None else v}" for k, v in sorted(scores.items())]
-    return f"{{{','.join(items)}}}"
+    return _scores_text(tuple(scores.items()))
+
+
+@lru_cache(maxsize=4096)
+def _scores_text(items: tuple[tuple[Stage, int | None], ...]) -> str:
+    # Cached: most segments of most studies share a few patterns (normal at every stage, say).
+    pairs = [f"{_quoted(k)}:{'null' if v is None else v}" for k, v in sorted(items)]
+    return f"{{{','.join(pairs)}}}"
 
 
 def impression_status(analysis: Analysis, current_sha256: str) -> ImpressionStatus:
