@@ -17,7 +17,7 @@ from reporting import conclusion, scoring, stress
 from reporting.errors import InputError
 from reporting.findings import quality_notes, response_notes
 from reporting.load import load_study
-from reporting.model import STRESS_STAGES, Protocol, Stage, Study
+from reporting.model import STAGE_ORDER, STRESS_STAGES, Protocol, Stage, Study
 from reporting.results import (
     RECORD_SCHEMA_VERSION,
     Analysis,
@@ -180,8 +180,10 @@ def analyze(
 
     wall = _scores_by_stage(study, "wall_motion")
     perf = _scores_by_stage(study, "perfusion")
-    courses = {
-        n: scoring.segment_course({stage: scores[n] for stage, scores in wall.items()})
+    no_scores: dict[int, int | None] = {}
+    rest, low, peak, recovery = (wall.get(s, no_scores) for s in STAGE_ORDER)
+    courses = {  # scoring.segment_course of each segment's scores, without a mapping per segment
+        n: scoring.course_of(rest.get(n), low.get(n), peak.get(n), recovery.get(n))
         for n in range(1, int(model) + 1)
     }
     segments = _segment_results(study, territory_map, courses, wall, perf)
@@ -304,14 +306,15 @@ def _segment_results(
     wall: dict[Stage, dict[int, int | None]],
     perf: dict[Stage, dict[int, int | None]],
 ) -> list[SegmentResult]:
-    def at(scores: dict[Stage, dict[int, int | None]], stage: Stage, n: int) -> int | None:
-        return scores[stage][n] if stage in scores else None
-
+    no_scores: dict[int, int | None] = {}
+    perf_rest, perf_peak = perf.get(Stage.REST, no_scores), perf.get(Stage.PEAK, no_scores)
+    assignment = territory_map.assignment[study.segment_model]  # territory_map.territory_of
     results = []
     for seg in segments_of(study.segment_model):
         n = seg.number
-        territory = territory_map.territory_of(study.segment_model, n)
+        territory = assignment[n]
         others = sorted({seg.default_territory, *seg.alternative_territories} - {territory})
+        course = courses[n]
         results.append(
             SegmentResult(
                 number=n,
@@ -321,12 +324,10 @@ def _segment_results(
                 shared_supply=others,
                 wall_motion={stage: scores[n] for stage, scores in wall.items()},
                 perfusion={stage: scores[n] for stage, scores in perf.items()},
-                response=courses[n].response,
-                baseline_stage=courses[n].baseline_stage,
-                ischemia_onset_stage=courses[n].worse_from,
-                perfusion_response=scoring.perfusion_response(
-                    at(perf, Stage.REST, n), at(perf, Stage.PEAK, n)
-                ),
+                response=course.response,
+                baseline_stage=course.baseline_stage,
+                ischemia_onset_stage=course.worse_from,
+                perfusion_response=scoring.perfusion_response(perf_rest.get(n), perf_peak.get(n)),
             )
         )
     return results
@@ -340,12 +341,11 @@ def _territory_result(
 ) -> TerritoryResult:
     mine = [s for s in segments if s.territory is territory]
     numbers = [s.number for s in mine]
+    indexed = [n for n in numbers if n in wmsi_numbers]
     wmsi: dict[Stage, float | None] = {}
     counts: dict[Stage, int] = {}
     for stage, scores in wall.items():
-        wmsi[stage], counts[stage] = scoring.score_index(
-            scores[n] for n in numbers if n in wmsi_numbers
-        )
+        wmsi[stage], counts[stage] = scoring.score_index([scores[n] for n in indexed])
     ischemic = [s.number for s in mine if s.response in ISCHEMIC_RESPONSES]
     reversible = [s.number for s in mine if s.perfusion_response in ISCHEMIC_PERFUSION]
     return TerritoryResult(

@@ -25,6 +25,12 @@ Every value is a string, an integer, a boolean or null (no floats, so no platfor
 object is serialised with ``json.dumps(sort_keys=True, separators=(",", ":"), ensure_ascii=True)``
 and hashed as UTF-8. The key order of the study file, the order of its stages and any free text
 do not enter the hash.
+
+:func:`findings_sha256` runs for every analysis, so it does not build that object and call
+``json.dumps``: :func:`canonical_text` writes the same characters directly (keys in sorted order,
+enum values as written, the strings escaped by the ``json`` module's own ASCII escaper). Tests
+compare the two forms over generated analyses; :func:`findings_basis` and :func:`canonical_bytes`
+stay the definition.
 """
 
 from __future__ import annotations
@@ -32,9 +38,13 @@ from __future__ import annotations
 import hashlib
 import json
 import logging
+from collections.abc import Iterable, Mapping
+from functools import lru_cache
+from json.encoder import encode_basestring_ascii
+from operator import attrgetter
 from typing import Any
 
-from reporting.model import Study
+from reporting.model import Stage, Study
 from reporting.results import Analysis, ImpressionStatus
 
 log = logging.getLogger(__name__)
@@ -95,7 +105,82 @@ def canonical_bytes(basis: dict[str, Any]) -> bytes:
 
 def findings_sha256(analysis: Analysis) -> str:
     """SHA-256 (lower-case hex) of the canonical findings of ``analysis``."""
-    return hashlib.sha256(canonical_bytes(findings_basis(analysis))).hexdigest()
+    return hashlib.sha256(canonical_text(analysis).encode("ascii")).hexdigest()
+
+
+def canonical_text(analysis: Analysis) -> str:
+    """``canonical_bytes(findings_basis(analysis))`` as text, written without the intermediate
+    object (it runs for every analysis; about a third of the time of building that object and
+    serialising it with ``json.dumps``).
+
+    Each object's keys are written here in sorted order and the stage and territory keys sorted
+    (enum members compare as their values). The values are the validated fields of the analysis:
+    plain ``int``, ``bool`` and ``None`` (pydantic turns a ``true`` score into ``1``), and string
+    enum members, escaped by the ``json`` module's own ASCII escaper; floats never enter.
+    """
+    c = analysis.conclusion
+    p = analysis.perfusion
+    segments = ",".join(
+        [
+            f'{{"number":{s.number},"perfusion":{_scores(s.perfusion)},'
+            f'"perfusion_response":{_text(s.perfusion_response)},'
+            f'"response":{_quoted(s.response)},"wall_motion":{_scores(s.wall_motion)}}}'
+            for s in sorted(analysis.segments, key=_NUMBER)
+        ]
+    )
+    territories = ",".join(
+        [f"{_quoted(t)}:{_quoted(r.status)}" for t, r in sorted(analysis.territories.items())]
+    )
+    return (
+        f'{{"basis":{_quoted(BASIS_VERSION)},"conclusion":{{'
+        f'"akinetic_to_dyskinetic_segments":{_ints(c.akinetic_to_dyskinetic_segments)},'
+        f'"fixed_segments":{_ints(c.fixed_segments)},'
+        f'"high_risk_findings":{_texts(f.code for f in c.high_risk_findings)},'
+        f'"ischemia_extent":{_quoted(c.ischemia_extent)},'
+        f'"ischemic_segments":{_ints(c.ischemic_segments)},'
+        f'"ischemic_territories":{_texts(c.ischemic_territories)},'
+        f'"multivessel":{_FLAG[c.multivessel]},'
+        f'"non_diagnostic_reason":{_text(c.non_diagnostic_reason)},'
+        f'"risk":{_quoted(c.risk)},'
+        f'"risk_criteria":{_texts(r.code for r in c.risk_criteria)},'
+        f'"status":{_quoted(c.status)},'
+        f'"viable_segments":{_ints(c.viable_segments)},'
+        f'"wrap_around_segments":{_ints(c.wrap_around_segments)}}},'
+        f'"perfusion":{{"fixed":{_ints(p.fixed_segments)},'
+        f'"partially_reversible":{_ints(p.partially_reversible_segments)},'
+        f'"reversible":{_ints(p.reversible_segments)}}},'
+        f'"segment_model":{int(analysis.segment_model)},"segments":[{segments}],'
+        f'"stress_adequate":{_FLAG[analysis.stress.adequate]},"territories":{{{territories}}}}}'
+    )
+
+
+_NUMBER = attrgetter("number")
+_quoted = encode_basestring_ascii  # '"value"', with json.dumps(ensure_ascii=True)'s escapes
+_FLAG = {True: "true", False: "false", None: "null"}
+
+
+def _text(value: str | None) -> str:
+    return "null" if value is None else _quoted(value)
+
+
+def _ints(values: Iterable[int]) -> str:
+    return f"[{','.join(map(str, sorted(values)))}]"
+
+
+def _texts(values: Iterable[str]) -> str:
+    return f"[{','.join(map(_quoted, sorted(values)))}]"
+
+
+def _scores(scores: Mapping[Stage, int | None]) -> str:
+    """``{"peak":2,"rest":1}``: scores per stage, stages in sorted order, null = not seen."""
+    return _scores_text(tuple(scores.items()))
+
+
+@lru_cache(maxsize=4096)
+def _scores_text(items: tuple[tuple[Stage, int | None], ...]) -> str:
+    # Cached: most segments of most studies share a few patterns (normal at every stage, say).
+    pairs = [f"{_quoted(k)}:{'null' if v is None else v}" for k, v in sorted(items)]
+    return f"{{{','.join(pairs)}}}"
 
 
 def impression_status(analysis: Analysis, current_sha256: str) -> ImpressionStatus:

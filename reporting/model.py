@@ -140,6 +140,14 @@ SafeId = Annotated[
 ]
 
 
+_SCORE_CHARS: dict[str, int | None] = {
+    **{str(d): d for d in range(10)},
+    NOT_VISUALISED: None,
+    NOT_VISUALISED.upper(): None,
+}
+"""What :func:`_parse_scores` makes of an ASCII digit or x/X, by the rules it applies to any character."""
+
+
 def _parse_scores(value: Any) -> Any:
     """Turn the character form into a mapping; check mapping keys are distinct segment numbers."""
     if isinstance(value, bool):
@@ -150,7 +158,9 @@ def _parse_scores(value: Any) -> Any:
         text = value.replace(" ", "")
         scores: dict[int, int | None] = {}
         for position, char in enumerate(text, start=1):
-            if char.lower() == NOT_VISUALISED:
+            if char in _SCORE_CHARS:  # the common characters, looked up; the rules below decide
+                scores[position] = _SCORE_CHARS[char]
+            elif char.lower() == NOT_VISUALISED:
                 scores[position] = None
             elif char.isdigit() and char.isascii():
                 scores[position] = int(char)

@@ -11,6 +11,7 @@ from __future__ import annotations
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from enum import StrEnum
+from functools import lru_cache
 
 from reporting.model import Stage
 
@@ -120,9 +121,31 @@ def segment_course(scores: Mapping[Stage, int | None]) -> SegmentCourse:
     only at stress is implausible (common practice): that stage's score is read as unchanged from an
     akinetic or dyskinetic baseline, and the stage is returned for a note to the reader.
     """
-    rest, low = scores.get(Stage.REST), scores.get(Stage.LOW_DOSE)
+    return course_of(
+        scores.get(Stage.REST),
+        scores.get(Stage.LOW_DOSE),
+        scores.get(Stage.PEAK),
+        scores.get(Stage.RECOVERY),
+    )
+
+
+@lru_cache(maxsize=4096)
+def course_of(
+    rest: int | None, low: int | None, peak: int | None, recovery: int | None
+) -> SegmentCourse:
+    """:func:`segment_course` from the rest, low-dose, peak and recovery scores.
+
+    Cached: the course is a pure function of these four scores, of which there are at most 6⁴
+    combinations on the 5-point scale (each score 1–5 or not seen), and :class:`SegmentCourse` is
+    immutable, so one result is safely shared by every segment with the same scores.
+    """
+    scores = {
+        Stage.REST: rest,
+        Stage.LOW_DOSE: low,
+        Stage.PEAK: peak,
+        Stage.RECOVERY: recovery,
+    }
     baseline_stage = Stage.REST if rest is not None else Stage.LOW_DOSE if low is not None else None
-    peak, recovery = scores.get(Stage.PEAK), scores.get(Stage.RECOVERY)
     if baseline_stage is None or (peak is None and recovery is None):
         return SegmentCourse(WallMotionResponse.NOT_ASSESSABLE, baseline_stage, None, ())
     baseline = rest if rest is not None else low

@@ -246,7 +246,7 @@ class Settings(BaseModel):
 
     def cited(self, name: str) -> str:
         """The source of setting ``name``; a lab's own value says so and keeps the default's source."""
-        source = self.sources()[name]
+        source = _sources()[name]
         value, default = getattr(self, name), getattr(default_settings(), name)
         if value == default:
             return source
@@ -257,7 +257,7 @@ class Settings(BaseModel):
     @staticmethod
     def sources() -> dict[str, str]:
         """The published source of each default, by setting name."""
-        return {name: entry["source"] for name, entry in _defaults_file().items()}
+        return dict(_sources())
 
 
 _PLACEHOLDER_HOSTS = (".invalid", ".example", ".test", ".localhost", "example.com", "example.org")
@@ -288,6 +288,12 @@ def _shown(value: Any) -> str:
 def _defaults_file() -> dict[str, dict[str, Any]]:
     data: dict[str, dict[str, Any]] = bundled_yaml("reporting.data", "thresholds.yaml")
     return data
+
+
+@cache
+def _sources() -> dict[str, str]:
+    """:meth:`Settings.sources`, read once (every cited note asks for it)."""
+    return {name: entry["source"] for name, entry in _defaults_file().items()}
 
 
 @cache

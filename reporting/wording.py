@@ -8,6 +8,7 @@ from __future__ import annotations
 import math
 from collections.abc import Iterable
 from enum import Enum
+from functools import lru_cache
 
 CAUTIONS = (
     "Decision support for qualified clinicians: this report does not replace the judgement of the reading physician.",
@@ -46,8 +47,12 @@ EXERCISE_STAGE_WORDS = {"low_dose": "low workload", "peak": "peak exercise"}
 to dobutamine only (common practice). The record keeps the stage keys."""
 
 
+@lru_cache(maxsize=256)
 def stage_words(stage: Enum, protocol: Enum | None = None) -> str:
-    """A stage name as words: ``low_dose`` -> ``low dose``; ``low workload`` in an exercise study."""
+    """A stage name as words: ``low_dose`` -> ``low dose``; ``low workload`` in an exercise study.
+
+    Cached: a few stages × protocols, asked for many times in every narrative.
+    """
     if protocol is not None:
         from reporting.model import EXERCISE_PROTOCOLS  # lazy: reporting.model imports this module
 

@@ -288,7 +288,7 @@ def test_territory_wmsi_is_mean_of_its_segments(rest: str, peak: str) -> None:
     assert a.conclusion.ischemia == bool(ischemic)
 
 
-@settings(max_examples=40)
+@settings(max_examples=40, suppress_health_check=[HealthCheck.too_slow])  # slow on a busy machine
 @given(
     rest=st.text(score_char, min_size=17, max_size=17),
     peak=st.dictionaries(

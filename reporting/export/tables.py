@@ -180,23 +180,27 @@ def segment_rows(analysis: Analysis) -> list[Row]:
 
     For a de-identified record every row goes through the allow-list, as study rows do.
     """
-    rows: list[Row] = []
-    for stage in analysis.stages:
-        for seg in analysis.segments:
-            rows.append(
-                (
-                    analysis.study.id,
-                    stage.value,
-                    seg.number,
-                    seg.name,
-                    seg.ring.value,
-                    seg.territory.value,
-                    seg.wall_motion.get(stage),
-                    seg.perfusion.get(stage),
-                    seg.response.value,
-                    seg.perfusion_response.value,
-                )
-            )
+    sid = analysis.study.id
+    segments = [  # the per-segment columns, worked out once for every stage
+        (
+            seg,
+            (seg.number, seg.name, seg.ring.value, seg.territory.value),
+            (seg.response.value, seg.perfusion_response.value),
+        )
+        for seg in analysis.segments
+    ]
+    rows: list[Row] = [
+        (
+            sid,
+            stage.value,
+            *head,
+            seg.wall_motion.get(stage),
+            seg.perfusion.get(stage),
+            *tail,
+        )
+        for stage in analysis.stages
+        for seg, head, tail in segments
+    ]
     if analysis.study.deidentified:
         return [_allowed(SEGMENTS_SCOPE, SEGMENT_COLUMNS, row) for row in rows]
     return rows

@@ -32,6 +32,7 @@ from reporting.results import (
     DiagnosticStatus,
     NonDiagnosticReason,
     RiskLevel,
+    SegmentResult,
     TerritoryStatus,
 )
 from reporting.scoring import WallMotionResponse
@@ -212,8 +213,10 @@ def non_diagnostic_reason(analysis: Analysis) -> str:
 
 
 def impression(analysis: Analysis) -> list[str]:
+    by_number = {s.number: s for s in analysis.segments}
+    pending = _pending_stress_stages(analysis)
     paragraphs = [summary(analysis)]
-    paragraphs += [territory_sentence(analysis, t) for t in Territory]
+    paragraphs += [_territory_sentence(analysis, t, by_number, pending) for t in Territory]
     dysk = analysis.conclusion.akinetic_to_dyskinetic_segments
     if dysk:
         paragraphs.append(
@@ -241,14 +244,31 @@ def shared_supply_sentence(analysis: Analysis) -> str:
 
 
 def territory_sentence(analysis: Analysis, territory: Territory) -> str:
-    t = analysis.territories[territory]
+    """One territory's findings in a sentence."""
     by_number = {s.number: s for s in analysis.segments}
+    return _territory_sentence(analysis, territory, by_number, _pending_stress_stages(analysis))
+
+
+def _pending_stress_stages(analysis: Analysis) -> list[Stage]:
+    return [st for st in unscored_stages(analysis) if st in STRESS_STAGES]
+
+
+def _territory_sentence(
+    analysis: Analysis,
+    territory: Territory,
+    by_number: dict[int, SegmentResult],
+    pending: list[Stage],
+) -> str:
+    t = analysis.territories[territory]
     mine = [by_number[n] for n in t.segments]
     if not mine:
         return f"{territory.value}: no segments under this map."
+    by_response: dict[WallMotionResponse, list[int]] = {}
+    for s in mine:
+        by_response.setdefault(s.response, []).append(s.number)
 
     def having(response: WallMotionResponse) -> list[int]:
-        return [s.number for s in mine if s.response is response]
+        return by_response.get(response, [])
 
     parts = []
     ischemic = having(WallMotionResponse.ISCHEMIC)
@@ -306,7 +326,6 @@ def territory_sentence(analysis: Analysis, territory: Territory) -> str:
             f"abnormal from low dose without a rest view in {segments_phrase(at_low)} (review)"
         )
     unseen = having(WallMotionResponse.NOT_ASSESSABLE)
-    pending = [st for st in unscored_stages(analysis) if st in STRESS_STAGES]
     if t.status is TerritoryStatus.NON_DIAGNOSTIC and pending:
         words = numbers(stage_words(st, analysis.protocol) for st in pending)
         parts.append(f"not assessable yet ({words} not scored yet)")
