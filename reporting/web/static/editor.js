@@ -5,6 +5,8 @@
  *   options.fetch(url, init)  how the editor calls the server (the lab page adds its CSRF header
  *                             and handles an ended session); default window.fetch
  *   options.onChange()        after every edit (the folder page autosaves its draft)
+ *   options.onResult(result)  after every live analysis shown (the lab page shows the comparison)
+ *   options.loadPhrases       false: the page calls loadPhrases() itself (after signing in)
  * Every computed value comes from the server (/api/analyze runs the same code as
  * `segreport analyze`); this script only collects the form, draws the maps and shows answers.
  * User text is only ever set with textContent or attribute values, never parsed as markup.
@@ -716,6 +718,7 @@
       state.boundaries = result.territory_boundaries;
       for (const path of $all("svg.bullseye .boundary")) path.setAttribute("d", state.boundaries);
       showStageCounts(record);
+      if (options.onResult) options.onResult(result);
     }
 
     function showRefused(count) {
@@ -975,6 +978,19 @@
       return true;
     }
 
+    /** ``doc`` with every score set as a mapping by segment number, the form collect() writes, so
+     *  two versions of a study compare field by field whatever form their scores were typed in. */
+    function normalise(doc) {
+      const out = clone(isObject(doc) ? doc : {});
+      for (const stage of Object.keys(isObject(out.stages) ? out.stages : {})) {
+        for (const kind of KINDS) {
+          const value = getPath(out, `stages.${stage}.${kind}`);
+          if (value !== undefined && value !== null) out.stages[stage][kind] = scoresToDocument(scoresFromDocument(value));
+        }
+      }
+      return out;
+    }
+
     /** A signed study is shown, not edited: every control of the editor is switched off (the stage
      *  tabs and the folding blocks stay, to look around). */
     function setReadOnly(on) {
@@ -1034,6 +1050,7 @@
       runAnalysis,
       analyzeSoon,
       withImpression,
+      normalise,
       setReadOnly,
       loadPhrases,
       stageTitle: (stage) => STAGE_TITLES[stage] || stage,
