@@ -538,7 +538,7 @@
       const tr = document.createElement("tr");
       const theirsChanged = JSON.stringify(change.theirs) !== JSON.stringify(change.base);
       const mineChanged = JSON.stringify(change.mine) !== JSON.stringify(change.base);
-      tr.dataset.path = change.path;
+      tr.dataset.field = change.path;
       if (change.conflict) tr.className = "both";
       cell(tr, change.path, true);
       cell(tr, shown(change.theirs));
@@ -769,7 +769,7 @@
 
   function eventRow(e, withStudy) {
     const tr = document.createElement("tr");
-    tr.dataset.action = e.action;
+    tr.dataset.event = e.action;
     cell(tr, e.seq, true);
     cell(tr, when(e.at));
     cell(tr, e.actor);
@@ -881,6 +881,7 @@
       editor.state.dirty = false;
       study.id = null; // opened afresh when come back to
     }
+    setStatus("");
     route();
   }
 
