@@ -191,6 +191,8 @@
     setStatus(`Signed in as ${info.user}.`, "ok");
     route().then(() => {
       if (kept && kept.id && study.id === kept.id && !study.readOnly) {
+        // the entries keep the version they started from: a save after someone else's is a conflict
+        Object.assign(study, { etag: kept.etag, base: kept.base, version: kept.version });
         editor.populate(kept.data);
         editor.changed();
         setStatus("Your unsaved entries from before the sign-out are back on the page; save to store them.", "warn");
@@ -201,8 +203,8 @@
   /** Clear everything a signed-in user saw; keep unsaved entries in memory for the same user. */
   function wipe() {
     clearInterval(session.timer);
-    if (session.info && study.id && editor.state.dirty && !study.readOnly) {
-      session.kept = { user: session.info.user, id: study.id, data: editor.collect() };
+    if (session.info && study.id && editor.state.dirty && !study.readOnly && !study.amending) {
+      session.kept = { user: session.info.user, id: study.id, data: editor.collect(), etag: study.etag, base: study.base, version: study.version };
     }
     session.info = null;
     for (const dialog of $all("dialog")) if (dialog.open) dialog.close();
@@ -409,7 +411,7 @@
     const sig = answer.signature;
     $("#signed-banner").hidden = !(signed && sig);
     if (signed && sig) {
-      $("#signed-text").textContent = `Signed by ${sig.signer_name || sig.signer} on ${when(sig.signed_at)}: “${sig.meaning}”. This version is read-only; use Amend or Addendum to change the report.`;
+      $("#signed-text").textContent = `Signed by ${sig.signer_name || sig.signer} on ${when(sig.signed_at)}: “${sig.meaning}”.${amending ? "" : " This version is read-only; use Amend or Addendum to change the report."}`;
       $("#signed-pdf").href = pdfUrl(study.id, study.version);
     }
   }
@@ -632,7 +634,7 @@
   }
 
   async function startSigning() {
-    if (editor.state.dirty && !(await save())) return;
+    if (!study.amending && editor.state.dirty && !(await save())) return;
     $("#sign-title").textContent = study.amending ? "Sign the amendment" : "Sign the report";
     $("#sign-what").textContent = study.amending
       ? `You sign an amendment of ${study.id} version ${study.version}. Reason: ${study.amending}`
@@ -873,7 +875,7 @@
 
   function hashChanged() {
     const onStudy = !$("#view-study").hidden;
-    if (onStudy && editor.state.dirty && !study.readOnly && !window.confirm("Leave this study without saving your changes?")) {
+    if (onStudy && editor.state.dirty && (!study.readOnly || study.amending) && !window.confirm("Leave this study without saving your changes?")) {
       history.replaceState(null, "", study.id ? `#study/${encodeURIComponent(study.id)}` : "#new");
       return;
     }
