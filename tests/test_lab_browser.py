@@ -371,6 +371,50 @@ def test_a_sonographers_save_reaches_the_readers_worklist_awaiting_reader(
     assert errors == []
 
 
+def test_an_admin_unlocks_a_user_and_adds_one_who_chooses_a_password(
+    lab: Lab, browser: Any, tmp_path: Path
+) -> None:
+    from playwright.sync_api import expect
+
+    from reporting.store.errors import AuthError
+
+    settings = default_settings()
+    for _ in range(settings.lockout_failures):  # ruth locks herself out
+        with pytest.raises(AuthError):
+            users.authenticate(lab.db, "ruth", "not her password", origin=CLI, settings=settings)
+    errors: list[str] = []
+    page = _page(browser, errors)
+    _sign_in(page, lab.base, "anna")
+    page.click("#nav-users")
+    ruth = page.locator('#users-table tbody tr[data-user="ruth"]')
+    expect(ruth).to_contain_text("locked")
+    _shot(page, tmp_path, "users")
+    ruth.locator("button").click()
+    expect(ruth).to_contain_text("active")
+    expect(page.locator("#status")).to_contain_text("ruth unlocked")
+
+    # a new user with a first password, who must choose their own at first sign-in
+    page.fill("#user-name", "tom")
+    page.fill("#user-full", "Tom Example")
+    page.check('#user-roles input[value="sonographer"]')
+    page.fill("#user-password", "first password for tom")
+    page.click("#user-add")
+    expect(page.locator('#users-table tbody tr[data-user="tom"]')).to_contain_text("sonographer")
+    page.click("#signout-button")
+    page.fill("#signin-user", "tom")
+    page.fill("#signin-password", "first password for tom")
+    page.click("#signin-button")
+    expect(page.locator("#password-screen")).to_be_visible()
+    page.fill("#password-old", "first password for tom")
+    page.fill("#password-new", "tom chose this one himself")
+    page.fill("#password-again", "tom chose this one himself")
+    page.click("#password-submit")
+    expect(page.locator("#signin-message")).to_contain_text("Password changed")
+    _sign_in(page, lab.base, "tom", "tom chose this one himself")
+    expect(page.locator("#nav-users")).to_be_hidden()
+    assert errors == []
+
+
 def test_an_idle_page_signs_out_and_brings_back_unsaved_entries(lab: Lab, browser: Any) -> None:
     from playwright.sync_api import expect
 

@@ -112,7 +112,7 @@
   const canEdit = () => has("sonographer") || has("reader");
   function showMessage(id, text) {
     const el = $(id);
-    el.textContent = text || "";
+    el.textContent = text ? text.charAt(0).toUpperCase() + text.slice(1) : "";
     el.hidden = !text;
   }
   function view(name) {
@@ -789,8 +789,8 @@
     const body = $("#audit-table tbody");
     body.replaceChildren();
     for (const e of events) body.appendChild(eventRow(e, true));
-    $("#audit-next").disabled = events.length < AUDIT_PAGE;
-    if (events.length) audit.last = events[events.length - 1].seq;
+    audit.last = answer.next_after || (events.length ? events[events.length - 1].seq : audit.after);
+    $("#audit-next").disabled = answer.next_after === null || events.length < AUDIT_PAGE;
   }
 
   // --- users (admin) --------------------------------------------------------------------------
