@@ -344,6 +344,7 @@ def test_a_sonographers_save_reaches_the_readers_worklist_awaiting_reader(
     expect(sono.locator("#nav-users")).to_be_hidden()
     _open(sono, "DEMO-0001")
     expect(sono.locator("#sign-button")).to_be_hidden()  # a sonographer cannot sign
+    sono.click("#tab-peak")
     sono.fill("#f-stages-peak-heart_rate_bpm", "141")
     sono.click("#save-button")
     expect(sono.locator("#status")).to_contain_text("awaiting a reader")

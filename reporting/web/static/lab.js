@@ -207,6 +207,8 @@
       session.kept = { user: session.info.user, id: study.id, data: editor.collect(), etag: study.etag, base: study.base, version: study.version };
     }
     session.info = null;
+    editor.analyzeSoon.cancel();
+    editor.state.analysisSeq += 1; // an analysis still on its way is not shown
     for (const dialog of $all("dialog")) if (dialog.open) dialog.close();
     for (const body of $all("#views tbody")) body.replaceChildren();
     Object.assign(study, { id: null, etag: null, base: null, version: null, status: null, readOnly: true, answer: null, conflict: null, amending: null, isNew: false });
