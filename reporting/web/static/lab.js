@@ -25,6 +25,15 @@
     appended: "amended",
   };
 
+  const CHANGE_WORDS = {
+    new: "new ischaemia",
+    unchanged: "ischaemia unchanged",
+    improved: "ischaemia in fewer segments",
+    worsened: "ischaemia in more segments",
+    resolved: "ischaemia resolved",
+    none: "no ischaemia then or now",
+  };
+
   const session = { info: null, idleMs: 0, lastActive: 0, timer: null, kept: null };
   const study = {
     id: null, etag: null, base: null, version: null, status: null, readOnly: true,
@@ -452,7 +461,7 @@
     territories.replaceChildren();
     for (const [name, change] of Object.entries(comparison.territories || {})) {
       const li = document.createElement("li");
-      li.textContent = `${name}: ${change === "none" ? "no ischaemia then or now" : String(change).replace(/_/g, " ")}`;
+      li.textContent = `${name}: ${CHANGE_WORDS[change] || String(change).replace(/_/g, " ")}`;
       li.dataset.change = change;
       territories.appendChild(li);
     }
@@ -545,8 +554,8 @@
       tr.dataset.field = change.path;
       if (change.conflict) tr.className = "both";
       cell(tr, change.path, true);
-      cell(tr, shown(change.theirs));
-      cell(tr, shown(change.mine));
+      cell(tr, shown(change.theirs)).classList.toggle("same", !theirsChanged);
+      cell(tr, shown(change.mine)).classList.toggle("same", !mineChanged);
       cell(tr, change.conflict ? "both of you (yours is kept on re-apply)" : theirsChanged && mineChanged ? "both of you, the same way" : theirsChanged ? who : mineChanged ? "you" : "–");
       body.appendChild(tr);
     }
