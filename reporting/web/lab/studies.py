@@ -43,7 +43,7 @@ from reporting.store import (
 )
 from reporting.store.canonical import Origin
 from reporting.store.engine import Database
-from reporting.store.errors import AuthError, NotFound
+from reporting.store.errors import AuthError, ConflictError, NotFound
 from reporting.store.worklist import WorklistStatus
 from reporting.web.analysing import analysis_response, analysis_result
 from reporting.web.api import REFUSED, AnalyzeResult, Problem, study_body
@@ -157,6 +157,7 @@ def _view(db: Database, opened: saving.Opened) -> StudyView:
         awaiting_reader=opened.awaiting_reader,
         assigned_reader=opened.assigned_reader,
         etag=opened.etag,
+        default_meaning=signing.DEFAULT_MEANING,
         pdf=_pdf_url(opened.study_id, opened.version) if opened.signed else None,
         earlier=[EarlierStudy(study_id=s, study_date=d, status=st) for s, d, st in earlier],
         comparison=comparison,
@@ -235,10 +236,41 @@ def _precondition(
     return current, _conflict(412, detail, study_id, base=base, current=current, mine=mine)
 
 
-def _signer(db: Database, who: Caller, password: str) -> users.Person:
-    """The caller, authenticated again by password; a wrong one counts towards the lockout."""
+def _must_be_signed(current: saving.Opened, signed: bool) -> None:
+    """409 before the password is asked: signing needs an unsigned latest version, amending and
+    adding an addendum a signed one."""
+    if current.signed and not signed:
+        raise saving.SignedStudy(
+            f"study {current.study_id}",
+            f"version {current.version} is already signed; a signed version is never signed "
+            "again (use Amend or Addendum)",
+        )
+    if signed and not current.signed:
+        raise ConflictError(
+            f"study {current.study_id}",
+            f"version {current.version} is not signed yet: save your changes and sign it instead",
+        )
+
+
+SIGN_FAILED = "sign_failed"
+"""Audit action of a wrong password given when signing (it counts towards the lockout)."""
+
+
+def _signer(request: Request, who: Caller, password: str) -> users.Person:
+    """The caller, authenticated again by password (21 CFR 11.200); a wrong one counts towards
+    the lockout like a failed sign-in, and locking ends the user's sessions."""
+    lab = lab_of(request)
     try:
-        return users.authenticate(db, who.person.name, password, role=users.Role.READER, origin=WEB)
+        return users.authenticate(
+            lab.db,
+            who.person.name,
+            password,
+            role=users.Role.READER,
+            origin=WEB,
+            settings=lab.settings,
+            failed_action=SIGN_FAILED,
+            address=who.address,
+        )
     except AuthError as exc:
         raise AuthError("password", exc.problem) from None
 
@@ -376,7 +408,8 @@ async def sign_study(study_id: SafeId, request: Request, who: CallerDep) -> Resp
         current, refusal = _precondition(db, study_id, if_match)
         if refusal is not None:
             return refusal
-        signer = _signer(db, who, body.password)
+        _must_be_signed(current, False)
+        signer = _signer(request, who, body.password)
         done = signing.sign(
             db, study_id, signer, meaning=body.meaning, origin=WEB, expect_version=current.version
         )
@@ -401,7 +434,8 @@ async def amend_study(study_id: SafeId, request: Request, who: CallerDep) -> Res
         current, refusal = _precondition(db, study_id, if_match, saving.study_json(study))
         if refusal is not None:
             return refusal
-        signer = _signer(db, who, body.password)
+        _must_be_signed(current, True)
+        signer = _signer(request, who, body.password)
         done = signing.amend(
             db,
             study_id,
@@ -433,7 +467,8 @@ async def add_addendum(study_id: SafeId, request: Request, who: CallerDep) -> Re
         current, refusal = _precondition(db, study_id, if_match)
         if refusal is not None:
             return refusal
-        signer = _signer(db, who, body.password)
+        _must_be_signed(current, True)
+        signer = _signer(request, who, body.password)
         done = signing.amend(
             db,
             study_id,
