@@ -385,6 +385,7 @@
     study.version = answer.version;
     study.status = answer.status;
     study.readOnly = Boolean(answer.read_only);
+    study.meaning = answer.default_meaning || LAB.meaning;
     study.amending = null;
     study.conflict = null;
     $("#lab-conflict").hidden = true;
@@ -650,6 +651,7 @@
     $("#sign-what").textContent = study.amending
       ? `You sign an amendment of ${study.id} version ${study.version}. Reason: ${study.amending}`
       : `You sign ${study.id}, version ${study.version}, as its final report.`;
+    $("#sign-meaning").textContent = study.meaning || LAB.meaning;
     $("#sign-password").value = "";
     showMessage("#sign-error", "");
     $("#sign-dialog").showModal();
@@ -669,9 +671,9 @@
       if (study.amending) {
         const data = editor.collect();
         if (!(await editor.withImpression(data))) return;
-        result = await call(studyUrl(study.id, "/amend"), { method: "POST", body: { study: data, reason: study.amending, password }, headers: { "if-match": study.etag || "" } });
+        result = await call(studyUrl(study.id, "/amend"), { method: "POST", body: { study: data, reason: study.amending, password, meaning: study.meaning || LAB.meaning }, headers: { "if-match": study.etag || "" } });
       } else {
-        result = await call(studyUrl(study.id, "/sign"), { method: "POST", body: { password, meaning: LAB.meaning }, headers: { "if-match": study.etag || "" } });
+        result = await call(studyUrl(study.id, "/sign"), { method: "POST", body: { password, meaning: study.meaning || LAB.meaning }, headers: { "if-match": study.etag || "" } });
       }
       const { response, answer } = result;
       $("#sign-password").value = "";
@@ -725,6 +727,7 @@
   function startAddendum() {
     $("#addendum-text").value = "";
     $("#addendum-password").value = "";
+    $("#addendum-meaning").textContent = study.meaning || LAB.meaning;
     showMessage("#addendum-error", "");
     $("#addendum-dialog").showModal();
     $("#addendum-text").focus();
