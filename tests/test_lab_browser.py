@@ -28,7 +28,7 @@ from pypdf import PdfReader
 from store_support import PASSWORD, cheap_argon2, study_data, write_study
 
 from reporting.settings import default_settings
-from reporting.store import history, service, users, versions
+from reporting.store import history, service, signing, users, versions
 from reporting.store.canonical import Origin
 from reporting.store.engine import Database
 from reporting.store.users import Role
@@ -310,15 +310,30 @@ def test_sign_in_sign_amend_and_read_the_history(lab: Lab, browser: Any, tmp_pat
     expect(page.locator("#study-status")).to_have_text("amended")
     _, stored = _latest_study(lab.db, "DEMO-0002")
     assert stored["indication"] == "Known coronary disease, new breathlessness"
-    trail = history.history(lab.db, "DEMO-0002")
-    assert trail["versions"][-1]["reason"] == "Indication corrected after talking to the referrer"
+    amended = history.history(lab.db, "DEMO-0002")["versions"][-1]
+    assert amended["reason"] == "Indication corrected after talking to the referrer"
+    assert amended["status"] == "amended"
+
+    # an addendum: its text and the password, a new signed version
+    page.click("#addendum-button")
+    expect(page.locator("#addendum-meaning")).to_have_text(
+        "reviewed and approved as the final report"
+    )
+    page.fill("#addendum-text", "Images reviewed again with the referrer; no change.")
+    page.fill("#addendum-password", PASSWORD)
+    with page.context.expect_page() as opened:
+        page.click("#addendum-confirm")
+    opened.value.close()
+    expect(page.locator("#status")).to_contain_text("Signed: DEMO-0002 version")
+    assert history.history(lab.db, "DEMO-0002")["versions"][-1]["status"] == "appended"
 
     # history and audit view: every version and the events naming the study
     page.click("#history-link")
     expect(page.locator("#history-title")).to_contain_text("History of DEMO-0002")
+    trail = history.history(lab.db, "DEMO-0002")
     rows = page.locator("#versions-table tbody tr")
     expect(rows).to_have_count(len(trail["versions"]))
-    expect(rows.last).to_contain_text("Indication corrected")
+    expect(rows.nth(len(trail["versions"]) - 2)).to_contain_text("Indication corrected")
     events = page.locator("#events-table tbody tr")
     expect(events).to_have_count(len(history.history(lab.db, "DEMO-0002")["events"]))
     for action in ("sign", "amend"):
@@ -366,9 +381,19 @@ def test_a_sonographers_save_reaches_the_readers_worklist_awaiting_reader(
     reader.click("#filter-apply")
     expect(reader.locator("#worklist-table tbody tr")).to_have_count(1)
 
-    # the earlier study of the same patient is listed beside DEMO-0001
+    # the earlier study of the same patient is listed beside DEMO-0001, and once signed it is
+    # the comparison: a segment made worse at peak is new ischaemia since then
+    ruth = users.authenticate(lab.db, "ruth", PASSWORD, origin=CLI)
+    signing.sign(lab.db, "DEMO-0001-P", ruth, origin=CLI)
     _open(reader, "DEMO-0001")
     expect(reader.locator("#earlier-list")).to_contain_text("DEMO-0001-P")
+    expect(reader.locator("#comparison-prior")).to_have_text("DEMO-0001-P of 2025-10-14")
+    reader.click("#tab-peak")
+    reader.locator(
+        'svg.bullseye[data-kind="wall_motion"][data-stage="peak"] .sector[data-segment="7"]'
+    ).click()  # 1 -> 2 at peak, normal at rest: ischaemic (Marwick TH, Heart 2003;89:113, table 1)
+    expect(reader.locator("#comparison-territories")).to_contain_text("LAD: new ischaemia")
+    expect(reader.locator("#comparison-segments")).to_contain_text("7 (normal → ischemic)")
     assert errors == []
 
 

@@ -410,6 +410,7 @@
     const signed = study.readOnly;
     const amending = Boolean(study.amending);
     editor.setReadOnly((signed && !amending) || !canEdit());
+    $("#f-study-id").readOnly = !study.isNew; // a stored study keeps its id
     $("#save-button").hidden = signed || !canEdit();
     $("#sign-button").hidden = signed || study.isNew || !has("reader");
     $("#amend-button").hidden = !signed || amending || !has("reader");
