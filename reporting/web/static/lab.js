@@ -949,6 +949,9 @@
 
   async function start() {
     wire();
+    // the store sets a version's report status (preliminary until signed): not a field to edit here
+    const reportStatus = $("#f-study-report_status");
+    if (reportStatus) reportStatus.closest(".field").hidden = true;
     let response;
     try {
       response = await window.fetch("/api/session", { credentials: "same-origin" });
