@@ -424,7 +424,7 @@
     const sig = answer.signature;
     $("#signed-banner").hidden = !(signed && sig);
     if (signed && sig) {
-      $("#signed-text").textContent = `Signed by ${sig.signer_name || sig.signer} on ${when(sig.signed_at)}: “${sig.meaning}”.${amending ? "" : " This version is read-only; use Amend or Addendum to change the report."}`;
+      $("#signed-text").textContent = `Signed by ${sig.signer_name || sig.signer} on ${when(sig.signed_at)}: “${sig.meaning}”.${amending ? "" : has("reader") ? " This version is read-only; use Amend or Addendum to change the report." : " This version is read-only."}`;
       $("#signed-pdf").href = pdfUrl(study.id, study.version);
     }
   }
