@@ -135,6 +135,7 @@ def test_stale_save_shows_their_changes_field_by_field_and_writes_nothing(
     assert versions_of(db, "DEMO-0001") == [1, 2]  # nothing written
     # "re-apply mine on top": theirs with my changes, saved with the current ETag
     merged = conflicts.mine_on_top(base["study"], body["current"], mine)
+    assert body["merged"] == merged  # the server offers the same merge
     again = rita.put(
         "/api/studies/DEMO-0001", json={"study": merged}, headers={"if-match": body["etag"]}
     )

@@ -84,6 +84,9 @@ def test_upgrade_from_the_first_schema_keeps_data_and_triggers(tmp_path: Path) -
     assert trigger_names(db) >= triggers.expected_names("sqlite")
     with db.read() as session:
         assert session.execute(text("SELECT study_date FROM versions")).scalar() == "2026-01-02"
+        # 0004 fills the worklist from each study's latest version
+        worklist = session.execute(text("SELECT status, version, awaiting_reader FROM worklist"))
+        assert [tuple(r) for r in worklist] == [("preliminary", 1, 0)]
 
 
 @pytest.mark.parametrize("table", ["versions", "signatures", "events", "studies"])

@@ -187,3 +187,34 @@ def test_assignment_needs_a_reader_and_is_audited(db: Database) -> None:
 def test_bad_paging_is_refused(db: Database, limit: int, offset: int, message: str) -> None:
     with pytest.raises(StoreError, match=message):
         worklist.listing(db, Query(limit=limit, offset=offset))
+
+
+def test_two_saves_from_one_version_at_once_never_overwrite_each_other(db: Database) -> None:
+    import threading
+
+    rita, alice = person(db, "rita"), person(db, "alice")
+    first = saving.create(db, study(), rita, origin=WEB)
+    outcomes: list[str] = []
+    start = threading.Barrier(2)
+
+    def save(who: users.Person, text: str) -> None:
+        start.wait()
+        try:
+            saving.save(
+                db, "DEMO-0001", study(indication=text), who, if_match=first.etag, origin=WEB
+            )
+            outcomes.append("saved")
+        except saving.Stale:
+            outcomes.append("stale")
+
+    threads = [
+        threading.Thread(target=save, args=(who, text))
+        for who, text in ((rita, "mine"), (alice, "theirs"))
+    ]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert sorted(outcomes) == ["saved", "stale"]  # one wins, the other is told
+    assert saving.read(db, "DEMO-0001").version == 2
+    consistent(db)

@@ -109,6 +109,13 @@ class StudyConflict(_Shape):
     changed_by: str | None = Field(description="Who saved the latest version.")
     changed_at: str | None = Field(description="When.")
     changes: list[FieldChange] = Field(description="Field by field: base, theirs, mine.")
+    merged: dict[str, Any] | None = Field(
+        default=None,
+        description=(
+            "Theirs with my changes on top (where mine differs from the base), ready to save with "
+            "the ETag above; null when the base version is not known."
+        ),
+    )
 
 
 class NewStudy(_Shape):
