@@ -15,14 +15,14 @@
   const PAGE_SIZE = 50;
   const AUDIT_PAGE = 100;
   const IDLE_CHECK_MS = 5000;
-  const STATUS_WORDS = {
-    unread: "unread",
+  const STATUS_WORDS = { unread: "unread", preliminary: "preliminary", signed: "signed", amended: "amended" };
+  /** A version's own status (FHIR DiagnosticReport.status) in the page's words. */
+  const VERSION_WORDS = {
     preliminary: "preliminary",
-    signed: "signed",
-    amended: "amended",
     final: "signed",
-    corrected: "amended",
-    appended: "amended",
+    amended: "amended",
+    corrected: "corrected",
+    appended: "addendum",
   };
 
   const CHANGE_WORDS = {
@@ -100,11 +100,11 @@
     if (external) { a.target = "_blank"; a.rel = "noopener"; }
     return a;
   }
-  function badge(status) {
+  function badge(status, words) {
     const span = document.createElement("span");
     span.className = "badge";
     span.dataset.status = status || "";
-    span.textContent = STATUS_WORDS[status] || status || "new";
+    span.textContent = (words || STATUS_WORDS)[status] || status || "new";
     return span;
   }
   function when(text) {
@@ -403,7 +403,7 @@
     $("#study-title").textContent = study.isNew ? "New study" : `Study ${study.id}`;
     const status = $("#study-status");
     status.dataset.status = study.status || "";
-    status.textContent = STATUS_WORDS[study.status] || study.status || "not saved yet";
+    status.textContent = VERSION_WORDS[study.status] || study.status || "not saved yet";
     $("#study-awaiting").hidden = !answer.awaiting_reader;
     $("#study-version").textContent = study.version ? `version ${study.version}` : "";
     $("#study-assigned").textContent = answer.assigned_reader ? `reader: ${answer.assigned_reader}` : "";
@@ -770,7 +770,7 @@
       const tr = document.createElement("tr");
       const sig = v.signature;
       cell(tr, `v${v.version}`, true);
-      cell(tr, badge(v.status));
+      cell(tr, badge(v.status, VERSION_WORDS));
       cell(tr, v.author);
       cell(tr, when(v.created_at));
       cell(tr, v.reason);
