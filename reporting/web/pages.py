@@ -32,12 +32,13 @@ def environment() -> jinja2.Environment:
 
 
 def entry_page(**context: Any) -> str:
-    """The score-entry page."""
+    """The score-entry page of the folder mode (``context``: its folder, study and problems)."""
     template = environment().get_template("entry.html.j2")
     return template.render(
         stage_titles=STAGE_TITLES,
         wall_motion_words=WALL_MOTION_WORDS,
         perfusion_words=PERFUSION_WORDS,
+        **editor_context(),
         **context,
     )
 
