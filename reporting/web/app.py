@@ -34,12 +34,12 @@ from reporting import __version__
 from reporting.analysis import analyze, resolve_territory_map
 from reporting.errors import InputError, InputErrors, ReportingError
 from reporting.load import study_from_data
-from reporting.model import STAGE_ORDER, Protocol, SafeId, Study
+from reporting.model import SafeId, Study
 from reporting.phrases import PhraseLibrary, built_in_library
 from reporting.results import Analysis
 from reporting.segments import BUILT_IN_MAPS
 from reporting.settings import Settings, default_settings
-from reporting.web import form, guard, pages, shapes
+from reporting.web import guard, pages
 from reporting.web.analysing import analysis_response, analysis_result
 from reporting.web.api import (
     DRAFT_BODY,
@@ -353,14 +353,9 @@ def create_app(
                 errors = exc.problems if isinstance(exc, InputErrors) else (exc,)
                 problems.extend(problem_of(p, STUDY_SOURCE) for p in errors)
         html = pages.entry_page(
-            geometry=shapes.page_geometry(),
             initial=initial.model_dump(mode="json") if initial else None,
             problems=[p.model_dump() for p in problems],
             folder=listing(),
-            protocols=[p.value for p in Protocol],
-            stages=[s.value for s in STAGE_ORDER],
-            form=form.page_form(),
-            territory_maps=list(BUILT_IN_MAPS),
             cautions=list(CAUTIONS),
             version=__version__,
             studies_dir=str(folder.studies),

@@ -32,11 +32,49 @@ def environment() -> jinja2.Environment:
 
 
 def entry_page(**context: Any) -> str:
-    """The score-entry page."""
+    """The score-entry page of the folder mode (``context``: its folder, study and problems)."""
     template = environment().get_template("entry.html.j2")
     return template.render(
         stage_titles=STAGE_TITLES,
         wall_motion_words=WALL_MOTION_WORDS,
         perfusion_words=PERFUSION_WORDS,
+        **editor_context(),
         **context,
+    )
+
+
+def editor_context() -> dict[str, Any]:
+    """What the shared editor part (``_editor.html.j2``) needs, on either page."""
+    from reporting.model import STAGE_ORDER, Protocol
+    from reporting.segments import BUILT_IN_MAPS
+    from reporting.web import form, shapes
+
+    return {
+        "geometry": shapes.page_geometry(),
+        "protocols": [p.value for p in Protocol],
+        "stages": [s.value for s in STAGE_ORDER],
+        "form": form.page_form(),
+        "territory_maps": list(BUILT_IN_MAPS),
+    }
+
+
+def lab_page() -> str:
+    """The lab page of ``segreport serve --db``: sign-in, worklist, editor, signing, users.
+
+    Nothing about a person or a study is in the page itself; the page script asks the API for
+    everything after sign-in, so the page is the same for everyone and may be served publicly.
+    """
+    from reporting import __version__
+    from reporting.store.signing import DEFAULT_MEANING
+    from reporting.wording import CAUTIONS
+
+    template = environment().get_template("lab.html.j2")
+    return template.render(
+        stage_titles=STAGE_TITLES,
+        wall_motion_words=WALL_MOTION_WORDS,
+        perfusion_words=PERFUSION_WORDS,
+        cautions=list(CAUTIONS),
+        version=__version__,
+        signature_meaning=DEFAULT_MEANING,
+        **editor_context(),
     )

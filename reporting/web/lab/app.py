@@ -137,8 +137,7 @@ def create_lab_app(
 
     @app.get("/", response_class=HTMLResponse, include_in_schema=False)
     async def lab_page() -> HTMLResponse:
-        template = pages.environment().get_template("lab.html.j2")
-        return HTMLResponse(template.render(version=__version__, cautions=list(CAUTIONS)))
+        return HTMLResponse(pages.lab_page())
 
     use_study_openapi(app)
     return app
