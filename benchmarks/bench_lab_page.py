@@ -1,0 +1,254 @@
+"""The lab page's server under open-loop load: prints figures, asserts nothing (not a test).
+
+    python benchmarks/bench_lab_page.py                        # SQLite store, 2 runs of 60 s
+    python benchmarks/bench_lab_page.py --seconds 20 --runs 1  # quicker
+    python benchmarks/bench_lab_page.py --db postgresql://bench@/segreport_bench   # a PostgreSQL store
+    python benchmarks/bench_lab_page.py --profile server.txt   # also sample the server with py-spy
+
+Target (issue 15): 20 signed-in readers send live analyses (``POST /api/analyze`` with a study
+body, as the page does on every score change) and open studies (``GET /api/studies/{id}``, a
+random one of 100,000 stored) as Poisson arrivals at 40 requests/s in all; the median and p95
+latency of both routes, p95 ≤ 100 ms for both on this machine.
+
+Three processes: this one builds (or reuses) the store and starts ``python -m reporting serve --db
+URL`` as the second; the load comes from a third (benchmarks/lab_load.py: asyncio + httpx, one
+client and session cookie per user, requests sent on schedule whatever the answers, latency from
+the scheduled time so queueing counts). How the 100,000 studies were made is printed (see
+benchmarks/lab_store.py: a few real imports, the rest bulk-inserted valid versions); the SQLite
+store is cached between runs, keyed by the code that shapes its rows.
+
+PostgreSQL: give an empty database, e.g. as the postgres user
+``createuser bench && createdb -O bench segreport_bench``, then ``--db postgresql://bench@/segreport_bench``
+(a socket connection; add ``:password@host`` as needed). The first run builds the store there
+(several minutes), later runs reuse it; drop and re-create the database after a code change.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import random
+import shutil
+import socket
+import subprocess
+import sys
+import tempfile
+import time
+import urllib.error
+import urllib.request
+from pathlib import Path
+from typing import Any
+
+sys.path.insert(0, str(Path(__file__).parent))
+import lab_store
+from lab_load import ANALYZE, OPEN
+
+ROOT = Path(__file__).resolve().parent.parent
+TARGET_P95_MS = 100.0
+BODIES = 200
+
+
+def free_port() -> int:
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        port: int = sock.getsockname()[1]
+        return port
+
+
+def plan(url: str, built: lab_store.Built, folder: Path) -> Path:
+    """The load's plan file: users, password, every study id, and bodies to analyse.
+
+    The bodies are studies as GET /api/studies/{id} gives them to the page (the stored study
+    JSON), taken from the latest studies of patients with earlier signed ones, so the live
+    analysis also meets the comparison with the prior study.
+    """
+    from sqlalchemy import func, select
+
+    from reporting.store import content, service
+    from reporting.store.schema import StudyRow, VersionRow
+
+    db = service.open_store(url)
+    with db.read() as session:
+        ids = list(session.scalars(select(StudyRow.study_id)))
+        several = (
+            select(StudyRow.patient_id)
+            .group_by(StudyRow.patient_id)
+            .having(func.count() > 1)
+            .limit(BODIES * 5)
+            .subquery()
+        )
+        rows = session.execute(
+            select(StudyRow.patient_id, VersionRow.study_date, VersionRow.content)
+            .join(VersionRow, VersionRow.study_pk == StudyRow.id)
+            .where(StudyRow.patient_id.in_(select(several.c.patient_id)))
+        ).all()
+    db.dispose()
+    latest: dict[str, tuple[str, bytes]] = {}
+    for patient, date, data in rows:
+        if patient not in latest or date > latest[patient][0]:
+            latest[patient] = (date, data)
+    bodies = []
+    for _, data in sorted(latest.values())[-BODIES:]:
+        study = json.loads(content.parse(bytes(data)).study.model_dump_json(exclude_none=True))
+        bodies.append(study)
+    path = folder / "plan.json"
+    path.write_text(
+        json.dumps(
+            {
+                "users": list(built.readers),
+                "password": lab_store.PASSWORD,
+                "study_ids": ids,
+                "bodies": bodies,
+            }
+        )
+    )
+    print(f"plan: {len(ids)} study ids to open, {len(bodies)} study bodies to analyse")
+    return path
+
+
+def start_server(url: str, port: int, log: Path) -> subprocess.Popen[bytes]:
+    command = [sys.executable, "-m", "reporting", "serve", "--db", url, "--port", str(port)]
+    server = subprocess.Popen(
+        command, cwd=ROOT, stdout=log.open("wb"), stderr=subprocess.STDOUT, start_new_session=True
+    )
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline:
+        if server.poll() is not None:
+            raise SystemExit(f"the server stopped:\n{log.read_text()[-3000:]}")
+        try:
+            urllib.request.urlopen(f"http://127.0.0.1:{port}/api/session", timeout=2)
+        except urllib.error.HTTPError:
+            return server  # it answers (401 without a session)
+        except OSError:
+            time.sleep(0.3)
+        else:
+            return server
+    server.terminate()
+    raise SystemExit(f"the server did not answer within 60 s:\n{log.read_text()[-3000:]}")
+
+
+def profile(pid: int, seconds: float, out: Path) -> subprocess.Popen[bytes] | None:
+    """Sample the server with py-spy (collapsed stacks in ``out``), when py-spy is installed."""
+    spy = shutil.which("py-spy")
+    if spy is None:
+        print("py-spy is not installed: no profile (python3 -m pip install py-spy)")
+        return None
+    command = [spy, "record", "--pid", str(pid), "--duration", str(int(seconds)), "--rate", "200"]
+    command += ["--format", "raw", "--output", str(out), "--nonblocking"]
+    return subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+
+
+def top_frames(raw: Path, count: int = 25) -> list[tuple[float, str]]:
+    """Share of samples per function with the function on the stack (inclusive), largest first."""
+    inclusive: dict[str, int] = {}
+    total = 0
+    for line in raw.read_text().splitlines():
+        stack, _, n = line.rpartition(" ")
+        samples = int(n)
+        total += samples
+        for frame in set(stack.split(";")):
+            inclusive[frame] = inclusive.get(frame, 0) + samples
+    ranked = sorted(inclusive.items(), key=lambda kv: -kv[1])[:count]
+    return [(n / max(total, 1), frame) for frame, n in ranked]
+
+
+def load(port: int, plan_path: Path, args: argparse.Namespace, run: int) -> dict[str, Any]:
+    command = [sys.executable, str(Path(__file__).parent / "lab_load.py")]
+    command += ["--url", f"http://127.0.0.1:{port}", "--plan", str(plan_path)]
+    command += ["--rate", str(args.rate), "--seconds", str(args.seconds)]
+    command += ["--warmup", str(args.warmup), "--open-share", str(args.open_share)]
+    command += ["--seed", str(args.seed + run)]
+    done = subprocess.run(command, capture_output=True, text=True, check=False)
+    if done.returncode != 0:
+        raise SystemExit(f"the load process failed:\n{done.stderr[-3000:]}")
+    result: dict[str, Any] = json.loads(done.stdout)
+    return result
+
+
+def show(result: dict[str, Any], loads: tuple[float, float]) -> bool:
+    met = True
+    for route in (ANALYZE, OPEN):
+        r = result["routes"][route]
+        ok = r["p95_ms"] <= TARGET_P95_MS and not r["errors"]
+        met &= ok
+        errors = ", ".join(f"{k}: {v}" for k, v in r["errors"].items()) or "none"
+        print(
+            f"  {route:24} {r['achieved_per_s']:5.1f}/s  median {r['median_ms']:6.1f} ms  "
+            f"p95 {r['p95_ms']:6.1f} ms  p99 {r['p99_ms']:6.1f} ms  max {r['max_ms']:6.0f} ms  "
+            f"errors {errors}  {'meets' if ok else 'MISSES'} p95 ≤ {TARGET_P95_MS:.0f} ms"
+        )
+    lag = max(r["send_lag_p95_ms"] for r in result["routes"].values())
+    total = sum(r["requests"] for r in result["routes"].values()) / result["seconds"]
+    print(
+        f"  achieved {total:.1f} requests/s in all (asked {result['rate_per_s']:.0f}); generator send lag "
+        f"p95 {lag:.1f} ms; load average {loads[0]:.2f} before, {loads[1]:.2f} after (1 min, "
+        f"{os.cpu_count()} cores)"
+    )
+    return met
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--db", help="a store URL (PostgreSQL); default: the cached SQLite store")
+    parser.add_argument("--studies", type=int, default=100_000)
+    parser.add_argument("--users", type=int, default=20)
+    parser.add_argument("--rate", type=float, default=40.0, help="requests per second in all")
+    parser.add_argument("--open-share", type=float, default=0.2, help="share of study opens")
+    parser.add_argument("--seconds", type=float, default=60.0, help="measured seconds per run")
+    parser.add_argument("--warmup", type=float, default=10.0, help="seconds of load before")
+    parser.add_argument("--runs", type=int, default=2)
+    parser.add_argument("--seed", type=int, default=15)
+    parser.add_argument("--rebuild", action="store_true", help="build the store again")
+    parser.add_argument("--profile", type=Path, help="sample the server (py-spy) into this file")
+    args = parser.parse_args()
+    random.seed(args.seed)
+
+    t0 = time.perf_counter()
+    built = lab_store.ensure(args.db, args.studies, args.users, rebuild=args.rebuild)
+    if built.build_seconds is None:
+        print(f"store: reused {built.url} ({time.perf_counter() - t0:.1f} s)")
+    else:
+        print(f"store: built {built.url} in {built.build_seconds:.0f} s")
+    print(f"  {built.studies} studies: {built.how}")
+    with tempfile.TemporaryDirectory(prefix="bench-lab-") as folder:
+        plan_path = plan(built.url, built, Path(folder))
+        port = free_port()
+        log = Path(folder) / "server.log"
+        server = start_server(built.url, port, log)
+        met = []
+        try:
+            print(
+                f"server: python -m reporting serve --db … --port {port} (pid {server.pid}); "
+                f"{args.users} readers, Poisson {args.rate:g}/s in all, {args.open_share:.0%} opens, "
+                f"{args.warmup:g} s warm-up + {args.seconds:g} s measured per run"
+            )
+            for run in range(args.runs):
+                spy = None
+                if args.profile is not None and run == args.runs - 1:
+                    spy = profile(server.pid, args.warmup + args.seconds + 5, args.profile)
+                before = os.getloadavg()[0]
+                result = load(port, plan_path, args, run)
+                print(f"run {run + 1}:")
+                met.append(show(result, (before, os.getloadavg()[0])))
+                if spy is not None:
+                    spy.wait()
+                    print(f"profile of the server (inclusive share of samples) in {args.profile}:")
+                    for share, frame in top_frames(args.profile):
+                        print(f"  {share:6.1%}  {frame[:150]}")
+        finally:
+            server.terminate()
+            try:
+                server.wait(timeout=10)
+            except subprocess.TimeoutExpired:
+                server.kill()
+            errors = [line for line in log.read_text().splitlines() if "Traceback" in line]
+            if errors:
+                print(f"server log had {len(errors)} tracebacks:\n{log.read_text()[-3000:]}")
+    print(
+        f"target p95 ≤ {TARGET_P95_MS:.0f} ms on both routes: met in {sum(met)} of {len(met)} runs"
+    )
+
+
+if __name__ == "__main__":
+    main()
