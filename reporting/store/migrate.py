@@ -18,7 +18,7 @@ from reporting.store.errors import StoreError
 
 log = logging.getLogger(__name__)
 
-HEAD = "0002"
+HEAD = "0004_worklist"
 """The newest migration (a test checks it against the migration scripts)."""
 MIGRATIONS = Path(__file__).parent / "migrations"
 

@@ -3,8 +3,11 @@
 ``studies`` holds a study's identity (its id and patient, fixed at first import); ``versions`` every
 version of it with the canonical study bytes and their SHA-256; ``signatures`` the signed record
 JSON and PDF bytes with their SHA-256; ``events`` the append-only audit trail, each row holding the
-canonical JSON bytes it was hashed from and the hash of its predecessor. ``users`` is the only
-table whose rows change (passwords, lockout), and every change to it is an audited event.
+canonical JSON bytes it was hashed from and the hash of its predecessor. ``users`` rows
+change (passwords, lockout), and every change to it is an audited event.
+``worklist`` (one row per study, derived from its latest version and signature, rewritten with
+every append) and ``assignments`` (the reader a study is assigned to) change too; neither holds
+anything the history does not (an assignment is an audit event as well).
 
 Versions, signatures and events (and studies) are append-only in the database as well: the
 migrations install triggers refusing UPDATE and DELETE (and TRUNCATE on PostgreSQL), see
@@ -71,9 +74,39 @@ class VersionRow(Base):
     content: Mapped[bytes] = mapped_column(LargeBinary)
     content_sha256: Mapped[str] = mapped_column(String(HEX_SHA256))
     study_date: Mapped[str | None] = mapped_column(String(10))
+    awaiting_reader: Mapped[bool] = mapped_column(Boolean, default=False)
 
 
 Index("ix_versions_study_date", VersionRow.study_date)
+
+
+class WorklistRow(Base):
+    """One row per study: its latest version's worklist status (kept by every append; derived)."""
+
+    __tablename__ = "worklist"
+
+    study_pk: Mapped[int] = mapped_column(ForeignKey("studies.id"), primary_key=True)
+    status: Mapped[str] = mapped_column(String(20))  # WorklistStatus
+    version: Mapped[int] = mapped_column(Integer)
+    author: Mapped[str] = mapped_column(String(64))
+    updated_at: Mapped[str] = mapped_column(String(40))
+    study_date: Mapped[str | None] = mapped_column(String(10))
+    awaiting_reader: Mapped[bool] = mapped_column(Boolean, default=False)
+
+
+Index("ix_worklist_status_date", WorklistRow.status, WorklistRow.study_date)
+Index("ix_worklist_date", WorklistRow.study_date)
+
+
+class AssignmentRow(Base):
+    """The reader a study is assigned to (changes; every change is an audit event)."""
+
+    __tablename__ = "assignments"
+
+    study_pk: Mapped[int] = mapped_column(ForeignKey("studies.id"), primary_key=True)
+    reader: Mapped[str] = mapped_column(String(64), index=True)
+    assigned_by: Mapped[str] = mapped_column(String(64))
+    assigned_at: Mapped[str] = mapped_column(String(40))
 
 
 class SignatureRow(Base):

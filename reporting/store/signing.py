@@ -20,8 +20,9 @@ from sqlalchemy.orm import Session
 
 from reporting.errors import InputError
 from reporting.impression import impression_is_stale
+from reporting.model import Study
 from reporting.render.pdf.signature import Addendum, SignatureBlock
-from reporting.store import audit, content, versions
+from reporting.store import audit, content, versions, worklist
 from reporting.store.canonical import Origin, now, sha256_hex
 from reporting.store.engine import Database
 from reporting.store.errors import AuthError, ConflictError, StoreError
@@ -122,6 +123,7 @@ def _store_signature(
     )
     session.add(sig)
     session.flush()
+    worklist.record(session, study, row, sig)
     audit.append(
         session,
         action="sign",
@@ -191,19 +193,21 @@ def amend(
     who: Person,
     *,
     path: Path | None = None,
+    edited: Study | None = None,
     addendum: str | None = None,
     reason: str | None = None,
     correction: bool = False,
     meaning: str | None = None,
     origin: Origin,
 ) -> Signed:
-    """Make and sign a new version superseding the latest signed one (a new file, or an addendum)."""
+    """Make and sign a new version superseding the latest signed one: a changed study (a file at
+    ``path``, or the ``edited`` study itself as the page sends it) or an addendum."""
     _signer(who)
     reason = _text(reason, "--reason")
     addendum = _text(addendum, "--addendum")
-    if (path is None) == (addendum is None):
+    if [path, edited, addendum].count(None) != 2:
         raise InputError("amend", "give either a study FILE or --addendum TEXT")
-    if path is not None and reason is None:
+    if addendum is None and reason is None:
         raise InputError("--reason", "an amendment needs a reason (--reason TEXT)")
     with db.read() as session:
         study, base = versions.get_version(session, study_id, None)
@@ -222,12 +226,18 @@ def amend(
         )
         status, reason = VersionStatus.APPENDED, reason or "addendum"
     else:
-        assert path is not None
-        stored = content.from_file(path)
-        _same_study(stored, old, path)
+        if path is not None:
+            stored, source = content.from_file(path), str(path)
+        else:
+            assert edited is not None
+            source = "study"
+            named = {edited.perfusion_curves, edited.territory_map}
+            stored = content.build(edited, {k: v for k, v in old.files.items() if k in named})
+            content.analyse(stored, final=False)  # it must analyse, as a file must
+        _same_study(stored, old, source)
         if stored.study == old.study and stored.files == old.files:
             raise InputError(
-                str(path), f"unchanged from the signed version {base_number}; nothing to amend"
+                source, f"unchanged from the signed version {base_number}; nothing to amend"
             )
         stored = content.build(stored.study, stored.files, old.addenda)
         status = VersionStatus.CORRECTED if correction else VersionStatus.AMENDED
@@ -271,7 +281,7 @@ def amend(
     return signed
 
 
-def _same_study(new: content.Content, old: content.Content, path: Path) -> None:
+def _same_study(new: content.Content, old: content.Content, path: Path | str) -> None:
     if new.study_id != old.study_id:
         raise InputError(f"{path}: study.id", f"is {new.study_id}, not {old.study_id}")
     if new.patient_id != old.patient_id:

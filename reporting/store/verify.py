@@ -27,7 +27,7 @@ from reporting.store.errors import IntegrityFailure, StoreError
 from reporting.store.schema import EventRow, SignatureRow, StudyRow, VersionRow
 from reporting.store.versions import signature_facts, version_facts
 
-VERSION_ACTIONS = ("import", "amend", "addendum")
+VERSION_ACTIONS = ("import", "save", "amend", "addendum")
 MIN_HEAD_PREFIX = 12
 
 

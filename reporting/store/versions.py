@@ -20,7 +20,7 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from reporting.errors import InputError, InputErrors, ReportingError, problems_of
-from reporting.store import audit, content
+from reporting.store import audit, content, worklist
 from reporting.store.canonical import Origin, now
 from reporting.store.engine import Database
 from reporting.store.errors import ConflictError, StoreError
@@ -42,8 +42,11 @@ class Imported:
 
 
 def version_facts(row: VersionRow, study_id: str) -> dict[str, object]:
-    """The facts of a version its audit event carries (and ``store verify`` compares)."""
-    return {
+    """The facts of a version its audit event carries (and ``store verify`` compares).
+
+    ``awaiting_reader`` is named only when true, so events written before it existed still match.
+    """
+    facts: dict[str, object] = {
         "study_id": study_id,
         "version": row.version,
         "parent_version": row.parent_version,
@@ -54,6 +57,9 @@ def version_facts(row: VersionRow, study_id: str) -> dict[str, object]:
         "content_sha256": row.content_sha256,
         "study_date": row.study_date,
     }
+    if row.awaiting_reader:
+        facts["awaiting_reader"] = True
+    return facts
 
 
 def signature_facts(sig: SignatureRow, row: VersionRow) -> dict[str, object]:
@@ -121,8 +127,10 @@ def add_version(
     reason: str | None,
     origin: Origin,
     action: str,
+    awaiting_reader: bool = False,
 ) -> VersionRow:
-    """Insert one version and its audit event (inside a writing transaction)."""
+    """Insert one version and its audit event (inside a writing transaction), and rewrite the
+    study's worklist row (:func:`reporting.store.worklist.record`)."""
     row = VersionRow(
         study_pk=study.id,
         version=number,
@@ -134,9 +142,11 @@ def add_version(
         content=stored.data,
         content_sha256=stored.sha256,
         study_date=stored.study.study.date.isoformat(),
+        awaiting_reader=awaiting_reader,
     )
     session.add(row)
     session.flush()
+    worklist.record(session, study, row, None)
     audit.append(
         session,
         action=action,
@@ -205,6 +215,7 @@ def _import_one(
             reason="imported",
             origin=origin,
             action="import",
+            awaiting_reader=Role.READER not in who.roles,
         )
         return Imported(path, stored.study_id, 1, True)
     if study.patient_id != stored.patient_id:
@@ -233,5 +244,6 @@ def _import_one(
         reason="changed file imported",
         origin=origin,
         action="import",
+        awaiting_reader=Role.READER not in who.roles,
     )
     return Imported(path, stored.study_id, last.version + 1, True)
