@@ -135,13 +135,30 @@ def _fill(template: bytes, study_id: str, patient_id: str, date: str) -> bytes:
     )
 
 
+def _listed(row: dict[str, Any], sig: dict[str, Any] | None) -> dict[str, Any]:
+    """The worklist row the store keeps for a study whose latest version is ``row``."""
+    from reporting.store import worklist  # type: ignore[attr-defined, unused-ignore]
+
+    awaiting = bool(row.get("awaiting_reader"))
+    status = worklist.status_of(row["status"], signed=sig is not None, awaiting_reader=awaiting)
+    return {
+        "study_pk": row["study_pk"],
+        "status": status.value,
+        "version": row["version"],
+        "author": row["author"],
+        "updated_at": sig["signed_at"] if sig is not None else row["created_at"],
+        "study_date": row["study_date"],
+        "awaiting_reader": awaiting and sig is None,
+    }
+
+
 def build(url: str, count: int, readers: int, *, seed: int = 15, log: Any = print) -> float:
     """Create the store at ``url`` (which must not hold one); return the seconds it took."""
     from sqlalchemy import func, insert, select
 
     from reporting.store import audit, service, signing, users, versions
     from reporting.store.canonical import Origin, canonical_json, host, sha256_hex
-    from reporting.store.schema import EventRow, SignatureRow, StudyRow, VersionRow
+    from reporting.store.schema import Base, EventRow, SignatureRow, StudyRow, VersionRow
 
     t0 = time.perf_counter()
     db = service.init_store(
@@ -188,6 +205,7 @@ def build(url: str, count: int, readers: int, *, seed: int = 15, log: Any = prin
         version_columns = set(VersionRow.__table__.c.keys())
         unsigned_from = int(len(plan) * (1 - UNSIGNED_SHARE))
         rng = random.Random(seed + 1)
+        worklist_table = Base.metadata.tables.get("worklist")  # from #15 on: kept by every append
         the_host = host()
 
         def event(
@@ -227,7 +245,7 @@ def build(url: str, count: int, readers: int, *, seed: int = 15, log: Any = prin
 
         study_pk, version_pk = next_pk
         for start in range(0, len(plan), CHUNK):
-            studies, rows, sigs, events = [], [], [], []
+            studies, rows, sigs, events, lists = [], [], [], [], []
             for k, (sid, pid, date, name) in enumerate(plan[start : start + CHUNK], start=start):
                 study_pk += 1
                 version_pk += 1
@@ -266,6 +284,8 @@ def build(url: str, count: int, readers: int, *, seed: int = 15, log: Any = prin
                     )
                 )  # type: ignore[arg-type]
                 if k >= unsigned_from:
+                    if worklist_table is not None:
+                        lists.append(_listed(row, None))
                     continue
                 record_bytes = _fill(record, sid, pid, date)
                 sig = {
@@ -283,12 +303,16 @@ def build(url: str, count: int, readers: int, *, seed: int = 15, log: Any = prin
                 sigs.append(sig)
                 facts = versions.signature_facts(SimpleNamespace(**sig), SimpleNamespace(**row))  # type: ignore[arg-type]
                 events.append(event("sign", reader, sig["signed_at"], sid, facts))
+                if worklist_table is not None:
+                    lists.append(_listed(row, sig))
             with db.write() as session:
                 session.execute(insert(StudyRow), studies)
                 session.execute(insert(VersionRow), rows)
                 if sigs:
                     session.execute(insert(SignatureRow), sigs)
                 session.execute(insert(EventRow), events)
+                if worklist_table is not None:
+                    session.execute(insert(worklist_table), lists)
         if db.dialect == "sqlite":
             from sqlalchemy import text
 
