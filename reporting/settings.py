@@ -196,6 +196,36 @@ class Settings(BaseModel):
     kinetics_territory_aggregation: TerritoryAggregation = Field(
         description="How segment kinetics are combined into a territory reserve."
     )
+    session_idle_minutes: int = Field(
+        default=15,
+        ge=1,
+        le=24 * 60,
+        description="Lab mode (`serve --db`): minutes without a request after which a signed-in "
+        "session ends and the user signs in again (automatic logoff).",
+    )
+    lockout_failures: int = Field(
+        default=5,
+        ge=1,
+        description="Wrong passwords in a row (sign-in and signing) that lock an account.",
+    )
+    lockout_minutes: int | None = Field(
+        default=15,
+        ge=1,
+        description="Minutes an account stays locked after too many wrong passwords (an admin may "
+        "unlock it sooner); null: locked until an admin unlocks it.",
+    )
+    sign_in_throttle_failures: int = Field(
+        default=20,
+        ge=1,
+        description="Lab mode: failed sign-ins from one network address within the throttle window "
+        "after which that address waits (429) before trying again.",
+    )
+    sign_in_throttle_minutes: int = Field(
+        default=10,
+        ge=1,
+        description="Lab mode: the window (minutes) over which failed sign-ins per address are "
+        "counted, and the longest wait it imposes.",
+    )
 
     @model_validator(mode="after")
     def _kinetics_beta_bounds(self) -> Settings:

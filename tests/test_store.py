@@ -8,6 +8,7 @@ the statuses and the signature manifestation checked here.
 from __future__ import annotations
 
 import copy
+import datetime as dt
 import io
 from pathlib import Path
 
@@ -15,6 +16,7 @@ import pypdf
 import pytest
 from store_support import PASSWORD, cheap_argon2, pg_socket, store_url, study_data, write_study
 
+from reporting.settings import default_settings
 from reporting.store import history, service, signing, users, versions
 from reporting.store.canonical import Origin
 from reporting.store.engine import Database
@@ -126,7 +128,8 @@ def test_bad_credentials_are_refused_and_audited(
 
 
 def test_lockout_after_repeated_wrong_passwords_until_unlocked(db: Database) -> None:
-    for _ in range(users.MAX_FAILED_ATTEMPTS):
+    # 21 CFR 11.300(d); the limit is the lab setting lockout_failures (NIST SP 800-63B 5.2.2)
+    for _ in range(default_settings().lockout_failures):
         with pytest.raises(AuthError):
             users.authenticate(db, "alice", "wrong wrong wrong", origin=CLI)
     with pytest.raises(AuthError, match="locked"):  # bad: even the right password, once locked
@@ -142,6 +145,32 @@ def test_lockout_after_repeated_wrong_passwords_until_unlocked(db: Database) -> 
     )
     users.unlock(db, "alice", actor="root2", origin=CLI)
     assert login(db).name == "alice"
+
+
+def test_lockout_ends_by_itself_after_lockout_minutes(db: Database) -> None:
+    lab = default_settings().model_copy(update={"lockout_failures": 2, "lockout_minutes": 15})
+    for _ in range(2):
+        with pytest.raises(AuthError):
+            users.authenticate(db, "alice", "wrong wrong wrong", origin=CLI, settings=lab)
+    with pytest.raises(AuthError, match="locked; try again later"):
+        users.authenticate(db, "alice", PASSWORD, origin=CLI, settings=lab)
+    with db.write() as session:  # the lock's time has run out (no waiting 15 minutes)
+        user = users.find(session, "alice")
+        assert user is not None and user.locked_until is not None
+        past = dt.datetime.fromisoformat(user.locked_until) - dt.timedelta(minutes=16)
+        user.locked_until = past.isoformat()
+    assert users.authenticate(db, "alice", PASSWORD, origin=CLI, settings=lab).name == "alice"
+    with db.read() as session:
+        user = users.find(session, "alice")
+        assert user is not None and not user.locked and user.failed_attempts == 0
+
+
+def test_lockout_without_minutes_waits_for_an_admin(db: Database) -> None:
+    lab = default_settings().model_copy(update={"lockout_failures": 1, "lockout_minutes": None})
+    with pytest.raises(AuthError):
+        users.authenticate(db, "alice", "wrong wrong wrong", origin=CLI, settings=lab)
+    with pytest.raises(AuthError, match="an admin must unlock it"):
+        users.authenticate(db, "alice", PASSWORD, origin=CLI, settings=lab)
 
 
 def test_reset_password_cannot_sign_until_changed(db: Database, tmp_path: Path) -> None:

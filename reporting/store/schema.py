@@ -3,8 +3,10 @@
 ``studies`` holds a study's identity (its id and patient, fixed at first import); ``versions`` every
 version of it with the canonical study bytes and their SHA-256; ``signatures`` the signed record
 JSON and PDF bytes with their SHA-256; ``events`` the append-only audit trail, each row holding the
-canonical JSON bytes it was hashed from and the hash of its predecessor. ``users`` rows
-change (passwords, lockout), and every change to it is an audited event.
+canonical JSON bytes it was hashed from and the hash of its predecessor. ``users`` (passwords,
+lockout) is a table whose rows change, and every change to it is an audited event; so are
+``web_sessions`` (signed-in browser sessions, :mod:`reporting.store.sessions`) and ``store_keys``
+(random keys the store keeps for itself, e.g. to hash typed user names in the audit trail).
 ``worklist`` (one row per study, derived from its latest version and signature, rewritten with
 every append) and ``assignments`` (the reader a study is assigned to) change too; neither holds
 anything the history does not (an assignment is an audit event as well).
@@ -48,6 +50,8 @@ class User(Base):
     failed_attempts: Mapped[int] = mapped_column(Integer, default=0)
     locked: Mapped[bool] = mapped_column(Boolean, default=False)
     created_at: Mapped[str] = mapped_column(String(40))
+    # UTC ISO time the lock ends; NULL while locked: until an admin unlocks (migration 0003)
+    locked_until: Mapped[str | None] = mapped_column(String(40), default=None)
 
 
 class StudyRow(Base):
@@ -139,3 +143,28 @@ class EventRow(Base):
     body: Mapped[bytes] = mapped_column(LargeBinary)  # the canonical JSON that was hashed
     prev_hash: Mapped[str] = mapped_column(String(HEX_SHA256))
     hash: Mapped[str] = mapped_column(String(HEX_SHA256), unique=True)
+
+
+class WebSessionRow(Base):
+    """A signed-in browser session (lab mode); the cookie's token is never stored, only its hash."""
+
+    __tablename__ = "web_sessions"
+
+    token_sha256: Mapped[str] = mapped_column(String(HEX_SHA256), primary_key=True)
+    user_name: Mapped[str] = mapped_column(String(64), index=True)
+    csrf_sha256: Mapped[str] = mapped_column(String(HEX_SHA256))
+    created_at: Mapped[str] = mapped_column(String(40))  # UTC ISO text (sortable)
+    last_seen_at: Mapped[str] = mapped_column(String(40))
+    address: Mapped[str] = mapped_column(String(64))
+    ended_at: Mapped[str | None] = mapped_column(String(40), default=None)
+    end_reason: Mapped[str | None] = mapped_column(String(20), default=None)
+
+
+class StoreKey(Base):
+    """A random secret the store made for itself (hex), by purpose."""
+
+    __tablename__ = "store_keys"
+
+    name: Mapped[str] = mapped_column(String(40), primary_key=True)
+    key_hex: Mapped[str] = mapped_column(String(128))
+    created_at: Mapped[str] = mapped_column(String(40))

@@ -8,6 +8,6 @@ jinja2 load only when this package is imported, so ``segreport --help`` stays qu
 from __future__ import annotations
 
 from reporting.web.app import DEFAULT_PORT, HOST, create_app
-from reporting.web.server import serve
+from reporting.web.server import serve, serve_store
 
-__all__ = ["DEFAULT_PORT", "HOST", "create_app", "serve"]
+__all__ = ["DEFAULT_PORT", "HOST", "create_app", "serve", "serve_store"]

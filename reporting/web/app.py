@@ -27,8 +27,6 @@ from pathlib import Path
 from typing import Any
 
 from fastapi import FastAPI, Request
-from fastapi.exceptions import RequestValidationError
-from fastapi.openapi.utils import get_openapi
 from fastapi.responses import FileResponse, HTMLResponse, JSONResponse, Response
 from fastapi.staticfiles import StaticFiles
 
@@ -56,7 +54,6 @@ from reporting.web.api import (
     FolderListing,
     OpenedStudy,
     Problem,
-    ProblemList,
     ReportFiles,
     Saved,
     StudyListing,
@@ -64,6 +61,7 @@ from reporting.web.api import (
     study_body,
 )
 from reporting.web.bodies import parse_body
+from reporting.web.handlers import add_error_handlers, refused, use_study_openapi
 from reporting.web.reader import add_reader_routes
 from reporting.web.store import DraftOwned, Folder, Stored, checked_id
 from reporting.web.versions import PreconditionError
@@ -75,11 +73,6 @@ HOST = "127.0.0.1"
 DEFAULT_PORT = 8765
 STUDY_SOURCE = "study"
 CLIENT_HEADER = "x-client-id"
-
-
-def _refused(status: int, detail: str, problems: list[Problem]) -> JSONResponse:
-    body = ProblemList(detail=detail, problems=problems)
-    return JSONResponse(body.model_dump(mode="json"), status_code=status)
 
 
 async def _json_body(request: Request, source: str) -> Any:
@@ -152,59 +145,11 @@ def create_app(
             )
         return Problem(location="", path="", problem=shown(str(problem)))
 
-    @app.exception_handler(InputErrors)
-    async def _input_errors(request: Request, exc: InputErrors) -> JSONResponse:
-        problems = [located(p) for p in exc.problems]
-        count = len(problems)
-        return _refused(422, f"{count} problem{'s' if count != 1 else ''} to fix", problems)
-
-    @app.exception_handler(InputError)
-    async def _input_error(request: Request, exc: InputError) -> JSONResponse:
-        return _refused(422, "1 problem to fix", [located(exc)])
+    add_error_handlers(app, located=located, shown=shown)
 
     @app.exception_handler(DraftOwned)
     async def _draft_owned(request: Request, exc: DraftOwned) -> JSONResponse:
-        return _refused(409, shown(str(exc)), [])
-
-    @app.exception_handler(ReportingError)
-    async def _reporting_error(request: Request, exc: ReportingError) -> JSONResponse:
-        return _refused(422, shown(str(exc)), [located(exc)])
-
-    @app.exception_handler(RequestValidationError)
-    async def _bad_request(request: Request, exc: RequestValidationError) -> JSONResponse:
-        problems = []
-        for error in exc.errors():
-            where, *rest = [str(p) for p in error["loc"]] or ["request"]
-            path = ".".join(rest)
-            problems.append(
-                Problem(
-                    location=f"{where}: {path}" if path else where, path=path, problem=error["msg"]
-                )
-            )
-        return _refused(422, "the request is not valid", problems)
-
-    @app.exception_handler(FileNotFoundError)
-    async def _missing(request: Request, exc: FileNotFoundError) -> JSONResponse:
-        return _refused(404, shown(f"no such file: {exc.args[0] if exc.args else ''}"), [])
-
-    @app.exception_handler(OSError)
-    async def _os_error(request: Request, exc: OSError) -> JSONResponse:
-        # a folder or file the server cannot read or write: say which, relative, never a traceback
-        name = shown(str(exc.filename)) if exc.filename else "studies folder"
-        status = 403 if isinstance(exc, PermissionError) else 409
-        problem = exc.strerror or type(exc).__name__
-        return _refused(
-            status, f"{name}: {problem}", [Problem(location=name, path="", problem=problem)]
-        )
-
-    @app.exception_handler(RecursionError)
-    async def _too_deep(request: Request, exc: RecursionError) -> JSONResponse:
-        return _refused(422, "the request is nested too deeply", [])
-
-    @app.exception_handler(Exception)
-    async def _unexpected(request: Request, exc: Exception) -> JSONResponse:
-        log.exception("unexpected error answering %s %s", request.method, request.url.path)
-        return _refused(500, "internal error; the server's log has the details", [])
+        return refused(409, shown(str(exc)), [])
 
     # --- computing -------------------------------------------------------------------------
 
@@ -438,21 +383,7 @@ def create_app(
         )
         return HTMLResponse(html)
 
-    def openapi() -> dict[str, Any]:
-        if app.openapi_schema:
-            return app.openapi_schema
-        schema = get_openapi(
-            title=app.title, version=app.version, description=app.description, routes=app.routes
-        )
-        study = Study.model_json_schema(ref_template="#/components/schemas/{model}")
-        components = schema.setdefault("components", {}).setdefault("schemas", {})
-        components.update(study.pop("$defs", {}))
-        study.pop("$id", None)
-        components["Study"] = study
-        app.openapi_schema = schema
-        return schema
-
-    app.openapi = openapi  # type: ignore[method-assign]
+    use_study_openapi(app)
     return app
 
 

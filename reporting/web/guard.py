@@ -10,7 +10,7 @@ adds headers that keep the page from loading anything that is not served here.
 from __future__ import annotations
 
 import json
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 from typing import Any
 
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
@@ -63,8 +63,10 @@ class Guard:
         *,
         max_body_bytes: int = MAX_BODY_BYTES,
         allowed_hosts: Iterable[str] = LOOPBACK_HOSTS,
+        extra_headers: Mapping[str, str] | None = None,
     ) -> None:
         self.app = app
+        self.headers = SECURITY_HEADERS | dict(extra_headers or {})
         self.max_body_bytes = max_body_bytes
         self.allowed_hosts = frozenset(h.lower() for h in allowed_hosts)
 
@@ -132,7 +134,7 @@ class Guard:
             if message["type"] == "http.response.start":
                 headers: list[Any] = list(message.get("headers", []))
                 present = {bytes(k).lower() for k, _ in headers}
-                for key, value in SECURITY_HEADERS.items():
+                for key, value in self.headers.items():
                     if key.encode() not in present:
                         headers.append((key.encode(), value.encode()))
                 message = {**message, "headers": headers}

@@ -19,7 +19,7 @@ from alembic import op
 from reporting.store import triggers
 
 revision = "0004_worklist"
-down_revision = "0002"
+down_revision = "0003_web_sessions"
 branch_labels = None
 depends_on = None
 
