@@ -77,6 +77,7 @@ class Tally:
     latencies: list[float] = field(default_factory=list)
     errors: dict[str, int] = field(default_factory=dict)
     send_lag: list[float] = field(default_factory=list)  # actual send − scheduled send
+    from_send: list[float] = field(default_factory=list)  # answered − actually sent
 
     def summary(self, seconds: float) -> dict[str, Any]:
         n = len(self.latencies)
@@ -90,6 +91,7 @@ class Tally:
             "p99_ms": percentile(self.latencies, 99) * 1000,
             "max_ms": max(self.latencies, default=math.nan) * 1000,
             "send_lag_p95_ms": percentile(self.send_lag, 95) * 1000,
+            "from_send_p95_ms": percentile(self.from_send, 95) * 1000,
         }
 
 
@@ -159,6 +161,7 @@ async def run(
         tally.send_lag.append(sent - scheduled)
         if outcome is None:
             tally.latencies.append(done - scheduled)
+            tally.from_send.append(done - sent)
         else:
             tally.errors[outcome] = tally.errors.get(outcome, 0) + 1
 
