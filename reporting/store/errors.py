@@ -13,6 +13,10 @@ class StoreError(InputError):
     """A store operation was refused or could not run; nothing was written."""
 
 
+class NotFound(StoreError):
+    """No such study, or no such version of it."""
+
+
 class AuthError(StoreError):
     """Unknown user, wrong password, locked account or a missing role."""
 

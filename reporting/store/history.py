@@ -20,7 +20,7 @@ from reporting.files import all_or_nothing, write_atomic
 from reporting.results import Analysis
 from reporting.store import content, versions
 from reporting.store.engine import Database
-from reporting.store.errors import StoreError
+from reporting.store.errors import NotFound
 from reporting.store.schema import EventRow, SignatureRow, StudyRow, VersionRow
 from reporting.store.status import VersionStatus, effective_status
 
@@ -72,7 +72,7 @@ def history(db: Database, study_id: str) -> dict[str, Any]:
     with db.connect() as conn:
         study = conn.execute(_STUDY, {"sid": study_id}).first()
         if study is None:
-            raise StoreError(f"study {study_id}", "not in the store")
+            raise NotFound(f"study {study_id}", "not in the store")
         rows = conn.execute(_VERSIONS, {"pk": study[0]}).all()
         events = conn.execute(_EVENTS, {"sid": study_id}).all()
     return {

@@ -58,10 +58,11 @@ def tagged_version(header: str | None) -> int | None:
     return None
 
 
-def matches(row: VersionRow, header: str) -> bool:
-    """Whether ``If-Match: header`` names ``row`` (strong comparison; ``*`` matches)."""
+def matches(tag: str, header: str) -> bool:
+    """Whether ``If-Match: header`` names the entity tag ``tag`` (strong comparison; ``*``
+    matches any)."""
     tags = [part.strip() for part in header.split(",")]
-    return "*" in tags or etag(row) in tags
+    return "*" in tags or tag in tags
 
 
 @dataclass(frozen=True)
@@ -217,7 +218,7 @@ def save(
             raise _signed(study_id, last)
         if last.content_sha256 == stored.sha256:
             return opened(session, known, last), False
-        if not matches(last, if_match):
+        if not matches(etag(last), if_match):
             base_number = tagged_version(if_match)
             base = None
             if base_number is not None and base_number < last.version:

@@ -96,10 +96,12 @@ class WorklistRow(Base):
     updated_at: Mapped[str] = mapped_column(String(40))
     study_date: Mapped[str | None] = mapped_column(String(10))
     awaiting_reader: Mapped[bool] = mapped_column(Boolean, default=False)
+    assigned_reader: Mapped[str | None] = mapped_column(String(64))  # as in assignments
 
 
 Index("ix_worklist_status_date", WorklistRow.status, WorklistRow.study_date)
 Index("ix_worklist_date", WorklistRow.study_date)
+Index("ix_worklist_reader_date", WorklistRow.assigned_reader, WorklistRow.study_date)
 
 
 class AssignmentRow(Base):

@@ -143,13 +143,21 @@ def _store_signature(
 
 
 def sign(
-    db: Database, study_id: str, who: Person, *, meaning: str | None = None, origin: Origin
+    db: Database,
+    study_id: str,
+    who: Person,
+    *,
+    meaning: str | None = None,
+    origin: Origin,
+    expect_version: int | None = None,
 ) -> Signed:
-    """Sign the latest version of ``study_id`` (it must be unsigned)."""
+    """Sign the latest version of ``study_id`` (it must be unsigned; and be ``expect_version``
+    when given, the version the signer saw)."""
     _signer(who)
     meaning = _text(meaning, "--meaning") or DEFAULT_MEANING
     with db.read() as session:
         study, row = versions.get_version(session, study_id, None)
+        _expected(study_id, row, expect_version)
         if versions.signature_of(session, row) is not None:
             raise StoreError(
                 f"study {study_id}",
@@ -199,6 +207,7 @@ def amend(
     correction: bool = False,
     meaning: str | None = None,
     origin: Origin,
+    expect_version: int | None = None,
 ) -> Signed:
     """Make and sign a new version superseding the latest signed one: a changed study (a file at
     ``path``, or the ``edited`` study itself as the page sends it) or an addendum."""
@@ -211,6 +220,7 @@ def amend(
         raise InputError("--reason", "an amendment needs a reason (--reason TEXT)")
     with db.read() as session:
         study, base = versions.get_version(session, study_id, None)
+        _expected(study_id, base, expect_version)
         if versions.signature_of(session, base) is None:
             raise StoreError(
                 f"study {study_id}",
@@ -279,6 +289,15 @@ def amend(
         signed = _store_signature(session, study, row, rendered, origin=origin)
     log.info("%s %s v%d by %s", status.value, study_id, number, who.name)
     return signed
+
+
+def _expected(study_id: str, row: VersionRow, expect_version: int | None) -> None:
+    if expect_version is not None and row.version != expect_version:
+        raise ConflictError(
+            f"study {study_id}",
+            f"version {row.version} (by {row.author}) is the latest now, not version "
+            f"{expect_version} that you saw; nothing was written",
+        )
 
 
 def _same_study(new: content.Content, old: content.Content, path: Path | str) -> None:

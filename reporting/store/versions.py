@@ -23,7 +23,7 @@ from reporting.errors import InputError, InputErrors, ReportingError, problems_o
 from reporting.store import audit, content, worklist
 from reporting.store.canonical import Origin, now
 from reporting.store.engine import Database
-from reporting.store.errors import ConflictError, StoreError
+from reporting.store.errors import ConflictError, NotFound, StoreError
 from reporting.store.schema import SignatureRow, StudyRow, VersionRow
 from reporting.store.status import VersionStatus
 from reporting.store.users import Person, Role
@@ -95,7 +95,7 @@ def get_version(session: Session, study_id: str, number: int | None) -> tuple[St
     """The study and its version ``number`` (latest when ``None``); StoreError when missing."""
     study = study_row(session, study_id)
     if study is None:
-        raise StoreError(f"study {study_id}", "not in the store")
+        raise NotFound(f"study {study_id}", "not in the store")
     if number is None:
         return study, latest(session, study)
     row = session.scalars(
@@ -105,7 +105,7 @@ def get_version(session: Session, study_id: str, number: int | None) -> tuple[St
         count = session.scalar(
             select(func.max(VersionRow.version)).where(VersionRow.study_pk == study.id)
         )
-        raise StoreError(f"study {study_id}", f"has no version {number} (versions 1–{count})")
+        raise NotFound(f"study {study_id}", f"has no version {number} (versions 1–{count})")
     return study, row
 
 

@@ -20,9 +20,10 @@ import datetime as dt
 import logging
 from dataclasses import dataclass
 from enum import StrEnum
+from functools import cache
 from typing import Any
 
-from sqlalchemy import Select, func, select
+from sqlalchemy import Select, bindparam, func, select
 from sqlalchemy.orm import Session
 
 from reporting.store import audit
@@ -123,44 +124,74 @@ _COLUMNS = (
     WorklistRow.version,
     WorklistRow.author,
     WorklistRow.updated_at,
-    AssignmentRow.reader,
+    WorklistRow.assigned_reader,
     WorklistRow.awaiting_reader,
 )
+_NEWEST_FIRST = (WorklistRow.study_date.desc(), WorklistRow.study_pk.desc())
 
 
-def _filtered(statement: Select[Any], query: Query) -> Select[Any]:
-    statement = statement.join(StudyRow, StudyRow.id == WorklistRow.study_pk).outerjoin(
-        AssignmentRow, AssignmentRow.study_pk == WorklistRow.study_pk
-    )
-    if query.status is not None:
-        statement = statement.where(WorklistRow.status == query.status.value)
-    if query.reader is not None:
-        statement = statement.where(AssignmentRow.reader == query.reader)
-    if query.patient is not None:
-        statement = statement.where(StudyRow.patient_id == query.patient)
-    if query.date_from is not None:
-        statement = statement.where(WorklistRow.study_date >= query.date_from.isoformat())
-    if query.date_to is not None:
-        statement = statement.where(WorklistRow.study_date <= query.date_to.isoformat())
+def _filtered(statement: Select[Any], used: frozenset[str]) -> Select[Any]:
+    """``statement`` over the worklist with the filters in ``used`` as bound parameters; studies
+    are joined only for the patient filter, so each filter reads its own index."""
+    if "patient" in used:
+        statement = statement.join(StudyRow, StudyRow.id == WorklistRow.study_pk).where(
+            StudyRow.patient_id == bindparam("patient")
+        )
+    if "reader" in used:
+        statement = statement.where(WorklistRow.assigned_reader == bindparam("reader"))
+    if "status" in used:
+        statement = statement.where(WorklistRow.status == bindparam("status"))
+    if "date_from" in used:
+        statement = statement.where(WorklistRow.study_date >= bindparam("date_from"))
+    if "date_to" in used:
+        statement = statement.where(WorklistRow.study_date <= bindparam("date_to"))
     return statement
 
 
+@cache
+def _statements(used: frozenset[str]) -> tuple[Select[Any], Select[Any]]:
+    """The count and page statements for a set of filters, built once (building a statement
+    costs more than running it on the indexes)."""
+    keys = (
+        _filtered(select(WorklistRow.study_pk), used)
+        .order_by(*_NEWEST_FIRST)
+        .limit(bindparam("limit"))
+        .offset(bindparam("offset"))
+        .subquery()
+    )
+    page = (
+        select(*_COLUMNS)
+        .select_from(keys)
+        .join(WorklistRow, WorklistRow.study_pk == keys.c.study_pk)
+        .join(StudyRow, StudyRow.id == keys.c.study_pk)
+        .order_by(*_NEWEST_FIRST)
+    )
+    count = _filtered(select(func.count()).select_from(WorklistRow), used)
+    return count, page
+
+
 def listing(db: Database, query: Query) -> tuple[int, list[Entry]]:
-    """The number of studies matching ``query`` and one page of them, newest study date first."""
+    """The number of studies matching ``query`` and one page of them, newest study date first.
+
+    The page's study keys come from the worklist's indexes alone (filters, order, limit); only
+    those rows are then joined with their study.
+    """
     if not 1 <= query.limit <= MAX_LIMIT:
         raise StoreError("limit", f"must be between 1 and {MAX_LIMIT}")
     if query.offset < 0:
         raise StoreError("offset", "must not be negative")
-    page = (
-        _filtered(select(*_COLUMNS).select_from(WorklistRow), query)
-        .order_by(WorklistRow.study_date.desc(), WorklistRow.study_pk.desc())
-        .limit(query.limit)
-        .offset(query.offset)
-    )
-    count = _filtered(select(func.count()).select_from(WorklistRow), query)
+    values: dict[str, Any] = {
+        "status": query.status.value if query.status is not None else None,
+        "reader": query.reader,
+        "patient": query.patient,
+        "date_from": query.date_from.isoformat() if query.date_from else None,
+        "date_to": query.date_to.isoformat() if query.date_to else None,
+    }
+    params = {k: v for k, v in values.items() if v is not None}
+    count, page = _statements(frozenset(params))
     with db.connect() as conn:
-        total = conn.execute(count).scalar_one()
-        rows = conn.execute(page).all()
+        total = conn.execute(count, params).scalar_one()
+        rows = conn.execute(page, params | {"limit": query.limit, "offset": query.offset}).all()
     return total, [
         Entry(
             study_id=r[0],
@@ -175,6 +206,27 @@ def listing(db: Database, query: Query) -> tuple[int, list[Entry]]:
         )
         for r in rows
     ]
+
+
+EARLIER_LIMIT = 20
+"""Most earlier studies listed beside a study."""
+
+
+def earlier(
+    session: Session, patient_id: str | None, before: str | None, *, limit: int = EARLIER_LIMIT
+) -> list[tuple[str, str | None, WorklistStatus]]:
+    """The patient's studies dated before ``before`` (ISO date): (study id, date, status), newest
+    first; one query on indexed columns (``studies.patient_id``, the worklist's primary key)."""
+    if patient_id is None or before is None:
+        return []
+    rows = session.execute(
+        select(StudyRow.study_id, WorklistRow.study_date, WorklistRow.status)
+        .join(WorklistRow, WorklistRow.study_pk == StudyRow.id)
+        .where(StudyRow.patient_id == patient_id, WorklistRow.study_date < before)
+        .order_by(WorklistRow.study_date.desc(), StudyRow.id.desc())
+        .limit(limit)
+    ).all()
+    return [(r[0], r[1], WorklistStatus(r[2])) for r in rows]
 
 
 def assigned_reader(session: Session, study: StudyRow) -> str | None:
@@ -215,6 +267,9 @@ def assign(
             )
         else:
             current.reader, current.assigned_by, current.assigned_at = reader, actor, now()
+        entry = session.get(WorklistRow, study.id)
+        if entry is not None:
+            entry.assigned_reader = reader
         session.flush()
         audit.append(
             session,
@@ -228,7 +283,7 @@ def assign(
     return before
 
 
-def rebuilt(session: Session) -> dict[int, tuple[str, int, str, str, str | None, bool]]:
+def rebuilt(session: Session) -> dict[int, tuple[Any, ...]]:
     """The worklist recomputed from versions and signatures (study pk → row), for checking."""
     newest = (
         select(VersionRow.study_pk, func.max(VersionRow.version).label("top"))
@@ -243,7 +298,8 @@ def rebuilt(session: Session) -> dict[int, tuple[str, int, str, str, str | None,
         )
         .outerjoin(SignatureRow, SignatureRow.version_pk == VersionRow.id)
     ).all()
-    out: dict[int, tuple[str, int, str, str, str | None, bool]] = {}
+    out: dict[int, tuple[Any, ...]] = {}
+    assigned = {a.study_pk: a.reader for a in session.scalars(select(AssignmentRow))}
     for row, sig in rows:
         awaiting = bool(row.awaiting_reader) and sig is None
         out[row.study_pk] = (
@@ -253,11 +309,12 @@ def rebuilt(session: Session) -> dict[int, tuple[str, int, str, str, str | None,
             sig.signed_at if sig is not None else row.created_at,
             row.study_date,
             awaiting,
+            assigned.get(row.study_pk),
         )
     return out
 
 
-def stored(session: Session) -> dict[int, tuple[str, int, str, str, str | None, bool]]:
+def stored(session: Session) -> dict[int, tuple[Any, ...]]:
     """The worklist table as it is (study pk → row), for comparing with :func:`rebuilt`."""
     return {
         w.study_pk: (
@@ -267,6 +324,7 @@ def stored(session: Session) -> dict[int, tuple[str, int, str, str, str | None, 
             w.updated_at,
             w.study_date,
             bool(w.awaiting_reader),
+            w.assigned_reader,
         )
         for w in session.scalars(select(WorklistRow))
     }

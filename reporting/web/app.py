@@ -33,14 +33,14 @@ from fastapi.staticfiles import StaticFiles
 from reporting import __version__
 from reporting.analysis import analyze, resolve_territory_map
 from reporting.errors import InputError, InputErrors, ReportingError
-from reporting.export.record import record_dict
 from reporting.load import study_from_data
 from reporting.model import STAGE_ORDER, Protocol, SafeId, Study
-from reporting.phrases import PhraseLibrary, built_in_library, filled_library
+from reporting.phrases import PhraseLibrary, built_in_library
 from reporting.results import Analysis
 from reporting.segments import BUILT_IN_MAPS
 from reporting.settings import Settings, default_settings
 from reporting.web import form, guard, pages, shapes
+from reporting.web.analysing import analysis_response, analysis_result
 from reporting.web.api import (
     DRAFT_BODY,
     IF_MATCH,
@@ -175,20 +175,7 @@ def create_app(
         return analyze(study, settings=lab, territory_map=territory_map, curves=curves)
 
     def run_analysis(study: Study) -> AnalyzeResult:
-        analysis = analysed(study)
-        from reporting.render import narrative_html, narrative_text
-        from reporting.render.narrative import summary
-
-        return AnalyzeResult(
-            record=analysis,
-            summary=summary(analysis),
-            narrative_text=narrative_text(analysis),
-            narrative_html=narrative_html(analysis),
-            territory_boundaries=shapes.territory_boundaries_d(
-                analysis.segment_model, [s.territory for s in analysis.segments]
-            ),
-            phrases=filled_library(library, analysis),
-        )
+        return analysis_result(analysed(study), library)
 
     add_reader_routes(app, analyse=analysed, library=library, source=phrases_source)
 
@@ -201,10 +188,7 @@ def create_app(
     )
     async def analyze_study(request: Request) -> JSONResponse:
         study = study_from_data(await _json_body(request, STUDY_SOURCE), source=STUDY_SOURCE)
-        result = run_analysis(study)
-        # the record exactly as the command line writes it
-        body = result.model_dump(mode="json") | {"record": record_dict(result.record)}
-        return JSONResponse(body)
+        return analysis_response(run_analysis(study))
 
     # --- study files -----------------------------------------------------------------------
 

@@ -51,6 +51,35 @@ class ConfirmedImpression(_Answer):
     impression_status: ImpressionStatus = Field(description="Always 'current' after confirming.")
 
 
+def phrase_listing(library: PhraseLibrary, source: str) -> PhraseListing:
+    """The phrase library as ``GET /api/phrases`` answers it."""
+    return PhraseListing(
+        source=source,
+        slots={name: what for name, (what, _) in SLOTS.items()},
+        phrases=list(library.phrases),
+    )
+
+
+def confirmed_impression(data: Any, analyse: Callable[[Study], Analysis]) -> ConfirmedImpression:
+    """The answer of ``POST /api/impression/confirm`` for the request body ``data``."""
+    study = study_from_data(data, source="study")
+    if not ((study.impression or "").strip() or (study.recommendations or "").strip()):
+        raise InputError(
+            "study: impression",
+            "write or accept an impression (or a recommendation) before confirming it",
+        )
+    analysis = analyse(study)
+    confirmed = confirm_impression(study, analysis)
+    digest = confirmed.impression_basis_sha256 or ""
+    return ConfirmedImpression(
+        impression_basis_sha256=digest,
+        computed_impression=confirmed.computed_impression or "",
+        impression_status=ImpressionStatus.CURRENT
+        if digest == analysis.findings_sha256
+        else ImpressionStatus.STALE,
+    )
+
+
 def add_reader_routes(
     app: FastAPI,
     *,
@@ -59,11 +88,7 @@ def add_reader_routes(
     source: str,
 ) -> None:
     """Add the phrase and impression routes to ``app``; ``analyse`` is the app's own analysis."""
-    listing = PhraseListing(
-        source=source,
-        slots={name: what for name, (what, _) in SLOTS.items()},
-        phrases=list(library.phrases),
-    )
+    listing = phrase_listing(library, source)
 
     @app.get("/api/phrases", response_model=PhraseListing, summary="The lab's phrase library")
     async def phrases() -> PhraseListing:
@@ -77,20 +102,4 @@ def add_reader_routes(
         summary="Confirm the reader's impression against the findings computed now",
     )
     async def confirm(request: Request) -> ConfirmedImpression:
-        data: Any = parse_body(await request.body(), "study")
-        study = study_from_data(data, source="study")
-        if not ((study.impression or "").strip() or (study.recommendations or "").strip()):
-            raise InputError(
-                "study: impression",
-                "write or accept an impression (or a recommendation) before confirming it",
-            )
-        analysis = analyse(study)
-        confirmed = confirm_impression(study, analysis)
-        digest = confirmed.impression_basis_sha256 or ""
-        return ConfirmedImpression(
-            impression_basis_sha256=digest,
-            computed_impression=confirmed.computed_impression or "",
-            impression_status=ImpressionStatus.CURRENT
-            if digest == analysis.findings_sha256
-            else ImpressionStatus.STALE,
-        )
+        return confirmed_impression(parse_body(await request.body(), "study"), analyse)

@@ -55,9 +55,11 @@ def upgrade() -> None:
         sa.Column("updated_at", sa.String(40), nullable=False),
         sa.Column("study_date", sa.String(10)),
         sa.Column("awaiting_reader", sa.Boolean, nullable=False),
+        sa.Column("assigned_reader", sa.String(64)),
     )
     op.create_index("ix_worklist_status_date", "worklist", ["status", "study_date"])
     op.create_index("ix_worklist_date", "worklist", ["study_date"])
+    op.create_index("ix_worklist_reader_date", "worklist", ["assigned_reader", "study_date"])
     op.create_table(
         "assignments",
         sa.Column("study_pk", sa.Integer, sa.ForeignKey("studies.id"), primary_key=True),
