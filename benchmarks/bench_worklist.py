@@ -32,6 +32,8 @@ def synthetic_store(url: str, count: int, *, seed: int = 15) -> Any:
     import yaml
     from sqlalchemy import insert
 
+    from reporting.analysis import analyze
+    from reporting.export.record import record_json
     from reporting.load import study_from_data
     from reporting.store import service
     from reporting.store.canonical import Origin, canonical_json, sha256_hex
@@ -44,9 +46,10 @@ def synthetic_store(url: str, count: int, *, seed: int = 15) -> Any:
     )
 
     db = service.init_store(url, "bench", full_name=None, password=PASSWORD, origin=Origin.CLI)
-    template = study_from_data(
-        yaml.safe_load(DEMO.read_text(encoding="utf-8")), source="demo"
-    ).model_dump(mode="json", exclude_none=True)
+    demo = study_from_data(yaml.safe_load(DEMO.read_text(encoding="utf-8")), source="demo")
+    template = demo.model_dump(mode="json", exclude_none=True)
+    # one real signed record stands in for every signed study (its prior-study comparisons run)
+    record = record_json(analyze(demo)).encode()
     rng = random.Random(seed)
     patients = max(1, count // 4)
     chunk = 5000
@@ -90,7 +93,7 @@ def synthetic_store(url: str, count: int, *, seed: int = 15) -> Any:
                             "signer_name": "B",
                             "signed_at": created,
                             "meaning": "m",
-                            "record_json": b"{}",
+                            "record_json": record,
                             "record_sha256": "0" * 64,
                             "pdf": b"%PDF-stand-in",
                             "pdf_sha256": "0" * 64,
@@ -137,6 +140,30 @@ def _median_ms(run: Any, repeats: int) -> float:
     return statistics.median(times)
 
 
+def _http(db: Any, count: int, repeats: int) -> None:
+    """The same through the lab app's routes, in-process (a signed-in reader's requests)."""
+    from fastapi.testclient import TestClient
+
+    from reporting.settings import default_settings
+    from reporting.web.lab import create_lab_app
+
+    client = TestClient(
+        create_lab_app(db, settings=default_settings()), base_url="http://127.0.0.1"
+    )
+    answer = client.post("/api/session", json={"user": "bench", "password": PASSWORD})
+    assert answer.status_code == 200, answer.text
+    for name, params in (
+        ("GET /api/worklist (first page)", {}),
+        ("GET /api/worklist?status=unread", {"status": "unread"}),
+    ):
+        ms = _median_ms(lambda p=params: client.get("/api/worklist", params=p), repeats)
+        print(f"{name}: {ms:.1f} ms median")
+    pick = random.Random(2)
+    ids = iter([f"W-{pick.randint(1, count):07d}" for _ in range(repeats)])
+    ms = _median_ms(lambda: client.get(f"/api/studies/{next(ids)}"), repeats)
+    print(f"GET /api/studies/{{id}} (view with earlier studies and comparison): {ms:.1f} ms median")
+
+
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--count", type=int, default=100_000)
@@ -174,6 +201,7 @@ def main(argv: list[str] | None = None) -> None:
         it = iter([f"W-{pick.randint(1, args.count):07d}" for _ in range(args.repeats)])
         ms = _median_ms(lambda: saving.read(db, next(it)), args.repeats)
         print(f"open one study (latest version, parsed): {ms:.1f} ms median")
+        _http(db, args.count, args.repeats)
         db.dispose()
 
 

@@ -11,11 +11,14 @@ comparison is checked against :mod:`reporting.comparison` run on the analyses di
 from __future__ import annotations
 
 import copy
+import json
 from pathlib import Path
 from typing import Any
 
 import pytest
 from fastapi.testclient import TestClient
+from lab_support import BASE_URL, lab_store, sign_in
+from sqlalchemy import select
 from store_support import PASSWORD, cheap_argon2, pg_socket, store_url, study_data
 
 from reporting.analysis import analyze
@@ -23,31 +26,17 @@ from reporting.comparison import with_comparison
 from reporting.export.record import record_dict
 from reporting.load import study_from_data
 from reporting.settings import default_settings
-from reporting.store import conflicts, history, service, users
-from reporting.store.canonical import Origin
+from reporting.store import conflicts, history
 from reporting.store.engine import Database
-from reporting.web.lab.app import create_lab_app
+from reporting.store.schema import EventRow
+from reporting.web.lab import create_lab_app
 
 __all__ = ["cheap_argon2", "pg_socket", "store_url"]
-CLI = Origin.CLI
 
 
 @pytest.fixture
 def db(store_url: str) -> Database:
-    database = service.init_store(
-        store_url, "alice", full_name="Dr Alice Example", password=PASSWORD, origin=CLI
-    )
-    for name, roles in (
-        ("sam", [users.Role.SONOGRAPHER]),
-        ("rita", [users.Role.READER]),
-        ("adam", [users.Role.ADMIN]),
-    ):
-        users.add(
-            database, name, full_name=name.title(), roles=roles, password=PASSWORD,
-            actor="alice", origin=CLI,
-        )  # fmt: skip
-        users.set_password(database, name, PASSWORD, temporary=False, actor=name, origin=CLI)
-    return database
+    return lab_store(store_url)
 
 
 @pytest.fixture
@@ -56,10 +45,9 @@ def app(db: Database) -> Any:
 
 
 def signed_in(app: Any, name: str) -> TestClient:
-    client = TestClient(app, base_url="http://127.0.0.1")
-    answer = client.post("/api/session", json={"user": name, "password": PASSWORD})
-    assert answer.status_code == 200, answer.text
-    client.headers["x-csrf-token"] = answer.json()["csrf_token"]
+    """A browser of its own (own cookie jar) signed in as ``name``, on the one app."""
+    client = TestClient(app, base_url=BASE_URL)
+    sign_in(client, name)
     return client
 
 
@@ -73,7 +61,8 @@ def study(study_id: str = "DEMO-0001", **dotted: Any) -> dict[str, Any]:
         for key in parents:
             node = node[key]
         node[last] = value
-    return data
+    plain: dict[str, Any] = json.loads(json.dumps(data, default=str))  # YAML dates as text
+    return plain
 
 
 def created(client: TestClient, data: dict[str, Any]) -> dict[str, Any]:
@@ -137,7 +126,10 @@ def test_stale_save_shows_their_changes_field_by_field_and_writes_nothing(
     changes = {c["path"]: c for c in body["changes"]}
     assert set(changes) == {"indication", "stages.peak.wall_motion.7"}
     assert changes["stages.peak.wall_motion.7"] | {} == changes["stages.peak.wall_motion.7"]
-    assert (changes["stages.peak.wall_motion.7"]["theirs"], changes["stages.peak.wall_motion.7"]["mine"]) == (3, 2)
+    assert (
+        changes["stages.peak.wall_motion.7"]["theirs"],
+        changes["stages.peak.wall_motion.7"]["mine"],
+    ) == (3, 2)
     assert changes["stages.peak.wall_motion.7"]["conflict"] is True
     assert changes["indication"]["conflict"] is False
     assert versions_of(db, "DEMO-0001") == [1, 2]  # nothing written
@@ -158,6 +150,16 @@ def test_save_without_if_match_is_428_and_on_a_signed_study_409(app: Any, db: Da
     missing = rita.put("/api/studies/DEMO-0001", json={"study": first["study"]})
     assert missing.status_code == 428  # RFC 6585 §3
     assert missing.json()["etag"] == first["etag"]
+    unnamed = rita.post(
+        "/api/studies/DEMO-0001/sign", json={"password": PASSWORD}
+    )  # bad: no If-Match
+    assert unnamed.status_code == 428
+    early = rita.post(
+        "/api/studies/DEMO-0001/addendum",
+        json={"text": "t", "password": PASSWORD},
+        headers={"if-match": first["etag"]},
+    )  # bad: nothing signed to add to
+    assert early.status_code == 409 and "not signed yet" in early.text
     signed = rita.post(
         "/api/studies/DEMO-0001/sign",
         json={"password": PASSWORD},
@@ -171,6 +173,12 @@ def test_save_without_if_match_is_428_and_on_a_signed_study_409(app: Any, db: Da
     )
     assert refused.status_code == 409
     assert "use Amend or Addendum" in refused.json()["detail"]
+    twice = rita.post(
+        "/api/studies/DEMO-0001/sign",
+        json={"password": PASSWORD},
+        headers={"if-match": first["etag"]},
+    )  # bad: already signed
+    assert twice.status_code == 409 and "never signed again" in twice.text
     assert versions_of(db, "DEMO-0001") == [1]
 
 
@@ -194,7 +202,7 @@ def test_sign_in_the_page_and_the_pdf_is_the_stored_one(
     opened = rita.get("/api/studies/DEMO-0001").json()
     assert opened["read_only"] is True
     assert opened["signature"]["meaning"] == "reviewed and approved"
-    assert opened["signature"]["signer_name"] == "Rita"
+    assert opened["signature"]["signer_name"] == "Rita Example"
     assert rita.get("/api/worklist", params={"status": "signed"}).json()["total"] == 1
     events = rita.get("/api/studies/DEMO-0001/history").json()["events"]
     assert [(e["action"], e["actor"], e["origin"]) for e in events] == [
@@ -213,7 +221,11 @@ def test_wrong_signing_password_counts_towards_the_lockout(app: Any, db: Databas
             json={"password": "not the password"},  # bad: not rita's password
             headers={"if-match": first["etag"]},
         )
-        assert wrong.status_code in (401, 403)
+        assert wrong.status_code == 403
+        assert "wrong password" in wrong.json()["detail"]
+    assert "now locked" in wrong.json()["detail"]
+    # locking ends the user's sessions: the page's next request is signed out
+    assert rita.get("/api/worklist").status_code == 401
     assert versions_of(db, "DEMO-0001") == [1]
     assert history.history(db, "DEMO-0001")["versions"][0]["signature"] is None
     # 21 CFR 11.300: the account is locked now; signing in again is refused
@@ -221,6 +233,9 @@ def test_wrong_signing_password_counts_towards_the_lockout(app: Any, db: Databas
         "/api/session", json={"user": "rita", "password": PASSWORD}
     )
     assert again.status_code == 401
+    with db.read() as session:
+        actions = [e.action for e in session.scalars(select(EventRow).order_by(EventRow.seq))]
+    assert actions.count("sign_failed") == limit and "user_locked" in actions
 
 
 def test_a_sonographer_cannot_sign_amend_or_add_an_addendum(app: Any) -> None:
@@ -241,7 +256,9 @@ def test_amend_needs_a_reason_and_addendum_appends(app: Any, db: Database) -> No
     rita = signed_in(app, "rita")
     first = created(rita, study())
     rita.post(
-        "/api/studies/DEMO-0001/sign", json={"password": PASSWORD}, headers={"if-match": first["etag"]}
+        "/api/studies/DEMO-0001/sign",
+        json={"password": PASSWORD},
+        headers={"if-match": first["etag"]},
     )
     changed = copy.deepcopy(first["study"])
     changed["indication"] = "Chest pain at rest."
@@ -287,13 +304,13 @@ def test_amend_needs_a_reason_and_addendum_appends(app: Any, db: Database) -> No
 
 
 def test_assignment_by_reader_or_admin_only_to_a_reader(app: Any) -> None:
-    sam, adam, rita = signed_in(app, "sam"), signed_in(app, "adam"), signed_in(app, "rita")
+    sam, ada, rita = signed_in(app, "sam"), signed_in(app, "ada"), signed_in(app, "rita")
     created(sam, study())
     route = "/api/studies/DEMO-0001/assignment"
     assert sam.put(route, json={"reader": "rita"}).status_code == 403  # a sonographer
-    bad = adam.put(route, json={"reader": "sam"})  # bad: sam is no reader
+    bad = ada.put(route, json={"reader": "sam"})  # bad: sam is no reader
     assert bad.status_code == 422 and "reader role" in bad.text
-    done = adam.put(route, json={"reader": "rita"})
+    done = ada.put(route, json={"reader": "rita"})
     assert done.status_code == 200 and done.json() == {
         "study_id": "DEMO-0001",
         "reader": "rita",
@@ -302,7 +319,7 @@ def test_assignment_by_reader_or_admin_only_to_a_reader(app: Any) -> None:
     mine = rita.get("/api/worklist", params={"reader": "rita"}).json()
     assert [r["assigned_reader"] for r in mine["rows"]] == ["rita"]
     events = rita.get("/api/studies/DEMO-0001/history").json()["events"]
-    assert ("assign", "adam") in [(e["action"], e["actor"]) for e in events]
+    assert ("assign", "ada") in [(e["action"], e["actor"]) for e in events]
 
 
 def test_earlier_studies_and_comparison_with_the_prior_signed_study(app: Any) -> None:
@@ -310,9 +327,13 @@ def test_earlier_studies_and_comparison_with_the_prior_signed_study(app: Any) ->
     old = study("OLD-1", study__date="2025-03-01")
     old["stages"]["peak"]["wall_motion"] = {str(n): 1 for n in range(1, 18)}
     first = created(rita, old)
-    rita.post("/api/studies/OLD-1/sign", json={"password": PASSWORD}, headers={"if-match": first["etag"]})
+    rita.post(
+        "/api/studies/OLD-1/sign", json={"password": PASSWORD}, headers={"if-match": first["etag"]}
+    )
     new = study("NEW-1", study__date="2026-03-01")
-    new["stages"]["peak"]["wall_motion"] = {str(n): (3 if n in (7, 13) else 1) for n in range(1, 18)}
+    new["stages"]["peak"]["wall_motion"] = {
+        str(n): (3 if n in (7, 13) else 1) for n in range(1, 18)
+    }
     opened = created(rita, new)
     assert [(e["study_id"], e["status"]) for e in opened["earlier"]] == [("OLD-1", "signed")]
     # the oracle: reporting.comparison on the two analyses directly (the prior as signed, final)

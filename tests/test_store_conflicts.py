@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from hypothesis import given
+from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from reporting.store.conflicts import ABSENT, changes, leaves, mine_on_top
@@ -18,9 +18,10 @@ SCALARS = st.one_of(st.none(), st.integers(1, 5), st.sampled_from(["x", "chest p
 JSON = st.recursive(
     SCALARS | st.lists(SCALARS, max_size=3),
     lambda inner: st.dictionaries(KEYS, inner, max_size=4),
-    max_leaves=12,
+    max_leaves=8,
 )
-OBJECTS = st.dictionaries(KEYS, JSON, max_size=5)
+OBJECTS = st.dictionaries(KEYS, JSON, max_size=4)
+QUICK = settings(max_examples=150, suppress_health_check=[HealthCheck.too_slow])
 
 
 @st.composite
@@ -42,6 +43,7 @@ def _set(value: Any, path: tuple[str, ...], leaf: Any) -> Any:
     return copy
 
 
+@QUICK
 @given(OBJECTS, OBJECTS)
 def test_unchanged_theirs_gives_mine_and_unchanged_mine_gives_theirs(
     base: dict[str, Any], other: dict[str, Any]
@@ -50,6 +52,7 @@ def test_unchanged_theirs_gives_mine_and_unchanged_mine_gives_theirs(
     assert mine_on_top(base, other, base) == other
 
 
+@QUICK
 @given(st.data(), OBJECTS)
 def test_leaf_edits_merge_field_by_field(data: st.DataObject, base: dict[str, Any]) -> None:
     theirs, mine = data.draw(edited(base)), data.draw(edited(base))
@@ -66,6 +69,7 @@ def test_leaf_edits_merge_field_by_field(data: st.DataObject, base: dict[str, An
         assert change.conflict == (t[path] != b[path] and m[path] != b[path] and t[path] != m[path])
 
 
+@QUICK
 @given(OBJECTS, OBJECTS, OBJECTS)
 def test_any_three_versions_list_every_differing_leaf(
     base: dict[str, Any], theirs: dict[str, Any], mine: dict[str, Any]

@@ -196,18 +196,24 @@ def authenticate(
         found = (
             None
             if user is None
-            else (user.password_hash, lock_in_effect(user), user.locked, person(user))
+            else (
+                user.password_hash,
+                lock_in_effect(user),
+                user.locked,
+                user.locked_until,
+                person(user),
+            )
         )
     if found is None:
         _waste_time(password)
         _failure(db, name, "unknown user", origin, lab, failed_action, address, known=False)
         raise AuthError(where, "unknown user (or wrong password)")
-    stored, locked, lock_ran_out, who = found
+    stored, locked, lock_ran_out, locked_until, who = found
     if locked:
         _waste_time(password)
         _failure(db, name, "locked", origin, lab, failed_action, address, known=True, counts=False)
         until = "an admin must unlock it (`store user unlock`)"
-        if lab.lockout_minutes is not None:
+        if locked_until is not None:
             until = "try again later, or ask an admin to unlock it (`store user unlock`)"
         raise AuthError(where, f"the account is locked; {until}")
     try:

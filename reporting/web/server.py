@@ -216,6 +216,7 @@ def serve_store(
         database,
         settings=settings or default_settings(),
         phrases=library,
+        phrases_source=phrases_path.name if phrases_path is not None else "built-in",
         allowed_hosts=tuple(dict.fromkeys([*guard.LOOPBACK_HOSTS, *allowed_hosts])),
         secure_cookies=secure,
     )

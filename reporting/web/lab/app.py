@@ -67,6 +67,7 @@ def create_lab_app(
     *,
     settings: Settings,
     phrases: PhraseLibrary | None = None,
+    phrases_source: str = "built-in",
     allowed_hosts: tuple[str, ...] = guard.LOOPBACK_HOSTS,
     secure_cookies: bool | None = False,
     max_body_bytes: int = guard.MAX_BODY_BYTES,
@@ -98,6 +99,7 @@ def create_lab_app(
         throttle=throttle,
         secure_cookies=secure_cookies,
         phrases=phrases,
+        phrases_source=phrases_source,
     )
     # the last added runs first: the Guard refuses foreign hosts before any session is looked up
     app.add_middleware(AccessCheck, router=app.router)

@@ -37,6 +37,9 @@ class Lab:
     throttle: AddressThrottle
     secure_cookies: bool | None
     phrases: PhraseLibrary | None = None
+    """The lab's phrase library (``--phrases``), None: the built-in starter set."""
+    phrases_source: str = "built-in"
+    """The phrase library's file name as the page shows it."""
 
 
 def lab_of(request: Request) -> Lab:

@@ -73,6 +73,9 @@ class StudyView(_Shape):
     awaiting_reader: bool = Field(description="A sonographer's entry no reader has saved since.")
     assigned_reader: str | None = Field(description="The reader the study is assigned to.")
     etag: str = Field(description="This version's entity tag (also the ETag header).")
+    default_meaning: str = Field(
+        description="The signature's meaning when the signer gives none (shown when signing)."
+    )
     pdf: str | None = Field(description="URL of the signed PDF, when signed.")
     earlier: list[EarlierStudy] = Field(description="The patient's earlier studies, newest first.")
     comparison: dict[str, Any] | None = Field(
