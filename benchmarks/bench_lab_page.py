@@ -3,7 +3,7 @@
     python benchmarks/bench_lab_page.py                        # SQLite store, 2 runs of 60 s
     python benchmarks/bench_lab_page.py --seconds 20 --runs 1  # quicker
     python benchmarks/bench_lab_page.py --db postgresql://bench@/segreport_bench   # a PostgreSQL store
-    python benchmarks/bench_lab_page.py --profile server.txt   # also sample the server with py-spy
+    python benchmarks/bench_lab_page.py --profile server.txt   # and a run sampled by py-spy
 
 Target (issue 15): 20 signed-in readers send live analyses (``POST /api/analyze`` with a study
 body, as the page does on every score change) and open studies (``GET /api/studies/{id}``, a
@@ -30,6 +30,7 @@ import json
 import os
 import random
 import shutil
+import signal
 import socket
 import subprocess
 import sys
@@ -129,27 +130,35 @@ def start_server(url: str, port: int, log: Path) -> subprocess.Popen[bytes]:
     raise SystemExit(f"the server did not answer within 60 s:\n{log.read_text()[-3000:]}")
 
 
-def profile(pid: int, seconds: float, out: Path) -> subprocess.Popen[bytes] | None:
-    """Sample the server with py-spy (collapsed stacks in ``out``), when py-spy is installed."""
+def profile(pid: int, out: Path) -> subprocess.Popen[bytes] | None:
+    """Sample the server with py-spy until interrupted (collapsed stacks in ``out``)."""
     spy = shutil.which("py-spy")
     if spy is None:
         print("py-spy is not installed: no profile (python3 -m pip install py-spy)")
         return None
-    command = [spy, "record", "--pid", str(pid), "--duration", str(int(seconds)), "--rate", "200"]
-    command += ["--format", "raw", "--output", str(out), "--nonblocking"]
+    command = [spy, "record", "--pid", str(pid), "--rate", "100", "--format", "raw"]
+    command += ["--output", str(out), "--nonblocking"]
     return subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
 
 
-def top_frames(raw: Path, count: int = 25) -> list[tuple[float, str]]:
-    """Share of samples per function with the function on the stack (inclusive), largest first."""
+IDLE = ("EpollSelector.select", "Queue.get", "Condition.wait")
+"""Frames of a thread waiting for work: such samples are left out."""
+
+
+def top_frames(raw: Path, count: int = 30) -> list[tuple[float, str]]:
+    """Share of busy samples per function of this project (on the stack: inclusive)."""
     inclusive: dict[str, int] = {}
     total = 0
     for line in raw.read_text().splitlines():
         stack, _, n = line.rpartition(" ")
+        frames = stack.split(";")
+        if any(idle in frame for frame in frames[-3:] for idle in IDLE):
+            continue
         samples = int(n)
         total += samples
-        for frame in set(stack.split(";")):
-            inclusive[frame] = inclusive.get(frame, 0) + samples
+        for frame in set(frames):
+            if "reporting/" in frame and "__main__" not in frame and "cli.py" not in frame:
+                inclusive[frame] = inclusive.get(frame, 0) + samples
     ranked = sorted(inclusive.items(), key=lambda kv: -kv[1])[:count]
     return [(n / max(total, 1), frame) for frame, n in ranked]
 
@@ -226,16 +235,20 @@ def main() -> None:
                 f"{args.warmup:g} s warm-up + {args.seconds:g} s measured per run"
             )
             for run in range(args.runs):
-                spy = None
-                if args.profile is not None and run == args.runs - 1:
-                    spy = profile(server.pid, args.warmup + args.seconds + 5, args.profile)
                 before = os.getloadavg()[0]
                 result = load(port, plan_path, args, run)
                 print(f"run {run + 1}:")
                 met.append(show(result, (before, os.getloadavg()[0])))
+            if args.profile is not None:
+                # an extra run under the sampler, not counted: sampling slows the server down
+                spy = profile(server.pid, args.profile)
                 if spy is not None:
-                    spy.wait()
-                    print(f"profile of the server (inclusive share of samples) in {args.profile}:")
+                    result = load(port, plan_path, args, args.runs)
+                    spy.send_signal(signal.SIGINT)  # py-spy writes its samples and stops
+                    spy.wait(timeout=60)
+                    print("profiled run (not counted; the sampler slows the server):")
+                    show(result, (os.getloadavg()[0], os.getloadavg()[0]))
+                    print(f"server profile, share of busy samples per function ({args.profile}):")
                     for share, frame in top_frames(args.profile):
                         print(f"  {share:6.1%}  {frame[:150]}")
         finally:

@@ -112,7 +112,11 @@ async def sign_in(base: str, names: Sequence[str], password: str) -> list[User]:
             base_url=base,
             headers={"origin": base},
             timeout=httpx.Timeout(30.0),
-            limits=httpx.Limits(max_connections=50, max_keepalive_connections=10),
+            # idle connections are dropped before the server's 5 s keep-alive ends (as browsers
+            # do), so a request never races the server closing its connection
+            limits=httpx.Limits(
+                max_connections=50, max_keepalive_connections=10, keepalive_expiry=4.0
+            ),
         )
         answer = await client.post("/api/session", json={"user": name, "password": password})
         if answer.status_code != 200:
