@@ -145,6 +145,12 @@ IDLE = ("EpollSelector.select", "Queue.get", "Condition.wait")
 """Frames of a thread waiting for work: such samples are left out."""
 
 
+def cpu_seconds(pid: int) -> float:
+    """User + system CPU time of process ``pid`` so far (all its threads; Linux /proc)."""
+    fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+
+
 def top_frames(raw: Path, count: int = 30) -> list[tuple[float, str]]:
     """Share of busy samples per function of this project (on the stack: inclusive)."""
     inclusive: dict[str, int] = {}
@@ -215,12 +221,15 @@ def main() -> None:
     args = parser.parse_args()
     random.seed(args.seed)
 
+    from reporting.store.engine import resolve_url, shown
+
     t0 = time.perf_counter()
     built = lab_store.ensure(args.db, args.studies, args.users, rebuild=args.rebuild)
+    where = shown(resolve_url(built.url))  # without a password
     if built.build_seconds is None:
-        print(f"store: reused {built.url} ({time.perf_counter() - t0:.1f} s)")
+        print(f"store: reused {where} ({time.perf_counter() - t0:.1f} s)")
     else:
-        print(f"store: built {built.url} in {built.build_seconds:.0f} s")
+        print(f"store: built {where} in {built.build_seconds:.0f} s")
     print(f"  {built.studies} studies: {built.how}")
     with tempfile.TemporaryDirectory(prefix="bench-lab-") as folder:
         plan_path = plan(built.url, built, Path(folder))
@@ -235,10 +244,17 @@ def main() -> None:
                 f"{args.warmup:g} s warm-up + {args.seconds:g} s measured per run"
             )
             for run in range(args.runs):
-                before = os.getloadavg()[0]
+                before, cpu, wall = os.getloadavg()[0], cpu_seconds(server.pid), time.monotonic()
                 result = load(port, plan_path, args, run)
+                cpu, wall = cpu_seconds(server.pid) - cpu, time.monotonic() - wall
                 print(f"run {run + 1}:")
                 met.append(show(result, (before, os.getloadavg()[0])))
+                sent = sum(r["requests"] for r in result["routes"].values())
+                total = sent * (args.warmup + args.seconds) / args.seconds
+                print(
+                    f"  server process: {cpu:.1f} s of CPU in {wall:.0f} s ({cpu / wall:.0%} of one "
+                    f"core), about {cpu / total * 1000:.1f} ms of CPU per request (incl. sign-in)"
+                )
             if args.profile is not None:
                 # an extra run under the sampler, not counted: sampling slows the server down
                 spy = profile(server.pid, args.profile)
