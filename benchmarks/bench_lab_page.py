@@ -198,7 +198,8 @@ def show(result: dict[str, Any], loads: tuple[float, float]) -> bool:
     lag = max(r["send_lag_p95_ms"] for r in result["routes"].values())
     total = sum(r["requests"] for r in result["routes"].values()) / result["seconds"]
     print(
-        f"  achieved {total:.1f} requests/s in all (asked {result['rate_per_s']:.0f}); generator send lag "
+        f"  achieved {total:.1f} requests/s in all (asked {result['rate_per_s']:.0f}, this "
+        f"seed's Poisson draw {result['scheduled_per_s']:.1f}); generator send lag "
         f"p95 {lag:.1f} ms; load average {loads[0]:.2f} before, {loads[1]:.2f} after (1 min, "
         f"{os.cpu_count()} cores)"
     )

@@ -196,6 +196,7 @@ async def main_async(args: argparse.Namespace) -> dict[str, Any]:
         "warmup_s": args.warmup,
         "seconds": args.seconds,
         "wall_s": wall,
+        "scheduled_per_s": sum(a.at_s >= args.warmup for a in arrivals) / args.seconds,
         "routes": {route: tallies[route].summary(args.seconds) for route in ROUTES},
     }
 
