@@ -184,6 +184,7 @@ async def main_async(args: argparse.Namespace) -> dict[str, Any]:
         args.rate, total, len(plan["users"]), args.open_share, len(ids), len(bodies), rng
     )
     users = await sign_in(args.url, plan["users"], plan["password"])
+    print("signed in", file=sys.stderr, flush=True)  # bench_lab_page.py starts its CPU count
     t0 = time.perf_counter()
     tallies, _ = await run(users, arrivals, ids, bodies, measure_from=args.warmup)
     wall = time.perf_counter() - t0
