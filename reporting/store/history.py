@@ -183,13 +183,21 @@ def _prior(row: Any) -> PriorStudy | None:
     return PriorStudy(row[0], row[1], dt.date.fromisoformat(row[2]), bytes(row[3]))
 
 
+_PRIOR_SIGNED = _prior_query(bindparam("patient"), bindparam("before"))
+"""Built once: building the statement costs more than running it (about 1.7 ms of CPU)."""
+
+
 def prior_signed(session: Session, patient_id: str, before: dt.date) -> PriorStudy | None:
     """The latest signed study of ``patient_id`` dated before ``before`` (its newest signed version).
 
     One query on indexed columns: the patient's studies (``studies.patient_id``), their versions
     (``versions.study_pk``) and signatures (``signatures.version_pk``), newest date first.
     """
-    return _prior(session.execute(_prior_query(patient_id, before.isoformat())).first())
+    return _prior(
+        session.execute(
+            _PRIOR_SIGNED, {"patient": patient_id, "before": before.isoformat()}
+        ).first()
+    )
 
 
 def _prior_for_statement() -> Any:

@@ -15,7 +15,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
-from sqlalchemy import func, select
+from sqlalchemy import bindparam, func, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
@@ -76,17 +76,28 @@ def signature_facts(sig: SignatureRow, row: VersionRow) -> dict[str, object]:
     }
 
 
+# Statements built once with bound parameters: building a statement costs more than running it
+# (about 1.5 ms of CPU against 0.5 ms; benchmarks/bench_lab_page.py opens and analyses studies
+# many times a second).
+_STUDY_ROW = select(StudyRow).where(StudyRow.study_id == bindparam("sid"))
+_LATEST = (
+    select(VersionRow)
+    .where(VersionRow.study_pk == bindparam("pk"))
+    .order_by(VersionRow.version.desc())
+    .limit(1)
+)
+_VERSION = select(VersionRow).where(
+    VersionRow.study_pk == bindparam("pk"), VersionRow.version == bindparam("number")
+)
+_SIGNATURE = select(SignatureRow).where(SignatureRow.version_pk == bindparam("pk"))
+
+
 def study_row(session: Session, study_id: str) -> StudyRow | None:
-    return session.scalars(select(StudyRow).where(StudyRow.study_id == study_id)).first()
+    return session.scalars(_STUDY_ROW, {"sid": study_id}).first()
 
 
 def latest(session: Session, study: StudyRow) -> VersionRow:
-    row = session.scalars(
-        select(VersionRow)
-        .where(VersionRow.study_pk == study.id)
-        .order_by(VersionRow.version.desc())
-        .limit(1)
-    ).first()
+    row = session.scalars(_LATEST, {"pk": study.id}).first()
     assert row is not None, "a study row always has a version"
     return row
 
@@ -98,9 +109,7 @@ def get_version(session: Session, study_id: str, number: int | None) -> tuple[St
         raise NotFound(f"study {study_id}", "not in the store")
     if number is None:
         return study, latest(session, study)
-    row = session.scalars(
-        select(VersionRow).where(VersionRow.study_pk == study.id, VersionRow.version == number)
-    ).first()
+    row = session.scalars(_VERSION, {"pk": study.id, "number": number}).first()
     if row is None:
         count = session.scalar(
             select(func.max(VersionRow.version)).where(VersionRow.study_pk == study.id)
@@ -110,9 +119,7 @@ def get_version(session: Session, study_id: str, number: int | None) -> tuple[St
 
 
 def signature_of(session: Session, version: VersionRow) -> SignatureRow | None:
-    return session.scalars(
-        select(SignatureRow).where(SignatureRow.version_pk == version.id)
-    ).first()
+    return session.scalars(_SIGNATURE, {"pk": version.id}).first()
 
 
 def add_version(

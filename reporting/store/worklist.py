@@ -212,6 +212,18 @@ EARLIER_LIMIT = 20
 """Most earlier studies listed beside a study."""
 
 
+_EARLIER = (
+    select(StudyRow.study_id, WorklistRow.study_date, WorklistRow.status)
+    .join(WorklistRow, WorklistRow.study_pk == StudyRow.id)
+    .where(
+        StudyRow.patient_id == bindparam("patient"), WorklistRow.study_date < bindparam("before")
+    )
+    .order_by(WorklistRow.study_date.desc(), StudyRow.id.desc())
+    .limit(bindparam("limit"))
+)
+"""Built once (building a statement costs more than running it)."""
+
+
 def earlier(
     session: Session, patient_id: str | None, before: str | None, *, limit: int = EARLIER_LIMIT
 ) -> list[tuple[str, str | None, WorklistStatus]]:
@@ -220,11 +232,7 @@ def earlier(
     if patient_id is None or before is None:
         return []
     rows = session.execute(
-        select(StudyRow.study_id, WorklistRow.study_date, WorklistRow.status)
-        .join(WorklistRow, WorklistRow.study_pk == StudyRow.id)
-        .where(StudyRow.patient_id == patient_id, WorklistRow.study_date < before)
-        .order_by(WorklistRow.study_date.desc(), StudyRow.id.desc())
-        .limit(limit)
+        _EARLIER, {"patient": patient_id, "before": before, "limit": limit}
     ).all()
     return [(r[0], r[1], WorklistStatus(r[2])) for r in rows]
 

@@ -172,7 +172,17 @@ class AccessCheck:
         request = Request(scope)
         lab = lab_of(request)
         address = client_address(request)
-        checked = await run_in_threadpool(lab.sessions.check, session_token(request), address)
+        token = session_token(request)
+
+        def decide() -> tuple[Live | Refused, JSONResponse | None]:
+            # the session and the route's rules in one trip to a worker thread (each trip costs
+            # a thread hand-off and an event-loop wake-up; benchmarks/bench_lab_page.py)
+            checked = lab.sessions.check(token, address)
+            if isinstance(checked, Refused) or key is None:
+                return checked, None
+            return checked, self._refusal(checked, key, request, address)
+
+        checked, refusal = await run_in_threadpool(decide)
         if isinstance(checked, Refused):
             response = _refusal(401, checked.why)
             clear_session_cookie(response, request)
@@ -181,7 +191,6 @@ class AccessCheck:
         if key is None:  # a signed-in user asking for an /api path that does not exist
             await self.app(scope, receive, send)
             return
-        refusal = await run_in_threadpool(self._refusal, checked, key, request, address)
         if refusal is not None:
             await refusal(scope, receive, send)
             return

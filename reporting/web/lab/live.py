@@ -41,11 +41,12 @@ def analysed(db: Database, study: Study) -> Analysis:
     latest version (if the study is stored and still names them), compared with the patient's
     prior signed study when the store has one."""
     files: dict[str, str] = {}
+    named = {n for n in (study.perfusion_curves, study.territory_map) if n is not None}
     with db.read() as session:
-        known = versions.study_row(session, study.study.id)
+        # a study naming no file (the usual case) needs no stored version: no lookup, no parse
+        known = versions.study_row(session, study.study.id) if named else None
         if known is not None:
             latest = versions.latest(session, known)
-            named = {study.perfusion_curves, study.territory_map}
             stored_files = content.parse(bytes(latest.content)).files
             files = {k: v for k, v in stored_files.items() if k in named}
         stored = content.build(study, files)
