@@ -109,7 +109,9 @@ def refusal(*args: str, cwd: Path) -> tuple[int, str]:
 
 
 @contextmanager
-def running(*args: str, port: int, cwd: Path, env: dict[str, str] | None = None) -> Iterator[None]:
+def running(
+    *args: str, port: int, cwd: Path, env: dict[str, str] | None = None
+) -> Iterator[subprocess.Popen[str]]:
     """``segreport serve ARGS --port PORT`` in a subprocess until the block ends."""
     process = subprocess.Popen(
         command(*args, "--port", str(port)),
@@ -131,7 +133,7 @@ def running(*args: str, port: int, cwd: Path, env: dict[str, str] | None = None)
                 if time.monotonic() > deadline:
                     pytest.fail("serve did not start listening")
                 time.sleep(0.2)
-        yield
+        yield process
     finally:
         process.terminate()
         try:
@@ -311,3 +313,20 @@ def test_lab_mode_over_http_on_loopback_signs_in(
         assert client.get("/api/users").status_code == 401
         client.post("/api/session", json={"user": "ada", "password": PASSWORD})
         assert client.get("/api/session").json()["roles"] == ["admin"]
+
+
+def test_the_server_log_names_no_patient_or_study(
+    store: tuple[Path, Database], tmp_path: Path
+) -> None:
+    # an access log line would carry the worklist's patient filter and study ids in plain text;
+    # the audit trail records who did what (HIPAA 164.312(b)), so the server keeps no access log
+    port = free_port()
+    with (
+        running("--db", str(store[0]), port=port, cwd=tmp_path) as process,
+        httpx.Client(base_url=f"http://127.0.0.1:{port}") as client,
+    ):
+        client.post("/api/session", json={"user": "ada", "password": PASSWORD})
+        client.get("/api/worklist", params={"patient": "LV-PATIENT-7731"})
+        client.get("/api/studies/STUDY-NAMED-7731")
+    output = process.stdout.read() if process.stdout else ""
+    assert "7731" not in output, output

@@ -247,3 +247,30 @@ def test_locked_sqlite_store_is_a_clear_error(
         with pytest.raises(StoreError, match="locked by another process"), other.write() as session:
             session.execute(text("SELECT 1"))
     other.dispose()
+
+
+def test_the_server_keeps_postgresql_connections_and_commands_do_not(store_url: str) -> None:
+    # SQLAlchemy 2 pooling: a QueuePool keeps connections for the long-running server (a new
+    # PostgreSQL connection per request costs more than the request); a command opens per use
+    from sqlalchemy.pool import NullPool, QueuePool
+
+    service.init_store(
+        store_url, "alice", full_name="Alice", password=PASSWORD, origin=Origin.CLI
+    ).dispose()
+    server = service.open_store(store_url, pooled=True)
+    command = service.open_store(store_url)
+    try:
+        if store_url.startswith("postgresql"):
+            assert isinstance(server.engine.pool, QueuePool)
+            assert isinstance(command.engine.pool, NullPool)
+            for _ in range(3):
+                with server.read() as session:
+                    session.execute(text("SELECT 1"))
+            assert server.engine.pool.checkedin() == 1  # one connection, reused
+        else:  # SQLite engines pool either way (the connection set-up runs once per connection)
+            assert not isinstance(server.engine.pool, NullPool)
+        with server.read() as session:  # and the pooled store is a working store
+            assert session.execute(text("SELECT count(*) FROM users")).scalar_one() == 1
+    finally:
+        server.dispose()
+        command.dispose()

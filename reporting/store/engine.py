@@ -71,11 +71,20 @@ def sqlite_file(url: URL) -> Path | None:
     return Path(url.database)
 
 
-def make_engine(url: URL, *, foreign_keys: bool = True) -> Engine:
-    """An engine for ``url`` with the store's connection setup (see the module docstring)."""
+def make_engine(url: URL, *, foreign_keys: bool = True, pooled: bool = False) -> Engine:
+    """An engine for ``url`` with the store's connection setup (see the module docstring).
+
+    PostgreSQL connections are opened per use for a command (``NullPool``: a command runs a few
+    transactions and exits) and kept in a pool for the long-running server (``pooled``), where a
+    new connection per request would cost more than the request.
+    """
     if url.get_backend_name() == "postgresql":
-        engine = create_engine(url, poolclass=NullPool, connect_args={"connect_timeout": 10})
-        return engine
+        timeout = {"connect_timeout": 10}
+        if pooled:
+            return create_engine(
+                url, pool_size=5, max_overflow=10, pool_pre_ping=True, connect_args=timeout
+            )
+        return create_engine(url, poolclass=NullPool, connect_args=timeout)
     # pooled: the connection set-up below runs once per connection, not once per transaction
     engine = create_engine(url, connect_args={"timeout": BUSY_TIMEOUT_MS / 1000})
 
@@ -99,11 +108,11 @@ def make_engine(url: URL, *, foreign_keys: bool = True) -> Engine:
 class Database:
     """An open store database: reading and (serialised) writing sessions."""
 
-    def __init__(self, url: URL, engine: Engine | None = None) -> None:
+    def __init__(self, url: URL, engine: Engine | None = None, *, pooled: bool = False) -> None:
         self.url = url
         self.shown = shown(url)
         self.dialect = url.get_backend_name()
-        self.engine = engine or make_engine(url)
+        self.engine = engine or make_engine(url, pooled=pooled)
         self._writer = self.engine.execution_options(**{_WRITE: True})
 
     @contextmanager

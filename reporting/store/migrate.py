@@ -72,8 +72,9 @@ def upgrade(url: URL) -> tuple[str | None, str]:
     return before, after
 
 
-def open_database(url: URL) -> Database:
-    """An existing store at ``url`` whose schema is current; refuses anything else."""
+def open_database(url: URL, *, pooled: bool = False) -> Database:
+    """An existing store at ``url`` whose schema is current; refuses anything else
+    (``pooled``: keep PostgreSQL connections open, for the server)."""
     path = sqlite_file(url)
     if path is not None and not path.exists():
         raise StoreError(
@@ -81,7 +82,7 @@ def open_database(url: URL) -> Database:
             "no store here; create one with `segreport store init --admin NAME` "
             "(or name another with --db or SEGREPORT_DB)",
         )
-    db = Database(url)
+    db = Database(url, pooled=pooled)
     with db.read() as session:
         revision = current_revision(session.connection())
     if revision == HEAD:

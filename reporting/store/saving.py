@@ -23,6 +23,7 @@ import re
 from dataclasses import dataclass
 from typing import Any
 
+from sqlalchemy import bindparam, select
 from sqlalchemy.orm import Session
 
 from reporting.errors import InputError
@@ -31,7 +32,7 @@ from reporting.store import content, versions, worklist
 from reporting.store.canonical import Origin, now
 from reporting.store.engine import Database
 from reporting.store.errors import ConflictError, StoreError
-from reporting.store.schema import StudyRow, VersionRow
+from reporting.store.schema import SignatureRow, StudyRow, VersionRow
 from reporting.store.status import VersionStatus, effective_status
 from reporting.store.users import Person, Role
 
@@ -82,6 +83,8 @@ class Opened:
     stored: content.Content
     etag: str
     latest: int
+    signed_record: bytes | None = None
+    """The signed record JSON of a signed version (it holds the comparison signed with it)."""
 
     @property
     def study(self) -> dict[str, Any]:
@@ -94,9 +97,21 @@ def study_json(study: Study) -> dict[str, Any]:
     return value
 
 
+_SIGNATURE_FACTS = select(
+    SignatureRow.signer,
+    SignatureRow.signer_name,
+    SignatureRow.signed_at,
+    SignatureRow.meaning,
+    SignatureRow.record_sha256,
+    SignatureRow.pdf_sha256,
+    SignatureRow.record_json,
+).where(SignatureRow.version_pk == bindparam("pk"))
+
+
 def opened(session: Session, study: StudyRow, row: VersionRow, latest: int | None = None) -> Opened:
     """``row`` read for the page (inside a session)."""
-    sig = versions.signature_of(session, row)
+    # the signature's facts and record, not its PDF (tens of KB the page does not need here)
+    sig = session.execute(_SIGNATURE_FACTS, {"pk": row.id}).first()
     return Opened(
         study_id=study.study_id,
         patient_id=study.patient_id,
@@ -120,6 +135,7 @@ def opened(session: Session, study: StudyRow, row: VersionRow, latest: int | Non
         stored=content.parse(bytes(row.content)),
         etag=etag(row),
         latest=latest if latest is not None else row.version,
+        signed_record=bytes(sig.record_json) if sig is not None else None,
     )
 
 

@@ -19,9 +19,10 @@ from reporting.store.users import Person, Role, authenticate, check_new_password
 log = logging.getLogger(__name__)
 
 
-def open_store(db: str | None) -> Database:
-    """The existing store named by ``--db``, ``$SEGREPORT_DB`` or ``./segreport.db``."""
-    return migrate.open_database(resolve_url(db))
+def open_store(db: str | None, *, pooled: bool = False) -> Database:
+    """The existing store named by ``--db``, ``$SEGREPORT_DB`` or ``./segreport.db``
+    (``pooled``: PostgreSQL connections kept open, for the long-running server)."""
+    return migrate.open_database(resolve_url(db), pooled=pooled)
 
 
 def init_store(

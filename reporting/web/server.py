@@ -210,7 +210,7 @@ def serve_store(
     if certfile is not None and keyfile is not None:
         _check_tls(certfile, keyfile)
     library = load_library(phrases_path) if phrases_path is not None else None
-    database = open_store(db)
+    database = open_store(db, pooled=True)
     secure: bool | None = True if certfile is not None else (None if behind_proxy else False)
     app = create_lab_app(
         database,
@@ -236,6 +236,9 @@ def serve_store(
         ssl_keyfile=str(keyfile) if keyfile is not None else None,
         proxy_headers=behind_proxy,
         forwarded_allow_ips=trusted_proxy if behind_proxy else None,
+        # no access log: its lines name studies and patients (worklist filters) in plain text,
+        # and the store's audit trail already records who did what
+        access_log=False,
     )
     try:
         uvicorn.Server(config).run(sockets=[sock])

@@ -19,7 +19,7 @@ from pydantic import BaseModel, ValidationError
 from reporting.errors import InputError, InputErrors
 from reporting.load import study_from_data
 from reporting.model import Study
-from reporting.store import conflicts, content, history, saving, signing, users, versions, worklist
+from reporting.store import conflicts, content, history, saving, signing, users, worklist
 from reporting.store.canonical import Origin
 from reporting.store.engine import Database
 from reporting.store.errors import AuthError, ConflictError, NotFound
@@ -93,11 +93,8 @@ def view(db: Database, opened: saving.Opened) -> StudyView:
             session, opened.patient_id, opened.stored.study.study.date.isoformat()
         )
         prior, comparison = None, None
-        if opened.signed:  # the comparison the signed record holds
-            _, row = versions.get_version(session, opened.study_id, opened.version)
-            sig = versions.signature_of(session, row)
-            assert sig is not None
-            comparison = json.loads(bytes(sig.record_json)).get("comparison")
+        if opened.signed_record is not None:  # the comparison the signed record holds
+            comparison = json.loads(opened.signed_record).get("comparison")
         else:
             prior = history.prior_of(session, opened.stored)
     if not opened.signed:
