@@ -274,3 +274,28 @@ def test_the_server_keeps_postgresql_connections_and_commands_do_not(store_url: 
     finally:
         server.dispose()
         command.dispose()
+
+
+def test_a_prior_is_read_once_and_an_altered_one_is_refused(db: Database, tmp_path: Path) -> None:
+    # The lab server keeps parsed prior records by their SHA-256 (a signed record never changes);
+    # a record altered in the database after its trigger was dropped must not be used as the
+    # prior, whether or not an earlier copy was kept (21 CFR 11.10(a): detect altered records).
+    import datetime as dt
+
+    from reporting.store import history
+
+    signed_study(db, tmp_path)
+    patient = study_data()["patient"]["id"]
+    later = dt.date(2030, 1, 1)
+    with db.read() as session:
+        first = history.prior_signed(session, patient, later)
+        again = history.prior_signed(session, patient, later)
+    assert first is not None and again is not None
+    assert again.record is first.record  # read and parsed once
+    assert (first.study_id, first.version) == ("DEMO-0001", 1)
+    history._RECORDS.clear()  # a server started after the alteration
+    drop_trigger(db, "signatures")
+    blob = "X'7b7d'" if db.dialect == "sqlite" else "'\\x7b7d'::bytea"  # the bytes of "{}"
+    raw(db, f"UPDATE signatures SET record_json = {blob}")
+    with db.read() as session, pytest.raises(IntegrityFailure, match="does not match its SHA-256"):
+        history.prior_signed(session, patient, later)

@@ -9,18 +9,22 @@ to a version's analysis before it is shown or signed.
 from __future__ import annotations
 
 import datetime as dt
+import threading
+from collections import OrderedDict
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 from sqlalchemy import bindparam, select
+from sqlalchemy.engine import Connection
 from sqlalchemy.orm import Session
 
 from reporting.files import all_or_nothing, write_atomic
 from reporting.results import Analysis
 from reporting.store import content, versions
+from reporting.store.canonical import sha256_hex
 from reporting.store.engine import Database
-from reporting.store.errors import NotFound
+from reporting.store.errors import IntegrityFailure, NotFound
 from reporting.store.schema import EventRow, SignatureRow, StudyRow, VersionRow
 from reporting.store.status import VersionStatus, effective_status
 
@@ -156,18 +160,22 @@ def show(db: Database, study_id: str, number: int | None, outdir: Path) -> list[
 
 @dataclass(frozen=True)
 class PriorStudy:
-    """A patient's earlier signed study."""
+    """A patient's earlier signed study, with its signed record read back."""
 
     study_id: str
     version: int
     study_date: dt.date
-    record_json: bytes
+    record: Analysis
 
 
 def _prior_query(patient_id: Any, before: Any) -> Any:
     return (
         select(
-            StudyRow.study_id, VersionRow.version, VersionRow.study_date, SignatureRow.record_json
+            StudyRow.study_id,
+            VersionRow.version,
+            VersionRow.study_date,
+            SignatureRow.id,
+            SignatureRow.record_sha256,
         )
         .join(VersionRow, VersionRow.study_pk == StudyRow.id)
         .join(SignatureRow, SignatureRow.version_pk == VersionRow.id)
@@ -177,10 +185,43 @@ def _prior_query(patient_id: Any, before: Any) -> Any:
     )
 
 
-def _prior(row: Any) -> PriorStudy | None:
+_RECORD_BYTES = select(SignatureRow.record_json).where(SignatureRow.id == bindparam("pk"))
+_RECORDS: OrderedDict[str, Analysis] = OrderedDict()
+_RECORDS_KEPT = 256
+_records_lock = threading.Lock()
+
+
+def _signed_record(executor: Session | Connection, pk: int, sha256: str) -> Analysis:
+    """The signed record of signature ``pk`` as an :class:`Analysis`, kept by its SHA-256.
+
+    A signed record never changes (the table is append-only), so the lab server reads and parses
+    each prior once, not on every live analysis; keyed by the record's own hash, a record read
+    back always is the one signed. Bytes that do not match their hash are refused, not cached.
+    """
+    with _records_lock:
+        found = _RECORDS.get(sha256)
+        if found is not None:
+            _RECORDS.move_to_end(sha256)
+            return found
+    data = bytes(executor.execute(_RECORD_BYTES, {"pk": pk}).scalar_one())
+    if sha256_hex(data) != sha256:
+        raise IntegrityFailure(
+            f"signature {pk}", "the stored record does not match its SHA-256 (altered)"
+        )
+    record = Analysis.model_validate_json(data)
+    with _records_lock:
+        _RECORDS[sha256] = record
+        while len(_RECORDS) > _RECORDS_KEPT:
+            _RECORDS.popitem(last=False)
+    return record
+
+
+def _prior(executor: Session | Connection, row: Any) -> PriorStudy | None:
     if row is None:
         return None
-    return PriorStudy(row[0], row[1], dt.date.fromisoformat(row[2]), bytes(row[3]))
+    study_id, version, date, pk, sha256 = row
+    record = _signed_record(executor, pk, sha256)
+    return PriorStudy(study_id, version, dt.date.fromisoformat(date), record)
 
 
 _PRIOR_SIGNED = _prior_query(bindparam("patient"), bindparam("before"))
@@ -193,11 +234,10 @@ def prior_signed(session: Session, patient_id: str, before: dt.date) -> PriorStu
     One query on indexed columns: the patient's studies (``studies.patient_id``), their versions
     (``versions.study_pk``) and signatures (``signatures.version_pk``), newest date first.
     """
-    return _prior(
-        session.execute(
-            _PRIOR_SIGNED, {"patient": patient_id, "before": before.isoformat()}
-        ).first()
-    )
+    row = session.execute(
+        _PRIOR_SIGNED, {"patient": patient_id, "before": before.isoformat()}
+    ).first()
+    return _prior(session, row)
 
 
 def _prior_for_statement() -> Any:
@@ -231,12 +271,11 @@ def compared(analysis: Analysis, prior: PriorStudy | None) -> Analysis:
         return analysis
     from reporting.comparison import with_comparison
 
-    before = Analysis.model_validate_json(prior.record_json)
     where = f"prior study {prior.study_id} v{prior.version}"
-    return with_comparison(analysis, before, location=where)
+    return with_comparison(analysis, prior.record, location=where)
 
 
 def prior_for(db: Database, study_id: str) -> PriorStudy | None:
     """The prior study of ``study_id`` (by its latest version's date), if any: one query."""
     with db.connect() as conn:
-        return _prior(conn.execute(_PRIOR_FOR, {"sid": study_id}).first())
+        return _prior(conn, conn.execute(_PRIOR_FOR, {"sid": study_id}).first())
