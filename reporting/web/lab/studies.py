@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import datetime as dt
 import logging
+from collections.abc import Callable
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Query, Request
@@ -31,13 +32,15 @@ from reporting.store import (
     worklist,
 )
 from reporting.store.canonical import Origin
+from reporting.store.engine import Database
 from reporting.store.errors import NotFound
+from reporting.store.users import Person
 from reporting.store.worklist import WorklistStatus
 from reporting.web.api import REFUSED
 from reporting.web.bodies import parse_body
 from reporting.web.lab import live
 from reporting.web.lab import study_views as views
-from reporting.web.lab.access import CallerDep
+from reporting.web.lab.access import Caller, CallerDep
 from reporting.web.lab.study_shapes import (
     AddendumRequest,
     AmendRequest,
@@ -166,6 +169,28 @@ async def save_study(study_id: SafeId, request: Request, who: CallerDep) -> Resp
     return await run_in_threadpool(work)
 
 
+def _signing(
+    request: Request,
+    who: Caller,
+    study_id: str,
+    *,
+    password: str,
+    on_signed: bool,
+    act: Callable[[Database, Person, int], signing.Signed],
+    mine: dict[str, Any] | None = None,
+) -> Response:
+    """The one path of sign, amend and addendum: the version the signer saw (``If-Match``), signed
+    or not as the action needs (``on_signed``), the password again, then ``act``."""
+    db = views.database_of(request)
+    current, refusal = views.precondition(db, study_id, request.headers.get("if-match"), mine)
+    if refusal is not None:
+        return refusal
+    views.must_be_signed(current, on_signed)
+    signer = views.signer(request, who, password)
+    done = act(db, signer, current.version)
+    return JSONResponse(views.signed(db, done).model_dump(mode="json"))
+
+
 @router.post(
     "/api/studies/{study_id}/sign",
     response_model=SignedAnswer,
@@ -174,21 +199,15 @@ async def save_study(study_id: SafeId, request: Request, who: CallerDep) -> Resp
 )
 async def sign_study(study_id: SafeId, request: Request, who: CallerDep) -> Response:
     body = views.validated(SignRequest, parse_body(await request.body(), views.REQUEST))
-    if_match = request.headers.get("if-match")
-    db = views.database_of(request)
 
-    def work() -> Response:
-        current, refusal = views.precondition(db, study_id, if_match)
-        if refusal is not None:
-            return refusal
-        views.must_be_signed(current, False)
-        signer = views.signer(request, who, body.password)
-        done = signing.sign(
-            db, study_id, signer, meaning=body.meaning, origin=WEB, expect_version=current.version
+    def act(db: Database, signer: Person, version: int) -> signing.Signed:
+        return signing.sign(
+            db, study_id, signer, meaning=body.meaning, origin=WEB, expect_version=version
         )
-        return JSONResponse(views.signed(db, done).model_dump(mode="json"))
 
-    return await run_in_threadpool(work)
+    return await run_in_threadpool(
+        lambda: _signing(request, who, study_id, password=body.password, on_signed=False, act=act)
+    )
 
 
 @router.post(
@@ -200,16 +219,9 @@ async def sign_study(study_id: SafeId, request: Request, who: CallerDep) -> Resp
 async def amend_study(study_id: SafeId, request: Request, who: CallerDep) -> Response:
     body = views.validated(AmendRequest, parse_body(await request.body(), views.REQUEST))
     study = views.study_of(body.study)
-    if_match = request.headers.get("if-match")
-    db = views.database_of(request)
 
-    def work() -> Response:
-        current, refusal = views.precondition(db, study_id, if_match, saving.study_json(study))
-        if refusal is not None:
-            return refusal
-        views.must_be_signed(current, True)
-        signer = views.signer(request, who, body.password)
-        done = signing.amend(
+    def act(db: Database, signer: Person, version: int) -> signing.Signed:
+        return signing.amend(
             db,
             study_id,
             signer,
@@ -218,11 +230,15 @@ async def amend_study(study_id: SafeId, request: Request, who: CallerDep) -> Res
             correction=body.correction,
             meaning=body.meaning,
             origin=WEB,
-            expect_version=current.version,
+            expect_version=version,
         )
-        return JSONResponse(views.signed(db, done).model_dump(mode="json"))
 
-    return await run_in_threadpool(work)
+    mine = saving.study_json(study)
+    return await run_in_threadpool(
+        lambda: _signing(
+            request, who, study_id, password=body.password, on_signed=True, act=act, mine=mine
+        )
+    )
 
 
 @router.post(
@@ -233,27 +249,21 @@ async def amend_study(study_id: SafeId, request: Request, who: CallerDep) -> Res
 )
 async def add_addendum(study_id: SafeId, request: Request, who: CallerDep) -> Response:
     body = views.validated(AddendumRequest, parse_body(await request.body(), views.REQUEST))
-    if_match = request.headers.get("if-match")
-    db = views.database_of(request)
 
-    def work() -> Response:
-        current, refusal = views.precondition(db, study_id, if_match)
-        if refusal is not None:
-            return refusal
-        views.must_be_signed(current, True)
-        signer = views.signer(request, who, body.password)
-        done = signing.amend(
+    def act(db: Database, signer: Person, version: int) -> signing.Signed:
+        return signing.amend(
             db,
             study_id,
             signer,
             addendum=body.text,
             reason=body.reason,
             origin=WEB,
-            expect_version=current.version,
+            expect_version=version,
         )
-        return JSONResponse(views.signed(db, done).model_dump(mode="json"))
 
-    return await run_in_threadpool(work)
+    return await run_in_threadpool(
+        lambda: _signing(request, who, study_id, password=body.password, on_signed=True, act=act)
+    )
 
 
 @router.get(
