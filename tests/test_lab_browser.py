@@ -14,16 +14,13 @@ from __future__ import annotations
 import io
 import json
 import re
-import socket
-import threading
-import time
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import pytest
-import uvicorn
+from browser_support import chromium, needs_chromium, serving
 from pypdf import PdfReader
 from store_support import PASSWORD, cheap_argon2, study_data, write_study
 
@@ -35,29 +32,8 @@ from reporting.store.users import Role
 
 __all__ = ["cheap_argon2"]  # fixture used by name
 
-CHROMIUM = Path("/usr/bin/chromium")
-CHROMIUM_ARGS = [
-    "--headless",
-    "--no-sandbox",
-    "--disable-gpu",
-    "--disable-quic",
-    "--no-first-run",
-    "--disable-background-networking",
-    "--disable-component-update",
-    "--disable-sync",
-]
 CLI = Origin.CLI
-
-pytestmark = pytest.mark.skipif(
-    not CHROMIUM.exists(), reason="Debian chromium is not installed at /usr/bin/chromium"
-)
-
-
-def _free_port() -> int:
-    with socket.socket() as sock:
-        sock.bind(("127.0.0.1", 0))
-        port: int = sock.getsockname()[1]
-        return port
+pytestmark = needs_chromium
 
 
 @dataclass
@@ -107,31 +83,15 @@ def lab(tmp_path: Path) -> Iterator[Lab]:
     app = create_lab_app(
         db, settings=default_settings(), allowed_hosts=("127.0.0.1",), secure_cookies=False
     )
-    config = uvicorn.Config(app, host="127.0.0.1", port=_free_port(), log_level="warning")
-    running = uvicorn.Server(config)
-    thread = threading.Thread(target=running.run, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 10
-    while not running.started:
-        if time.monotonic() > deadline or not thread.is_alive():
-            pytest.fail("the lab server did not start")
-        time.sleep(0.02)
-    yield Lab(f"http://127.0.0.1:{config.port}", db)
-    running.should_exit = True
-    thread.join(10)
+    with serving(app, "the lab server") as base:
+        yield Lab(base, db)
     db.dispose()
 
 
 @pytest.fixture
 def browser() -> Iterator[Any]:
-    from playwright.sync_api import sync_playwright
-
-    with sync_playwright() as pw:
-        chromium = pw.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
-        try:
-            yield chromium
-        finally:
-            chromium.close()
+    with chromium() as launched:
+        yield launched
 
 
 def _page(browser: Any, errors: list[str]) -> Any:

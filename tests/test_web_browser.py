@@ -9,62 +9,27 @@ from __future__ import annotations
 
 import io
 import json
-import socket
-import threading
 import time
 from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Any
 
 import pytest
-import uvicorn
+from browser_support import CHROMIUM, CHROMIUM_ARGS, needs_chromium, serving
 from pypdf import PdfReader
 
 from reporting.load import load_study
 from reporting.model import Stage
 from reporting.web import create_app
 
-CHROMIUM = Path("/usr/bin/chromium")
-CHROMIUM_ARGS = [
-    "--headless",
-    "--no-sandbox",
-    "--disable-gpu",
-    "--disable-quic",
-    "--no-first-run",
-    "--disable-background-networking",
-    "--disable-component-update",
-    "--disable-sync",
-]
-
-pytestmark = pytest.mark.skipif(
-    not CHROMIUM.exists(), reason="Debian chromium is not installed at /usr/bin/chromium"
-)
-
-
-def _free_port() -> int:
-    with socket.socket() as sock:
-        sock.bind(("127.0.0.1", 0))
-        port: int = sock.getsockname()[1]
-        return port
+pytestmark = needs_chromium
 
 
 @pytest.fixture
 def server(tmp_path: Path) -> Iterator[tuple[str, Path]]:
     studies = tmp_path / "studies"
-    config = uvicorn.Config(
-        create_app(studies), host="127.0.0.1", port=_free_port(), log_level="warning"
-    )
-    running = uvicorn.Server(config)
-    thread = threading.Thread(target=running.run, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 10
-    while not running.started:
-        if time.monotonic() > deadline or not thread.is_alive():
-            pytest.fail("the entry server did not start")
-        time.sleep(0.02)
-    yield f"http://127.0.0.1:{config.port}", studies
-    running.should_exit = True
-    thread.join(10)
+    with serving(create_app(studies), "the entry server") as base:
+        yield base, studies
 
 
 def _wait_for_file(path: Path, seconds: float = 8) -> None:
