@@ -67,11 +67,14 @@ def analyze_file(
     *,
     settings_path: Path | None = None,
     territory_map: str | Path | None = None,
+    settings: Settings | None = None,
 ) -> Analysis:
-    """Load the study at ``path`` (and any lab map or settings) and analyse it."""
+    """Load the study at ``path`` (and any lab map or settings) and analyse it; ``settings``
+    already loaded (a batch loads them once) replace reading ``settings_path``."""
     path = Path(path)
     study = load_study(path)
-    settings = load_settings(settings_path)
+    if settings is None:
+        settings = load_settings(settings_path)
     curves = None
     if study.perfusion_curves is not None:
         from reporting.kinetics import load_curves  # numpy loads only for studies with curves

@@ -158,12 +158,8 @@ def _parse_scores(value: Any) -> Any:
         text = value.replace(" ", "")
         scores: dict[int, int | None] = {}
         for position, char in enumerate(text, start=1):
-            if char in _SCORE_CHARS:  # the common characters, looked up; the rules below decide
+            if char in _SCORE_CHARS:  # an ASCII digit, or x / X for not visualised
                 scores[position] = _SCORE_CHARS[char]
-            elif char.lower() == NOT_VISUALISED:
-                scores[position] = None
-            elif char.isdigit() and char.isascii():
-                scores[position] = int(char)
             else:
                 raise PydanticCustomError(
                     "score_character",

@@ -274,3 +274,36 @@ def test_prior_study_is_the_latest_earlier_signed_study_of_the_patient(
     prior = history.prior_for(db, "P-3")
     assert prior is not None and (prior.study_id, str(prior.study_date)) == ("P-2", "2025-05-02")
     assert history.prior_for(db, "P-1") is None
+
+
+def test_a_user_without_the_role_is_refused_even_with_no_roles_at_all(db: Database) -> None:
+    # 21 CFR 11.10(g) authority checks: a role check must not pass for a user who holds no role
+    with db.write() as session:
+        users.create(
+            session,
+            "nora",
+            full_name="Nora Example",
+            roles=(),
+            password=PASSWORD,
+            temporary=False,
+            actor="alice",
+            origin=CLI,
+        )
+    assert users.authenticate(db, "nora", PASSWORD, origin=CLI).roles == frozenset()
+    with pytest.raises(AuthError, match="needs the reader role"):  # bad: no role, signing
+        users.authenticate(db, "nora", PASSWORD, role=users.Role.READER, origin=CLI)
+
+
+def test_an_admin_password_reset_unlocks_the_account(db: Database) -> None:
+    # the reset's documented promise: a locked-out user gets in with the temporary password
+    users.add(
+        db, "bob", full_name="Bob", roles=[users.Role.READER], password=PASSWORD,
+        actor="alice", origin=CLI,
+    )  # fmt: skip
+    for _ in range(default_settings().lockout_failures):
+        with pytest.raises(AuthError):  # bad: wrong passwords until the account locks
+            users.authenticate(db, "bob", "not bob's password", origin=CLI)
+    with pytest.raises(AuthError, match="locked"):
+        users.authenticate(db, "bob", PASSWORD, origin=CLI)
+    users.set_password(db, "bob", "temporary pass 9", temporary=True, actor="alice", origin=CLI)
+    assert users.authenticate(db, "bob", "temporary pass 9", origin=CLI).must_change_password

@@ -11,6 +11,7 @@ from __future__ import annotations
 import logging
 import os
 from collections.abc import Sequence
+from functools import cache
 from pathlib import Path
 from typing import Any
 
@@ -24,6 +25,7 @@ from reporting.export import tables
 from reporting.export.record import record_json
 from reporting.files import all_or_nothing, write_atomic
 from reporting.results import Analysis
+from reporting.settings import Settings, default_settings, load_settings
 
 log = logging.getLogger(__name__)
 
@@ -96,11 +98,29 @@ def process_study(
         return failed(Problem("", f"internal error: {type(exc).__name__}: {exc}"))
 
 
+def _lab_settings(path: Path | None) -> Settings:
+    """The batch's lab settings, read once per worker while the file stays the same."""
+    if path is None:
+        return default_settings()
+    try:
+        info = path.stat()
+    except OSError:
+        return load_settings(path)  # says what is wrong with it, located
+    return _settings_of(path, (info.st_ino, info.st_size, info.st_mtime_ns))
+
+
+@cache
+def _settings_of(path: Path, _version: tuple[int, int, int]) -> Settings:
+    return load_settings(path)
+
+
 def _analyse(path: Path, options: BatchOptions) -> Analysis:
     from reporting.analysis import analyze_file
 
     analysis = analyze_file(
-        path, settings_path=options.settings_path, territory_map=options.territory_map
+        path,
+        territory_map=options.territory_map,
+        settings=_lab_settings(options.settings_path),
     )
     if options.deidentify:
         from reporting.deidentify import deidentify
@@ -141,10 +161,9 @@ def _write_outputs(analysis: Analysis, options: BatchOptions) -> dict[str, str]:
             written = {record: text, **written}
         if options.fhir:
             from reporting.export.fhir import bundle_json
-            from reporting.settings import load_settings
 
             # the lab's code and identifier systems come from its settings file, as in `fhir`
-            settings = load_settings(options.settings_path)
+            settings = _lab_settings(options.settings_path)
             bundle = bundle_json(analysis, pdf=written.get(pdf_path), settings=settings).encode()
             write_atomic(fhir_path, bundle)
             written[fhir_path] = bundle

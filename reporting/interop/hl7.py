@@ -31,14 +31,9 @@ from reporting.segments import SegmentModel
 log = logging.getLogger(__name__)
 
 SEGMENT_SEPARATOR = "\r"
-RESULT_STATUS = {
-    ReportState.PRELIMINARY: "P",
-    ReportState.FINAL: "F",
-    ReportState.AMENDED: "C",
-    ReportState.CORRECTED: "C",
-    ReportState.APPENDED: "C",
-}
-"""OBR-25 / OBX-11 result status (HL7 tables 0123 and 0085) [S]."""
+RESULT_STATUS = {ReportState.PRELIMINARY: "P", ReportState.FINAL: "F"}
+"""OBR-25 / OBX-11 result status (HL7 tables 0123 and 0085) [S]; every state that replaces a
+released version (:attr:`ReportState.replaces`) is C, a correction."""
 _SEX = {Sex.FEMALE: "F", Sex.MALE: "M", Sex.OTHER: "O"}
 _ESCAPES = (("\\", "\\E\\"), ("|", "\\F\\"), ("^", "\\S\\"), ("&", "\\T\\"), ("~", "\\R\\"))
 
@@ -79,7 +74,7 @@ class _Message:
     def __init__(self, analysis: Analysis, release: Release, at: dt.datetime) -> None:
         self.a = analysis
         self.release = release
-        self.status = RESULT_STATUS[release.state]
+        self.status = "C" if release.state.replaces else RESULT_STATUS[release.state]
         self.at = at
         self.segments: list[str] = []
         self.obx_count = 0

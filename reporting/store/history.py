@@ -143,13 +143,15 @@ def show(db: Database, study_id: str, number: int | None, outdir: Path) -> list[
         sig = versions.signature_of(session, row)
         data, number = bytes(row.content), row.version
         signed = (bytes(sig.record_json), bytes(sig.pdf)) if sig is not None else None
-        prior = prior_of(session, content.parse(data)) if sig is None else None
+        stored = content.parse(data) if sig is None else None
+        prior = prior_of(session, stored) if stored is not None else None
     stem = outdir / f"{study_id}.v{number}"
     if signed is None:
         from reporting.export.record import record_json
         from reporting.render.pdf import pdf_bytes
 
-        analysis = compared(content.analyse(content.parse(data), final=False), prior)
+        assert stored is not None
+        analysis = compared(content.analyse(stored, final=False), prior)
         signed = (record_json(analysis).encode(), pdf_bytes(analysis))
     paths = [Path(f"{stem}.study.json"), Path(f"{stem}.record.json"), Path(f"{stem}.pdf")]
     with all_or_nothing(paths):

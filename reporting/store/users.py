@@ -202,13 +202,14 @@ def authenticate(
                 user.locked,
                 user.locked_until,
                 person(user),
+                user.failed_attempts,
             )
         )
     if found is None:
         _waste_time(password)
         _failure(db, name, "unknown user", origin, lab, failed_action, address, known=False)
         raise AuthError(where, "unknown user (or wrong password)")
-    stored, locked, lock_ran_out, locked_until, who = found
+    stored, locked, lock_ran_out, locked_until, who, failures = found
     if locked:
         _waste_time(password)
         _failure(db, name, "locked", origin, lab, failed_action, address, known=True, counts=False)
@@ -224,8 +225,11 @@ def authenticate(
         )
         suffix = "; the account is now locked" if now_locked else ""
         raise AuthError(where, f"wrong password{suffix}") from None
-    if who.roles and role is not None and role not in who.roles:
+    if role is not None and role not in who.roles:
         raise AuthError(where, f"needs the {role.value} role to do this")
+    rehash = hasher().check_needs_rehash(stored)
+    if not (failures or lock_ran_out or rehash):
+        return who  # nothing to record: no write transaction (it would take the append lock)
     with db.write() as session:
         user = find(session, name)
         assert user is not None
@@ -234,7 +238,7 @@ def authenticate(
         if lock_ran_out:  # a time-limited lock that has run out
             user.locked = False
             user.locked_until = None
-        if hasher().check_needs_rehash(stored):
+        if rehash:
             user.password_hash = hasher().hash(password)
     return who
 
@@ -325,6 +329,7 @@ def set_password(
         user.password_hash = hash_password(password, f"user {name}")
         user.must_change_password = temporary
         user.failed_attempts = 0
+        user.locked, user.locked_until = False, None
         from reporting.store.sessions import EndReason, revoke_user
 
         revoke_user(session, name, EndReason.PASSWORD)

@@ -29,7 +29,8 @@ SECURITY_HEADERS = {
     "x-frame-options": "DENY",
     "cache-control": "no-store",
 }
-_WRITES = frozenset({"POST", "PUT", "PATCH", "DELETE"})
+WRITES = frozenset({"POST", "PUT", "PATCH", "DELETE"})
+"""Methods that change something (the checks on writes apply to them)."""
 
 
 async def _refuse(send: Send, status: int, detail: str) -> None:
@@ -92,7 +93,7 @@ class Guard:
             return
         method = scope["method"]
         kind = (_header(scope, b"content-type") or "").split(";", 1)[0].strip().lower()
-        if method in _WRITES and kind not in ("application/json", ""):
+        if method in WRITES and kind not in ("application/json", ""):
             await _refuse(
                 send, 415, "send the request body as JSON (Content-Type: application/json)"
             )

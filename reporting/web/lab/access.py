@@ -37,6 +37,8 @@ from reporting.store import audit
 from reporting.store.canonical import Origin
 from reporting.store.sessions import Live, Refused
 from reporting.store.users import Person, Role
+from reporting.web.guard import WRITES
+from reporting.web.handlers import refused
 from reporting.web.lab.context import (
     CSRF_HEADER,
     clear_session_cookie,
@@ -101,7 +103,6 @@ SESSION_ROUTES = frozenset({("GET", "/api/session"), ("DELETE", "/api/session")}
     ("PUT", "/api/session/password")
 }
 """What a user with a temporary password may still do."""
-WRITES = frozenset({"POST", "PUT", "PATCH", "DELETE"})
 
 
 @dataclass(frozen=True)
@@ -134,10 +135,6 @@ def route_key(router: Router, scope: Scope) -> tuple[str, str] | None:
         if match == Match.FULL:
             return method, str(getattr(route, "path", ""))
     return None
-
-
-def _refusal(status: int, detail: str) -> JSONResponse:
-    return JSONResponse({"detail": detail, "problems": []}, status_code=status)
 
 
 class AccessCheck:
@@ -184,7 +181,7 @@ class AccessCheck:
 
         checked, refusal = await run_in_threadpool(decide)
         if isinstance(checked, Refused):
-            response = _refusal(401, checked.why)
+            response = refused(401, checked.why, [])
             clear_session_cookie(response, request)
             await response(scope, receive, send)
             return
@@ -206,23 +203,26 @@ class AccessCheck:
         method, path = key
         if key not in self.access:
             log.error("route %s %s is missing from ACCESS: refused", method, path)
-            return _refusal(403, f"{method} {path} is not open to anyone (not in the access table)")
+            return refused(
+                403, f"{method} {path} is not open to anyone (not in the access table)", []
+            )
         allowed = self.access[key] or frozenset()
         who = live.person
         if not who.roles & allowed:
             self._audit(request, "forbidden", who.name, address, method, path)
             needed = " or ".join(sorted(r.value for r in allowed))
-            return _refusal(403, f"{method} {path} needs the role {needed}")
+            return refused(403, f"{method} {path} needs the role {needed}", [])
         if method in WRITES and key != SIGN_IN:
             lab = lab_of(request)
             if not lab.sessions.csrf_ok(live, request.headers.get(CSRF_HEADER)):
                 self._audit(request, "csrf_refused", who.name, address, method, path)
-                return _refusal(
+                return refused(
                     403,
                     "the request lacks this session's CSRF token (X-CSRF-Token); reload the page",
+                    [],
                 )
         if who.must_change_password and key not in SESSION_ROUTES:
-            return _refusal(403, "change your temporary password first")
+            return refused(403, "change your temporary password first", [])
         return None
 
     @staticmethod

@@ -11,7 +11,6 @@ study workflow (:mod:`.studies`, when present). Under TLS the page also sends
 
 from __future__ import annotations
 
-import importlib
 import logging
 from collections.abc import Callable
 
@@ -30,7 +29,7 @@ from reporting.store.sessions import Clock, WebSessions, utc_now
 from reporting.web import guard, pages
 from reporting.web.api import Problem, problem_of
 from reporting.web.handlers import add_error_handlers, refused, use_study_openapi
-from reporting.web.lab import admin, auth
+from reporting.web.lab import admin, auth, studies
 from reporting.web.lab.access import AccessCheck
 from reporting.web.lab.context import Lab
 from reporting.web.lab.throttle import AddressThrottle
@@ -39,8 +38,6 @@ from reporting.wording import CAUTIONS
 log = logging.getLogger(__name__)
 
 HSTS = "max-age=31536000"
-OPTIONAL_ROUTERS = ("reporting.web.lab.studies",)
-"""Routers included when their module exists (each has a module-level ``router``)."""
 
 
 def _located(problem: InputError | ReportingError) -> Problem:
@@ -126,18 +123,12 @@ def create_lab_app(
 
     add_router(app, auth.router)
     add_router(app, admin.router)
-    for name in OPTIONAL_ROUTERS:
-        try:
-            module = importlib.import_module(name)
-        except ModuleNotFoundError as exc:
-            if exc.name != name:
-                raise
-            continue
-        add_router(app, module.router)
+    add_router(app, studies.router)
+    page = pages.lab_page()  # the same for everyone (no person or study in it): rendered once
 
     @app.get("/", response_class=HTMLResponse, include_in_schema=False)
     async def lab_page() -> HTMLResponse:
-        return HTMLResponse(pages.lab_page())
+        return HTMLResponse(page)
 
     use_study_openapi(app)
     return app
