@@ -44,7 +44,7 @@ from typing import Any
 from pydantic import BaseModel
 
 from reporting.errors import ReportingError
-from reporting.results import Analysis, TerritoryMapInfo
+from reporting.results import DERIVED_FIELDS, Analysis, TerritoryMapInfo
 from reporting.segments import BUILT_IN_MAPS, built_in_map
 
 log = logging.getLogger(__name__)
@@ -73,6 +73,10 @@ ALLOW_LIST = "deidentify_fields.csv"
 """The allow-list, in ``reporting/data``."""
 ALLOW_LIST_PATH = f"reporting/data/{ALLOW_LIST}"
 RECORD = "record"
+RECOMPUTED = "recomputed"
+"""The rule of a computed record field that may hold identifying detail (the computed impression
+text may quote a lab map's title or reveal an age over 89): the de-identified copy leaves it out and
+makes it again from its own de-identified values."""
 UNLESS_KEEP_TEXT = "unless_keep_text"
 """Rule of a dropped free-text field that ``--keep-text`` keeps."""
 
@@ -157,6 +161,8 @@ def record_fields(model: type[BaseModel] = Analysis, prefix: str = "") -> dict[s
             found.update(record_fields(nested, path + "."))
         else:
             found[path] = info.annotation
+    for name, computed in model.model_computed_fields.items():
+        found[prefix + name] = computed.return_type
     return found
 
 
@@ -203,12 +209,21 @@ def _rule_problems(
     problems = []
     record = rule.scope == RECORD
     if rule.treatment is Treatment.GENERALISED:
-        if record and rule.rule not in GENERALISERS:
+        if record and rule.rule not in GENERALISERS and rule.rule != RECOMPUTED:
             problems.append(f"{where}: unknown rule {rule.rule!r} (see GENERALISERS)")
         if not record:
             source = table.get((RECORD, rule.rule.removeprefix(f"{RECORD}:")))
             if source is None or source.treatment is not Treatment.GENERALISED:
                 problems.append(f"{where}: rule must be record:<a generalised record field>")
+    derived = record and rule.field in DERIVED_FIELDS
+    recomputed = rule.treatment is Treatment.GENERALISED and rule.rule == RECOMPUTED
+    if (derived and not (recomputed or rule.treatment is Treatment.KEPT)) or (
+        recomputed and not derived
+    ):
+        problems.append(
+            f"{where}: a field made from the rest of the record is kept or generalised "
+            f"'{RECOMPUTED}', and only such a field is '{RECOMPUTED}'"
+        )
     if record and rule.treatment is Treatment.DROPPED:
         empty_ok = _allows_none(annotation) or typing.get_origin(annotation) in (list, dict)
         if not empty_ok:
@@ -303,13 +318,7 @@ def deidentify(analysis: Analysis, key: bytes, *, keep_text: bool = False) -> An
     if analysis.study.deidentified:
         return analysis
     context = _Context(analysis, key, keep_text)
-    result = Analysis.model_validate(_apply(analysis, "", context))
-    # The computed findings text names the territory map and quotes heart-rate figures that can
-    # give a withheld age back: the walk empties it, and it is written again from the
-    # de-identified values.
-    from reporting.render.narrative import computed_impression_text
-
-    return result.model_copy(update={"computed_impression": computed_impression_text(result)})
+    return Analysis.model_validate(_apply(analysis, "", context))
 
 
 def _apply(model: BaseModel, prefix: str, context: _Context) -> dict[str, Any]:
@@ -330,6 +339,13 @@ def _apply(model: BaseModel, prefix: str, context: _Context) -> dict[str, Any]:
             out[name] = value if keep else _empty(info.annotation)
         else:
             out[name] = GENERALISERS[rule.rule](value, context)
+    for name in type(model).model_computed_fields:
+        rule = table.get((RECORD, prefix + name))
+        if rule is None:
+            raise UnclassifiedFieldError(_missing_line(RECORD, prefix + name, str))
+        if rule.treatment is Treatment.KEPT:
+            out[name] = getattr(model, name)
+        # else RECOMPUTED: left out, so the copy makes it again from its de-identified values
     return out
 
 
@@ -390,9 +406,6 @@ GENERALISERS: dict[str, Callable[[Any, _Context], Any]] = {
     "territory_map_title": lambda v, c: c.territory_map.title,
     "territory_map_source": lambda v, c: c.territory_map.source,
     "curve_file_replaced": _curve_file_replaced,
-    # Computed text that may quote a lab map's title or reveal an age over 89: emptied here and
-    # written again from the de-identified analysis (see deidentify()).
-    "recomputed": lambda v, c: "",
 }
 """The rules a ``generalised`` record field may name in ``data/deidentify_fields.csv``."""
 

@@ -183,33 +183,32 @@ def _scores_text(items: tuple[tuple[Stage, int | None], ...]) -> str:
     return f"{{{','.join(pairs)}}}"
 
 
-def impression_status(analysis: Analysis, current_sha256: str) -> ImpressionStatus:
+def impression_status(analysis: Analysis) -> ImpressionStatus:
     """Compare the study's basis hash with the findings computed now."""
     study = analysis.study
     basis = study.impression_basis_sha256
     if basis is None:
         written = bool((study.impression or "").strip() or (study.recommendations or "").strip())
         return ImpressionStatus.UNCONFIRMED if written else ImpressionStatus.NONE
-    return ImpressionStatus.CURRENT if basis == current_sha256 else ImpressionStatus.STALE
+    return ImpressionStatus.CURRENT if basis == analysis.findings_sha256 else ImpressionStatus.STALE
 
 
 def with_impression_state(analysis: Analysis) -> Analysis:
-    """``analysis`` with its computed impression, findings hash and impression status filled in."""
-    from reporting.render.narrative import computed_impression_text
+    """``analysis`` with its impression status filled in.
 
-    digest = findings_sha256(analysis)
-    status = impression_status(analysis, digest)
+    The findings hash is made (and kept on the analysis) only when the study holds a basis to
+    compare it with; the computed impression text is made when first read (see
+    :class:`~reporting.results.Analysis`).
+    """
+    status = impression_status(analysis)
+    if status is ImpressionStatus.NONE:
+        return analysis
     if status is ImpressionStatus.STALE:
         log.info(
             "%s: the reader's impression was written against earlier findings", analysis.study.id
         )
-    return analysis.model_copy(
-        update={
-            "computed_impression": computed_impression_text(analysis),
-            "findings_sha256": digest,
-            "impression_status": status,
-        }
-    )
+    # model_copy carries the hash already made (it lives in the instance's __dict__)
+    return analysis.model_copy(update={"impression_status": status})
 
 
 def impression_is_stale(analysis: Analysis) -> bool:
@@ -233,10 +232,9 @@ def confirm_impression(study: Study, analysis: Analysis) -> Study:
     """
     if analysis.study.id != study.study.id:
         raise ValueError(f"analysis of {analysis.study.id} does not belong to {study.study.id}")
-    digest = analysis.findings_sha256 or findings_sha256(analysis)
-    text = analysis.computed_impression
-    if not text:
-        from reporting.render.narrative import computed_impression_text
-
-        text = computed_impression_text(analysis)
-    return study.model_copy(update={"impression_basis_sha256": digest, "computed_impression": text})
+    return study.model_copy(
+        update={
+            "impression_basis_sha256": analysis.findings_sha256,
+            "computed_impression": analysis.computed_impression,
+        }
+    )

@@ -10,9 +10,17 @@ from __future__ import annotations
 
 import datetime as dt
 from enum import StrEnum
-from typing import Any, Literal
+from functools import cached_property
+from typing import Any, Literal, cast
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    ValidatorFunctionWrapHandler,
+    computed_field,
+    model_validator,
+)
 
 from reporting.comparison import Comparison
 from reporting.kinetics.models import KineticsResult
@@ -604,17 +612,6 @@ class Analysis(_Result):
         "vasodilator agent, image quality.",
     )
     conclusion: Conclusion = Field(description="Conclusions and high-risk findings.")
-    computed_impression: str = Field(
-        default="",
-        description="The computed findings as text (headline and impression by territory): the "
-        "draft the reader accepts, edits or replaces.",
-    )
-    findings_sha256: str = Field(
-        default="",
-        description="SHA-256 (hex) of the canonical form of the findings computed now "
-        "(reporting.impression.findings_basis: scores, responses and conclusion codes as sorted "
-        "compact JSON, no floats).",
-    )
     impression_status: ImpressionStatus = Field(
         default=ImpressionStatus.NONE,
         description="none, current, stale (written against earlier findings) or unconfirmed.",
@@ -631,3 +628,48 @@ class Analysis(_Result):
         "study id and date, WMSI per stage then and now, change per territory, changed segments); "
         "null when no prior study is known.",
     )
+
+    # Derived from the fields above, made on first use and kept (a cached property keeps its value
+    # in the instance's __dict__, which a frozen model still has): an analysis used for tables, QA
+    # or agreement never words its findings. A record read back keeps the values it was written
+    # with (see _stored_derived), so a signed record is never reworded by a later version.
+
+    @computed_field(  # type: ignore[prop-decorator]
+        description="The computed findings as text (headline and impression by territory): the "
+        "draft the reader accepts, edits or replaces."
+    )
+    @cached_property
+    def computed_impression(self) -> str:
+        from reporting.render.narrative import computed_impression_text
+
+        return computed_impression_text(self)
+
+    @computed_field(  # type: ignore[prop-decorator]
+        description="SHA-256 (hex) of the canonical form of the findings computed now "
+        "(reporting.impression.findings_basis: scores, responses and conclusion codes as sorted "
+        "compact JSON, no floats)."
+    )
+    @cached_property
+    def findings_sha256(self) -> str:
+        from reporting.impression import findings_sha256
+
+        return findings_sha256(self)
+
+    @model_validator(mode="wrap")
+    @classmethod
+    def _stored_derived(cls, data: Any, handler: ValidatorFunctionWrapHandler) -> Analysis:
+        """A record read back keeps its written computed impression and findings hash."""
+        if not isinstance(data, dict) or not DERIVED_FIELDS.intersection(data):
+            return cast(Analysis, handler(data))
+        rest = {k: v for k, v in data.items() if k not in DERIVED_FIELDS}
+        stored = {k: data[k] for k in DERIVED_FIELDS if k in data}
+        for name, value in stored.items():
+            if not isinstance(value, str):
+                raise ValueError(f"{name}: expected text, got {type(value).__name__}")
+        analysis = cast(Analysis, handler(rest))
+        analysis.__dict__.update(stored)  # what cached_property would have stored
+        return analysis
+
+
+DERIVED_FIELDS = frozenset(Analysis.model_computed_fields)
+"""Record keys made from the rest of the analysis on first use (Analysis's computed fields)."""

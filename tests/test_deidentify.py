@@ -28,7 +28,9 @@ from reporting.deidentify import (
     pseudonymous_study_id,
 )
 from reporting.errors import ReportingError
+from reporting.export.record import record_dict
 from reporting.model import Stage
+from reporting.results import Analysis
 
 KEY = b"an invented key for tests only, 32+ bytes"
 ROOT = Path(__file__).parent.parent
@@ -317,6 +319,16 @@ def test_ages_over_89_are_grouped_with_everything_that_reveals_them(tmp_path: Pa
     assert all(h.hr_percent_of_predicted is None for h in clean.haemodynamics.values())
     assert "93" not in s.adequacy_note and "127" not in s.adequacy_note
     assert s.adequate == original.stress.adequate
+    # the computed impression is made again from the de-identified values, never carried over
+    from reporting.render.narrative import computed_impression_text
+
+    assert clean.computed_impression == computed_impression_text(clean)
+    assert clean.findings_sha256 == original.findings_sha256  # scores and codes only
+    # a record read back with words that quote the age is never carried into the copy
+    quoted = "Aged 93, target 127 bpm not reached."
+    stored = Analysis.model_validate(record_dict(original) | {"computed_impression": quoted})
+    assert stored.computed_impression == quoted
+    assert deidentify(stored, KEY).computed_impression == clean.computed_impression
 
 
 def test_curve_file_name_is_removed_from_kinetics() -> None:

@@ -157,3 +157,49 @@ def test_findings_hash_of_a_record_is_recomputable() -> None:
     analysis = _analyse(_data("DEMO-0003"))
     assert findings_sha256(analysis) == analysis.findings_sha256
     assert analysis.computed_impression.splitlines()[0].startswith("Viability:")
+
+
+def test_derived_values_are_made_on_first_use_only() -> None:
+    # An analysis used for tables, QA or agreement never words its findings: the computed
+    # impression and the findings hash are cached properties, made when first read (common
+    # practice: functools.cached_property keeps the value in the instance's __dict__).
+    analysis = _analyse(_data("DEMO-0002"))
+    assert "computed_impression" not in vars(analysis)
+    assert "findings_sha256" not in vars(analysis)
+    text = analysis.computed_impression
+    assert vars(analysis)["computed_impression"] == text
+    assert record_dict(analysis)["findings_sha256"] == vars(analysis)["findings_sha256"]
+
+
+def test_a_study_with_a_basis_is_hashed_at_analysis() -> None:
+    confirmed = confirm_impression(
+        study_from_data(_data("DEMO-0001") | {"impression": WORDS}),
+        _analyse(_data("DEMO-0001")),
+    )
+    analysis = analyze(confirmed)
+    assert analysis.impression_status is ImpressionStatus.CURRENT
+    assert vars(analysis)["findings_sha256"] == confirmed.impression_basis_sha256
+
+
+def test_a_record_read_back_keeps_its_written_derived_values() -> None:
+    # A signed record is never reworded by a later version of the wording: the values it was
+    # written with are the ones read back, even where today's wording or hash would differ.
+    written = record_dict(_analyse(_data("DEMO-0002")))
+    written |= {"computed_impression": "Words of an earlier version.", "findings_sha256": "0" * 64}
+    read = Analysis.model_validate_json(json.dumps(written))
+    assert read.computed_impression == "Words of an earlier version."
+    assert read.findings_sha256 == "0" * 64
+    assert record_dict(read) == written
+    # a record without them (as written before they existed) makes them from its own values
+    older = {
+        k: v for k, v in written.items() if k not in ("computed_impression", "findings_sha256")
+    }
+    remade = Analysis.model_validate(older)
+    assert remade.findings_sha256 == findings_sha256(remade)
+
+
+@pytest.mark.parametrize("key", ["computed_impression", "findings_sha256"])
+def test_a_record_with_a_derived_value_that_is_not_text_is_refused(key: str) -> None:
+    written = record_dict(_analyse(_data("DEMO-0002"))) | {key: 7}
+    with pytest.raises(ValueError, match=f"{key}: expected text, got int"):
+        Analysis.model_validate(written)

@@ -41,4 +41,5 @@ def analysis_response(result: AnalyzeResult) -> JSONResponse:
     """``result`` as JSON, its record exactly as the command line writes it."""
     from reporting.export.record import record_dict
 
-    return JSONResponse(result.model_dump(mode="json") | {"record": record_dict(result.record)})
+    answer = result.model_dump(mode="json", exclude={"record"})
+    return JSONResponse(answer | {"record": record_dict(result.record)})
