@@ -203,6 +203,13 @@ class Settings(BaseModel):
         description="Lab mode (`serve --db`): minutes without a request after which a signed-in "
         "session ends and the user signs in again (automatic logoff).",
     )
+    session_max_hours: int = Field(
+        default=12,
+        ge=1,
+        le=7 * 24,
+        description="Lab mode (`serve --db`): hours after sign-in at which a session ends however "
+        "active it is (absolute timeout), so a stolen or forgotten session cannot live on.",
+    )
     lockout_failures: int = Field(
         default=5,
         ge=1,

@@ -219,6 +219,28 @@ def test_idle_session_ends_after_the_lab_setting_and_is_audited(db: Database) ->
     assert events(db, "session_expired")[0]["detail"]["idle_minutes"] == 20
 
 
+def test_a_session_ends_at_the_absolute_timeout_however_active(db: Database) -> None:
+    # OWASP Session Management Cheat Sheet: an absolute timeout bounds a session whatever the
+    # activity (a stolen or forgotten session cannot live on by being used)
+    start = dt.datetime(2026, 12, 2, 7, 0, tzinfo=dt.UTC)
+    now = [start]
+    lab = default_settings().model_copy(update={"session_max_hours": 3})
+    client = lab_client(db, settings=lab, clock=lambda: now[0])
+    sign_in(client, "rita")
+    for minutes in range(10, 3 * 60, 10):  # busy all along: never idle
+        now[0] = start + dt.timedelta(minutes=minutes)
+        assert client.get("/api/session").status_code == 200
+    now[0] = start + dt.timedelta(hours=3, minutes=1)
+    answer = client.get("/api/session")
+    assert answer.status_code == 401
+    assert answer.json()["detail"] == "signed out 3 hours after signing in; sign in again"
+    (row,) = session_rows(db, "rita")
+    assert row.end_reason == "lifetime"
+    assert events(db, "session_expired")[0]["detail"]["max_hours"] == 3
+    sign_in(client, "rita")  # signing in again gives a new session
+    assert client.get("/api/session").status_code == 200
+
+
 def test_activity_keeps_a_session_alive_and_last_seen_is_written_sparingly(db: Database) -> None:
     start = dt.datetime(2026, 12, 2, 9, 0, tzinfo=dt.UTC)
     now = [start]

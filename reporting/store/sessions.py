@@ -4,7 +4,8 @@ A signed-in browser holds a random token (:func:`secrets.token_urlsafe`, 256 bit
 the store keeps only the token's SHA-256, so a copy of the database does not hand out live
 sessions. A new token is made at every sign-in (never one the browser brought: session fixation)
 and a session ends for good at sign-out, after :attr:`Settings.session_idle_minutes` without a
-request (automatic logoff), at a password change or reset and when the account is locked — a
+request (automatic logoff), :attr:`Settings.session_max_hours` after sign-in however active
+(absolute timeout), at a password change or reset and when the account is locked — a
 signed client-side cookie could not be revoked like this (OWASP Session Management Cheat Sheet:
 session ID entropy, renewal after authentication, server-side expiration; HIPAA 45 CFR
 164.312(a)(2)(iii) automatic logoff).
@@ -63,6 +64,8 @@ class EndReason(StrEnum):
     """The user signed out."""
     IDLE = "idle"
     """No request for longer than the idle timeout."""
+    LIFETIME = "lifetime"
+    """Signed in longer than the absolute timeout, however active."""
     REPLACED = "replaced"
     """The browser signed in again: its old session ends (a new token is issued)."""
     PASSWORD = "password"
@@ -159,11 +162,15 @@ class Refused:
 
 
 class WebSessions:
-    """The sessions of one store, with the lab's idle timeout (``clock`` is for tests)."""
+    """The sessions of one store, with the lab's idle and absolute timeouts (``clock`` is for
+    tests)."""
 
-    def __init__(self, db: Database, *, idle_minutes: int, clock: Clock = utc_now) -> None:
+    def __init__(
+        self, db: Database, *, idle_minutes: int, max_hours: int, clock: Clock = utc_now
+    ) -> None:
         self.db = db
         self.idle = dt.timedelta(minutes=idle_minutes)
+        self.lifetime = dt.timedelta(hours=max_hours)
         self.clock = clock
         self._csrf_key: bytes | None = None
 
@@ -221,8 +228,9 @@ class WebSessions:
         return Opened(token=token, csrf_token=csrf, token_sha256=hashed)
 
     def check(self, token: str | None, address: str) -> Live | Refused:
-        """The live session of ``token``; an idle one ends here (audited ``session_expired``),
-        and an ended one used again is refused and audited (``session_refused``)."""
+        """The live session of ``token``; an idle one, or one signed in longer than the absolute
+        timeout, ends here (audited ``session_expired``), and an ended one used again is refused
+        and audited (``session_refused``)."""
         if not token:
             return Refused("sign in first")
         hashed = token_hash(token)
@@ -233,6 +241,7 @@ class WebSessions:
                 return Refused("sign in first")
             row, user = found
             ended, reason, last_seen = row.ended_at, row.end_reason, parse(row.last_seen_at)
+            created = parse(row.created_at)
             live = Live(
                 token_sha256=hashed,
                 person=person(user),
@@ -243,9 +252,13 @@ class WebSessions:
             self._audit_refused(live, reason or "", address)
             return Refused("this session has ended; sign in again")
         if moment - last_seen > self.idle:
-            self._expire(live, address, moment)
             minutes = int(self.idle.total_seconds() // 60)
+            self._expire(live, address, moment, EndReason.IDLE, {"idle_minutes": minutes})
             return Refused(f"signed out after {minutes} minutes without activity; sign in again")
+        if moment - created > self.lifetime:
+            hours = int(self.lifetime.total_seconds() // 3600)
+            self._expire(live, address, moment, EndReason.LIFETIME, {"max_hours": hours})
+            return Refused(f"signed out {hours} hours after signing in; sign in again")
         if (moment - last_seen).total_seconds() >= TOUCH_SECONDS:
             with self.db.write() as session:
                 session.execute(
@@ -271,7 +284,14 @@ class WebSessions:
                 detail={"address": address, "session": token_sha256[:16]},
             )
 
-    def _expire(self, live: Live, address: str, moment: dt.datetime) -> None:
+    def _expire(
+        self,
+        live: Live,
+        address: str,
+        moment: dt.datetime,
+        why: EndReason,
+        limit: dict[str, int],
+    ) -> None:
         with self.db.write() as session:
             result = session.execute(
                 update(WebSessionRow)
@@ -279,7 +299,7 @@ class WebSessions:
                     WebSessionRow.token_sha256 == live.token_sha256,
                     WebSessionRow.ended_at.is_(None),
                 )
-                .values(ended_at=stamp(moment), end_reason=EndReason.IDLE.value)
+                .values(ended_at=stamp(moment), end_reason=why.value)
             )
             if getattr(result, "rowcount", 0):
                 audit.append(
@@ -287,11 +307,7 @@ class WebSessions:
                     action="session_expired",
                     actor=live.person.name,
                     origin=Origin.WEB,
-                    detail={
-                        "address": address,
-                        "session": live.token_sha256[:16],
-                        "idle_minutes": int(self.idle.total_seconds() // 60),
-                    },
+                    detail={"address": address, "session": live.token_sha256[:16], **limit},
                 )
 
     def _audit_refused(self, live: Live, reason: str, address: str) -> None:

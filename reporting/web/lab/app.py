@@ -92,7 +92,12 @@ def create_lab_app(
     app.state.lab = Lab(
         db=database,
         settings=settings,
-        sessions=WebSessions(database, idle_minutes=settings.session_idle_minutes, clock=clock),
+        sessions=WebSessions(
+            database,
+            idle_minutes=settings.session_idle_minutes,
+            max_hours=settings.session_max_hours,
+            clock=clock,
+        ),
         throttle=throttle,
         secure_cookies=secure_cookies,
         phrases=phrases,
