@@ -25,7 +25,7 @@ from reporting.analysis import analyze
 from reporting.comparison import with_comparison
 from reporting.export.record import record_dict
 from reporting.load import study_from_data
-from reporting.settings import default_settings
+from reporting.settings import HeartRateFormula, default_settings
 from reporting.store import conflicts, history
 from reporting.store.engine import Database
 from reporting.store.schema import EventRow
@@ -373,3 +373,29 @@ def test_missing_study_and_version_are_404(app: Any) -> None:
     unsigned = rita.get("/api/studies/DEMO-0001/pdf")
     assert unsigned.status_code == 404 and "not signed" in unsigned.text
     assert rita.post("/api/studies", json={"study": study()}).status_code == 409  # id taken
+
+
+def test_the_lab_settings_are_the_ones_analyses_and_signatures_use(
+    db: Database, tmp_path: Path
+) -> None:
+    # A lab that sets the Tanaka formula (Tanaka H et al., JACC 2001;37:153: 208 − 0.7 × age)
+    # gets it in the live analysis, the study view and the signed record, not the default (Fox).
+    lab = default_settings().model_copy(update={"heart_rate_formula": HeartRateFormula.TANAKA})
+    app = create_lab_app(db, settings=lab)
+    rita = signed_in(app, "rita")
+    data = study()
+    live = rita.post("/api/analyze", json=data)
+    assert live.status_code == 200, live.text
+    stress = live.json()["record"]["stress"]
+    assert stress["heart_rate_formula"] == "tanaka"
+    assert stress["age_predicted_max_hr_bpm"] == pytest.approx(208 - 0.7 * stress["age_years"])
+    first = created(rita, data)
+    signed = rita.post(
+        "/api/studies/DEMO-0001/sign",
+        json={"password": PASSWORD},
+        headers={"if-match": first["etag"]},
+    )
+    assert signed.status_code == 200, signed.text
+    record = json.loads(history.show(db, "DEMO-0001", 1, tmp_path)[1].read_text())
+    assert record["stress"]["heart_rate_formula"] == "tanaka"
+    assert record["stress"]["age_predicted_max_hr_bpm"] == stress["age_predicted_max_hr_bpm"]

@@ -236,3 +236,30 @@ def test_any_sequence_keeps_every_signed_pdf_byte_identical(
             pdf = history.show(db, "DEMO-0001", number, tmp / "show")[2].read_bytes()
             assert sha256(pdf).hexdigest() == digest
     db.dispose()
+
+
+def test_store_commands_take_the_lab_settings(db: str, tmp_path: Path) -> None:
+    # As `serve --db --settings` does: the lab's thresholds for the signed analysis (Tanaka H et
+    # al., JACC 2001;37:153: 208 − 0.7 × age) and its lockout for wrong passwords.
+    lab = tmp_path / "lab.yaml"
+    lab.write_text("heart_rate_formula: tanaka\nlockout_failures: 2\n")
+    path = write_study(tmp_path / "in", study_data())
+    assert as_alice(db, "import", str(path), "--settings", str(lab)).exit_code == 0
+    signed = as_alice(db, "sign", "DEMO-0001", "--settings", str(lab))
+    assert signed.exit_code == 0, signed.output
+    out = run("show", "DEMO-0001", "-o", str(tmp_path / "show"), "--db", db)
+    assert out.exit_code == 0, out.output
+    stress = json.loads((tmp_path / "show" / "DEMO-0001.v1.record.json").read_text())["stress"]
+    assert stress["heart_rate_formula"] == "tanaka"
+    assert stress["age_predicted_max_hr_bpm"] == pytest.approx(208 - 0.7 * stress["age_years"])
+    for _ in range(2):  # two wrong passwords lock the account under this lab's settings
+        result = run(
+            *("user", "unlock", "bob", "--db", db, "--as", "alice", "--password-stdin"),
+            *("--settings", str(lab)),
+            stdin="not it\n",
+        )
+        assert result.exit_code == 1 and "wrong password" in result.output, result.output
+    locked = as_alice(db, "user", "unlock", "alice", "--settings", str(lab))
+    assert locked.exit_code == 1 and "locked" in locked.output, locked.output
+    broken = as_alice(db, "sign", "DEMO-0001", "--settings", str(tmp_path / "none.yaml"))
+    assert broken.exit_code == 1 and "none.yaml" in broken.output, broken.output

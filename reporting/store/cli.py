@@ -41,7 +41,24 @@ def _db(func: F) -> F:
     )(func)
 
 
+def _settings(func: F) -> F:
+    return click.option(
+        "--settings",
+        "settings_path",
+        type=click.Path(dir_okay=False, path_type=Path),
+        help="Lab settings file (YAML), as `serve --db` is given: its thresholds for analyses and "
+        "its lockout for wrong passwords [default: the built-in settings].",
+    )(func)
+
+
+def _lab(settings_path: Path | None) -> Any:
+    from reporting.settings import load_settings
+
+    return load_settings(settings_path)
+
+
 def _actor(func: F) -> F:
+    func = _settings(func)
     func = click.option(
         "--password-stdin",
         is_flag=True,
@@ -67,11 +84,19 @@ class _Passwords:
         return value
 
 
-def _login(db: str | None, actor: str, passwords: _Passwords, role: Any = None) -> tuple[Any, Any]:
+def _login(
+    db: str | None,
+    actor: str,
+    passwords: _Passwords,
+    role: Any = None,
+    *,
+    settings: Any = None,
+) -> tuple[Any, Any]:
     from reporting.store.service import act_as, open_store
 
     database = open_store(db)
-    who = act_as(database, actor, passwords.read(f"Password for {actor}"), role=role)
+    password = passwords.read(f"Password for {actor}")
+    who = act_as(database, actor, password, role=role, settings=settings)
     return database, who
 
 
@@ -142,6 +167,7 @@ def user_add(
     full_name: str | None,
     actor: str,
     password_stdin: bool,
+    settings_path: Path | None,
     db: str | None,
 ) -> None:
     """Add user NAME with a temporary password (it cannot sign until NAME changes it)."""
@@ -149,7 +175,8 @@ def user_add(
 
     with _user_errors():
         passwords = _Passwords(password_stdin)
-        database, who = _login(db, actor, passwords, Role.ADMIN)
+        lab = _lab(settings_path)
+        database, who = _login(db, actor, passwords, Role.ADMIN, settings=lab)
         new = passwords.read(f"Temporary password for {name}", new=True)
         add(
             database,
@@ -167,13 +194,16 @@ def user_add(
 @click.argument("name")
 @_actor
 @_db
-def user_reset(name: str, actor: str, password_stdin: bool, db: str | None) -> None:
+def user_reset(
+    name: str, actor: str, password_stdin: bool, settings_path: Path | None, db: str | None
+) -> None:
     """Give NAME a temporary password (it cannot sign until NAME changes it)."""
     from reporting.store.users import Role, set_password
 
     with _user_errors():
         passwords = _Passwords(password_stdin)
-        database, who = _login(db, actor, passwords, Role.ADMIN)
+        lab = _lab(settings_path)
+        database, who = _login(db, actor, passwords, Role.ADMIN, settings=lab)
         new = passwords.read(f"Temporary password for {name}", new=True)
         set_password(database, name, new, temporary=True, actor=who.name, origin=Origin.CLI)
         click.echo(f"Reset the password of {name} (temporary until changed)", err=True)
@@ -183,12 +213,15 @@ def user_reset(name: str, actor: str, password_stdin: bool, db: str | None) -> N
 @click.argument("name")
 @_actor
 @_db
-def user_unlock(name: str, actor: str, password_stdin: bool, db: str | None) -> None:
+def user_unlock(
+    name: str, actor: str, password_stdin: bool, settings_path: Path | None, db: str | None
+) -> None:
     """Unlock NAME after too many wrong passwords."""
     from reporting.store.users import Role, unlock
 
     with _user_errors():
-        database, who = _login(db, actor, _Passwords(password_stdin), Role.ADMIN)
+        lab = _lab(settings_path)
+        database, who = _login(db, actor, _Passwords(password_stdin), Role.ADMIN, settings=lab)
         unlock(database, name, actor=who.name, origin=Origin.CLI)
         click.echo(f"Unlocked {name}", err=True)
 
@@ -196,13 +229,16 @@ def user_unlock(name: str, actor: str, password_stdin: bool, db: str | None) -> 
 @user.command("change-password")
 @_actor
 @_db
-def user_change(actor: str, password_stdin: bool, db: str | None) -> None:
+def user_change(
+    actor: str, password_stdin: bool, settings_path: Path | None, db: str | None
+) -> None:
     """Change your own password (current one first, then the new one)."""
     from reporting.store.users import set_password
 
     with _user_errors():
         passwords = _Passwords(password_stdin)
-        database, who = _login(db, actor, passwords)
+        lab = _lab(settings_path)
+        database, who = _login(db, actor, passwords, settings=lab)
         new = passwords.read(f"New password for {actor}", new=True)
         set_password(database, who.name, new, temporary=False, actor=who.name, origin=Origin.CLI)
         click.echo(f"Changed the password of {actor}", err=True)
@@ -212,12 +248,19 @@ def user_change(actor: str, password_stdin: bool, db: str | None) -> None:
 @click.argument("paths", nargs=-1, required=True, type=click.Path(path_type=Path))
 @_actor
 @_db
-def import_(paths: tuple[Path, ...], actor: str, password_stdin: bool, db: str | None) -> None:
+def import_(
+    paths: tuple[Path, ...],
+    actor: str,
+    password_stdin: bool,
+    settings_path: Path | None,
+    db: str | None,
+) -> None:
     """Import study files: new studies, or new versions of unsigned ones (all or nothing)."""
     from reporting.store.versions import import_files
 
     with _user_errors():
-        database, who = _login(db, actor, _Passwords(password_stdin))
+        lab = _lab(settings_path)
+        database, who = _login(db, actor, _Passwords(password_stdin), settings=lab)
         for item in import_files(database, paths, who, origin=Origin.CLI):
             what = "new version" if item.new else "unchanged"
             click.echo(f"{item.study_id} v{item.version}: {what} ({item.path})")
@@ -233,14 +276,20 @@ def import_(paths: tuple[Path, ...], actor: str, password_stdin: bool, db: str |
 @_actor
 @_db
 def sign(
-    study_id: str, meaning: str | None, actor: str, password_stdin: bool, db: str | None
+    study_id: str,
+    meaning: str | None,
+    actor: str,
+    password_stdin: bool,
+    settings_path: Path | None,
+    db: str | None,
 ) -> None:
     """Sign the latest version of STUDY_ID (password re-entered)."""
     from reporting.store.signing import sign as run_sign
 
     with _user_errors():
-        database, who = _login(db, actor, _Passwords(password_stdin))
-        signed = run_sign(database, study_id, who, meaning=meaning, origin=Origin.CLI)
+        lab = _lab(settings_path)
+        database, who = _login(db, actor, _Passwords(password_stdin), settings=lab)
+        signed = run_sign(database, study_id, who, meaning=meaning, origin=Origin.CLI, settings=lab)
         click.echo(
             f"Signed {signed.study_id} v{signed.version} ({signed.status.value}); PDF sha256 {signed.pdf_sha256}"
         )
@@ -272,13 +321,15 @@ def amend(
     meaning: str | None,
     actor: str,
     password_stdin: bool,
+    settings_path: Path | None,
     db: str | None,
 ) -> None:
     """Make and sign a new version of a signed study: from FILE (with --reason) or --addendum TEXT."""
     from reporting.store.signing import amend as run_amend
 
     with _user_errors():
-        database, who = _login(db, actor, _Passwords(password_stdin))
+        lab = _lab(settings_path)
+        database, who = _login(db, actor, _Passwords(password_stdin), settings=lab)
         signed = run_amend(
             database,
             study_id,
@@ -289,6 +340,7 @@ def amend(
             correction=correction,
             meaning=meaning,
             origin=Origin.CLI,
+            settings=lab,
         )
         click.echo(
             f"Signed {signed.study_id} v{signed.version} ({signed.status.value}); PDF sha256 {signed.pdf_sha256}"
@@ -308,14 +360,18 @@ def amend(
     type=click.Path(file_okay=False, path_type=Path),
     help="Folder for the study, record and PDF.",
 )
+@_settings
 @_db
-def show(study_id: str, number: int | None, outdir: Path, db: str | None) -> None:
+def show(
+    study_id: str, number: int | None, outdir: Path, settings_path: Path | None, db: str | None
+) -> None:
     """Write a version's study, record and PDF (a signed version's exactly as signed)."""
     from reporting.store.history import show as run_show
     from reporting.store.service import open_store
 
     with _user_errors():
-        for path in run_show(open_store(db), study_id, number, outdir):
+        lab = _lab(settings_path)
+        for path in run_show(open_store(db), study_id, number, outdir, settings=lab):
             click.echo(f"Wrote {path}")
 
 
@@ -380,9 +436,15 @@ def verify(expect_head: str | None, db: str | None) -> None:
 @click.option(
     "--final-only", is_flag=True, help="Signed versions only (studies never signed are left out)."
 )
+@_settings
 @_db
 def export(
-    outdir: Path, deidentify: bool, deid_key_file: Path | None, final_only: bool, db: str | None
+    outdir: Path,
+    deidentify: bool,
+    deid_key_file: Path | None,
+    final_only: bool,
+    settings_path: Path | None,
+    db: str | None,
 ) -> None:
     """Write the registry and tables `batch` writes, from the store."""
     from reporting.store.export import export as run_export
@@ -396,5 +458,7 @@ def export(
             from reporting.deidentify import load_key
 
             key = load_key(deid_key_file)
-        for path in run_export(open_store(db), outdir, key=key, final_only=final_only):
+        lab = _lab(settings_path)
+        exported = run_export(open_store(db), outdir, key=key, final_only=final_only, settings=lab)
+        for path in exported:
             click.echo(f"Wrote {path}")

@@ -18,6 +18,7 @@ from typing import Any
 from reporting.errors import InputError
 from reporting.model import STAGE_ORDER, ReportStatus, Study
 from reporting.results import Analysis
+from reporting.settings import Settings
 from reporting.store.canonical import canonical_json, sha256_hex
 
 CONTENT_FORMAT = 1
@@ -97,8 +98,9 @@ def with_addendum(content: Content, addendum: dict[str, str]) -> Content:
     return build(content.study, content.files, (*content.addenda, addendum))
 
 
-def analyse(content: Content, *, final: bool) -> Analysis:
-    """The analysis of a stored version (``final``: rendered as the signed report)."""
+def analyse(content: Content, *, final: bool, settings: Settings | None = None) -> Analysis:
+    """The analysis of a stored version (``final``: rendered as the signed report) with the lab's
+    ``settings`` (the defaults when not given)."""
     from reporting.analysis import analyze, analyze_file
 
     study = content.study
@@ -107,7 +109,7 @@ def analyse(content: Content, *, final: bool) -> Analysis:
         info = study.study.model_copy(update={"report_status": status})
         study = study.model_copy(update={"study": info})
     if not content.files:
-        return analyze(study)
+        return analyze(study, settings=settings)
     with tempfile.TemporaryDirectory(prefix="segreport-store-") as folder:
         base = Path(folder)
         for name, text in content.files.items():
@@ -120,4 +122,4 @@ def analyse(content: Content, *, final: bool) -> Analysis:
             target.write_text(text, encoding="utf-8")
         study_path = base / STUDY_FILE
         study_path.write_text(study.model_dump_json(exclude_none=True), encoding="utf-8")
-        return analyze_file(study_path)
+        return analyze_file(study_path, settings=settings)

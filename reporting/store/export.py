@@ -27,6 +27,7 @@ from reporting.errors import OutputError, ReportingError, problems_of
 from reporting.export import tables
 from reporting.files import write_atomic
 from reporting.results import Analysis
+from reporting.settings import Settings
 from reporting.store import audit, content
 from reporting.store.canonical import Origin
 from reporting.store.engine import Database
@@ -87,9 +88,15 @@ def _problem(problem: ReportingError, key: bytes | None) -> Problem:
 
 
 def export(
-    db: Database, outdir: Path, *, key: bytes | None = None, final_only: bool = False
+    db: Database,
+    outdir: Path,
+    *,
+    key: bytes | None = None,
+    final_only: bool = False,
+    settings: Settings | None = None,
 ) -> list[Path]:
-    """Write the export into ``outdir``; return the aggregate files written."""
+    """Write the export into ``outdir``; return the aggregate files written. A signed version is
+    its signed record; an unsigned one is analysed with the lab's ``settings``."""
     try:
         outdir.mkdir(parents=True, exist_ok=True)
         aggregates = Aggregates(outdir, _labeller(key))
@@ -108,7 +115,9 @@ def export(
                     if record is not None:
                         analysis = Analysis.model_validate_json(record)
                     else:
-                        analysis = content.analyse(content.parse(data), final=False)
+                        analysis = content.analyse(
+                            content.parse(data), final=False, settings=settings
+                        )
                 except ReportingError as exc:
                     failed = StudyResult(
                         source=sid,

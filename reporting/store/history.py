@@ -21,6 +21,7 @@ from sqlalchemy.orm import Session
 
 from reporting.files import all_or_nothing, write_atomic
 from reporting.results import Analysis
+from reporting.settings import Settings
 from reporting.store import content, versions
 from reporting.store.canonical import sha256_hex
 from reporting.store.engine import Database
@@ -135,9 +136,17 @@ def history_text(data: dict[str, Any]) -> str:
     return "\n".join(lines) + "\n"
 
 
-def show(db: Database, study_id: str, number: int | None, outdir: Path) -> list[Path]:
+def show(
+    db: Database,
+    study_id: str,
+    number: int | None,
+    outdir: Path,
+    *,
+    settings: Settings | None = None,
+) -> list[Path]:
     """Write a version's study content, record and PDF into ``outdir``; a signed version's
-    record and PDF are the stored bytes, byte for byte."""
+    record and PDF are the stored bytes, byte for byte; an unsigned one is analysed with the
+    lab's ``settings``."""
     with db.read() as session:
         _, row = versions.get_version(session, study_id, number)
         sig = versions.signature_of(session, row)
@@ -151,7 +160,7 @@ def show(db: Database, study_id: str, number: int | None, outdir: Path) -> list[
         from reporting.render.pdf import pdf_bytes
 
         assert stored is not None
-        analysis = compared(content.analyse(stored, final=False), prior)
+        analysis = compared(content.analyse(stored, final=False, settings=settings), prior)
         signed = (record_json(analysis).encode(), pdf_bytes(analysis))
     paths = [Path(f"{stem}.study.json"), Path(f"{stem}.record.json"), Path(f"{stem}.pdf")]
     with all_or_nothing(paths):

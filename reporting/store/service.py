@@ -10,6 +10,7 @@ import logging
 
 from sqlalchemy import inspect
 
+from reporting.settings import Settings
 from reporting.store import audit, migrate
 from reporting.store.canonical import Origin
 from reporting.store.engine import Database, resolve_url, sqlite_file
@@ -83,6 +84,8 @@ def act_as(
     *,
     role: Role | None = None,
     origin: Origin = Origin.CLI,
+    settings: Settings | None = None,
 ) -> Person:
-    """Authenticate the acting user (``--as``)."""
-    return authenticate(database, name, password, role=role, origin=origin)
+    """Authenticate the acting user (``--as``); a wrong password counts towards the lab's
+    lockout (``settings``)."""
+    return authenticate(database, name, password, role=role, origin=origin, settings=settings)

@@ -22,6 +22,7 @@ from reporting.errors import InputError
 from reporting.impression import impression_is_stale
 from reporting.model import Study
 from reporting.render.pdf.signature import Addendum, SignatureBlock
+from reporting.settings import Settings
 from reporting.store import audit, content, versions, worklist
 from reporting.store.canonical import Origin, now, sha256_hex
 from reporting.store.engine import Database
@@ -81,11 +82,12 @@ def _render(
     supersedes: int | None = None,
     reason: str | None = None,
     prior: PriorStudy | None = None,
+    settings: Settings | None = None,
 ) -> _Rendered:
     from reporting.export.record import record_json
     from reporting.render.pdf import pdf_bytes
 
-    analysis = compared(content.analyse(stored, final=True), prior)
+    analysis = compared(content.analyse(stored, final=True, settings=settings), prior)
     if impression_is_stale(analysis):
         raise StoreError(f"study {stored.study_id}", STALE_IMPRESSION)
     record = record_json(analysis).encode()
@@ -150,9 +152,10 @@ def sign(
     meaning: str | None = None,
     origin: Origin,
     expect_version: int | None = None,
+    settings: Settings | None = None,
 ) -> Signed:
     """Sign the latest version of ``study_id`` (it must be unsigned; and be ``expect_version``
-    when given, the version the signer saw)."""
+    when given, the version the signer saw), analysed with the lab's ``settings``."""
     _signer(who)
     meaning = _text(meaning, "--meaning") or DEFAULT_MEANING
     with db.read() as session:
@@ -181,6 +184,7 @@ def sign(
         head=head,
         signed_at=now(),
         prior=prior,
+        settings=settings,
     )
     with db.write() as session:
         study, row = versions.get_version(session, study_id, None)
@@ -208,9 +212,11 @@ def amend(
     meaning: str | None = None,
     origin: Origin,
     expect_version: int | None = None,
+    settings: Settings | None = None,
 ) -> Signed:
     """Make and sign a new version superseding the latest signed one: a changed study (a file at
-    ``path``, or the ``edited`` study itself as the page sends it) or an addendum."""
+    ``path``, or the ``edited`` study itself as the page sends it) or an addendum, analysed with
+    the lab's ``settings``."""
     _signer(who)
     reason = _text(reason, "--reason")
     addendum = _text(addendum, "--addendum")
@@ -243,7 +249,9 @@ def amend(
             source = "study"
             named = {edited.perfusion_curves, edited.territory_map}
             stored = content.build(edited, {k: v for k, v in old.files.items() if k in named})
-            content.analyse(stored, final=False)  # it must analyse, as a file must
+            content.analyse(
+                stored, final=False, settings=settings
+            )  # it must analyse, as a file must
         _same_study(stored, old, source)
         if stored.study == old.study and stored.files == old.files:
             raise InputError(
@@ -265,6 +273,7 @@ def amend(
         supersedes=base_number,
         reason=reason,
         prior=prior,
+        settings=settings,
     )
     with db.write() as session:
         study, current = versions.get_version(session, study_id, None)

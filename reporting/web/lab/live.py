@@ -17,6 +17,7 @@ from reporting.load import study_from_data
 from reporting.model import Study
 from reporting.phrases import built_in_library
 from reporting.results import Analysis
+from reporting.settings import Settings
 from reporting.store import content, history, versions
 from reporting.store.engine import Database
 from reporting.web.analysing import analysis_response, analysis_result
@@ -36,10 +37,10 @@ router = APIRouter()
 STUDY = "study"
 
 
-def analysed(db: Database, study: Study) -> Analysis:
-    """The study's analysis as the store will sign it: the curve and map files of its stored
-    latest version (if the study is stored and still names them), compared with the patient's
-    prior signed study when the store has one."""
+def analysed(db: Database, study: Study, settings: Settings) -> Analysis:
+    """The study's analysis as the store will sign it: with the lab's ``settings``, the curve and
+    map files of its stored latest version (if the study is stored and still names them), compared
+    with the patient's prior signed study when the store has one."""
     files: dict[str, str] = {}
     named = {n for n in (study.perfusion_curves, study.territory_map) if n is not None}
     with db.read() as session:
@@ -51,7 +52,7 @@ def analysed(db: Database, study: Study) -> Analysis:
             files = {k: v for k, v in stored_files.items() if k in named}
         stored = content.build(study, files)
         prior = history.prior_of(session, stored)
-    return history.compared(content.analyse(stored, final=False), prior)
+    return history.compared(content.analyse(stored, final=False, settings=settings), prior)
 
 
 @router.post(
@@ -65,7 +66,9 @@ async def analyze_study(request: Request) -> JSONResponse:
     study = study_from_data(parse_body(await request.body(), STUDY), source=STUDY)
     lab = lab_of(request)
     library = lab.phrases if lab.phrases is not None else built_in_library()
-    result = await run_in_threadpool(lambda: analysis_result(analysed(lab.db, study), library))
+    result = await run_in_threadpool(
+        lambda: analysis_result(analysed(lab.db, study, lab.settings), library)
+    )
     return analysis_response(result)
 
 
@@ -86,5 +89,7 @@ def phrases(request: Request) -> PhraseListing:
 )
 async def confirm(request: Request) -> ConfirmedImpression:
     data = parse_body(await request.body(), STUDY)
-    db = lab_of(request).db
-    return await run_in_threadpool(lambda: confirmed_impression(data, lambda s: analysed(db, s)))
+    lab = lab_of(request)
+    return await run_in_threadpool(
+        lambda: confirmed_impression(data, lambda s: analysed(lab.db, s, lab.settings))
+    )

@@ -41,6 +41,7 @@ from reporting.web.bodies import parse_body
 from reporting.web.lab import live
 from reporting.web.lab import study_views as views
 from reporting.web.lab.access import Caller, CallerDep
+from reporting.web.lab.context import lab_of
 from reporting.web.lab.study_shapes import (
     AddendumRequest,
     AmendRequest,
@@ -97,10 +98,10 @@ def get_worklist(
 async def create_study(request: Request, who: CallerDep) -> JSONResponse:
     body = views.validated(NewStudy, parse_body(await request.body(), views.REQUEST))
     study = views.study_of(body.study)
-    db = views.database_of(request)
+    db, settings = views.database_of(request), lab_of(request).settings
 
     def work() -> StudyView:
-        return views.view(db, saving.create(db, study, who.person, origin=WEB))
+        return views.view(db, saving.create(db, study, who.person, origin=WEB), settings)
 
     return views.answer(await run_in_threadpool(work), 201)
 
@@ -114,7 +115,7 @@ async def create_study(request: Request, who: CallerDep) -> JSONResponse:
 def open_study(study_id: SafeId, request: Request) -> JSONResponse:
     db = views.database_of(request)
     with views.found():
-        return views.answer(views.view(db, saving.read(db, study_id)))
+        return views.answer(views.view(db, saving.read(db, study_id), lab_of(request).settings))
 
 
 @router.get(
@@ -126,7 +127,9 @@ def open_study(study_id: SafeId, request: Request) -> JSONResponse:
 def open_version(study_id: SafeId, number: int, request: Request) -> JSONResponse:
     db = views.database_of(request)
     with views.found():
-        return views.answer(views.view(db, saving.read(db, study_id, number)))
+        return views.answer(
+            views.view(db, saving.read(db, study_id, number), lab_of(request).settings)
+        )
 
 
 @router.put(
@@ -145,7 +148,7 @@ async def save_study(study_id: SafeId, request: Request, who: CallerDep) -> Resp
     study = views.study_of(body.study)
     mine = saving.study_json(study)
     if_match = request.headers.get("if-match")
-    db = views.database_of(request)
+    db, settings = views.database_of(request), lab_of(request).settings
 
     def work() -> Response:
         if if_match is None:
@@ -164,7 +167,7 @@ async def save_study(study_id: SafeId, request: Request, who: CallerDep) -> Resp
             return views.conflict(
                 412, detail, study_id, base=exc.base, current=exc.current, mine=mine
             )
-        return views.answer(views.view(db, opened))
+        return views.answer(views.view(db, opened, settings))
 
     return await run_in_threadpool(work)
 
@@ -202,7 +205,13 @@ async def sign_study(study_id: SafeId, request: Request, who: CallerDep) -> Resp
 
     def act(db: Database, signer: Person, version: int) -> signing.Signed:
         return signing.sign(
-            db, study_id, signer, meaning=body.meaning, origin=WEB, expect_version=version
+            db,
+            study_id,
+            signer,
+            meaning=body.meaning,
+            origin=WEB,
+            expect_version=version,
+            settings=lab_of(request).settings,
         )
 
     return await run_in_threadpool(
@@ -231,6 +240,7 @@ async def amend_study(study_id: SafeId, request: Request, who: CallerDep) -> Res
             meaning=body.meaning,
             origin=WEB,
             expect_version=version,
+            settings=lab_of(request).settings,
         )
 
     mine = saving.study_json(study)
@@ -259,6 +269,7 @@ async def add_addendum(study_id: SafeId, request: Request, who: CallerDep) -> Re
             reason=body.reason,
             origin=WEB,
             expect_version=version,
+            settings=lab_of(request).settings,
         )
 
     return await run_in_threadpool(

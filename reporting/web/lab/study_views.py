@@ -19,6 +19,7 @@ from pydantic import BaseModel, ValidationError
 from reporting.errors import InputError, InputErrors
 from reporting.load import study_from_data
 from reporting.model import Study
+from reporting.settings import Settings
 from reporting.store import conflicts, content, history, saving, signing, users, worklist
 from reporting.store.canonical import Origin
 from reporting.store.engine import Database
@@ -85,9 +86,10 @@ def pdf_url(study_id: str, version: int) -> str:
     return f"/api/studies/{study_id}/pdf?version={version}"
 
 
-def view(db: Database, opened: saving.Opened) -> StudyView:
+def view(db: Database, opened: saving.Opened, settings: Settings) -> StudyView:
     """The page's view of an opened version: with the patient's earlier studies and the
-    comparison with the prior signed study (the signed record's own, for a signed version)."""
+    comparison with the prior signed study (the signed record's own, for a signed version; else
+    made with the lab's ``settings``)."""
     with db.read() as session:
         earlier = worklist.earlier(
             session, opened.patient_id, opened.stored.study.study.date.isoformat()
@@ -98,7 +100,7 @@ def view(db: Database, opened: saving.Opened) -> StudyView:
         else:
             prior = history.prior_of(session, opened.stored)
     if not opened.signed:
-        comparison = comparison_of(opened.stored, prior)
+        comparison = comparison_of(opened.stored, prior, settings)
     return StudyView(
         study_id=opened.study_id,
         study=opened.study,
@@ -120,13 +122,13 @@ def view(db: Database, opened: saving.Opened) -> StudyView:
 
 
 def comparison_of(
-    stored: content.Content, prior: history.PriorStudy | None
+    stored: content.Content, prior: history.PriorStudy | None, settings: Settings
 ) -> dict[str, Any] | None:
     if prior is None:
         return None
     from reporting.export.record import record_dict
 
-    analysis = history.compared(content.analyse(stored, final=False), prior)
+    analysis = history.compared(content.analyse(stored, final=False, settings=settings), prior)
     value = record_dict(analysis).get("comparison")
     return value if isinstance(value, dict) else None
 
