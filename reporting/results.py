@@ -9,6 +9,7 @@ the keys fixed by the interface contract are all here.
 from __future__ import annotations
 
 import datetime as dt
+from collections.abc import Mapping
 from enum import StrEnum
 from functools import cached_property
 from typing import Any, Literal, cast
@@ -655,6 +656,17 @@ class Analysis(_Result):
 
         return findings_sha256(self)
 
+    def model_copy(
+        self, *, update: Mapping[str, Any] | None = None, deep: bool = False
+    ) -> Analysis:
+        """A copy; one whose ``update`` may change what the derived values are made from makes
+        them again when read (only a new impression status or comparison keeps them)."""
+        copied = super().model_copy(update=update, deep=deep)
+        if update and not KEEPS_DERIVED.issuperset(update):
+            for name in DERIVED_FIELDS:
+                copied.__dict__.pop(name, None)
+        return copied
+
     @model_validator(mode="wrap")
     @classmethod
     def _stored_derived(cls, data: Any, handler: ValidatorFunctionWrapHandler) -> Analysis:
@@ -673,3 +685,6 @@ class Analysis(_Result):
 
 DERIVED_FIELDS = frozenset(Analysis.model_computed_fields)
 """Record keys made from the rest of the analysis on first use (Analysis's computed fields)."""
+KEEPS_DERIVED = frozenset({"impression_status", "comparison"})
+"""Fields an :meth:`Analysis.model_copy` may change and keep the derived values already made: the
+computed impression and the findings hash read neither."""

@@ -328,3 +328,16 @@ def test_one_practitioner_entry_when_the_same_clinician_performs_and_interprets(
     report = resources(data, "DiagnosticReport")[0]
     assert report["performer"][0]["reference"] == report["resultsInterpreter"][0]["reference"]
     assert practitioner["identifier"][0]["value"] == same["id"]
+
+
+def test_a_signed_record_sent_later_keeps_the_conclusion_it_was_signed_with(
+    analyses: list[Analysis],
+) -> None:
+    # The conclusion a hospital receives is the record's own computed impression: a record read
+    # back from the store is never reworded by the wording of a later version.
+    from reporting.export.record import record_dict
+
+    written = record_dict(analyses[0]) | {"computed_impression": "Worded at signing.\nSecond."}
+    stored = Analysis.model_validate(written)
+    report = resources(fhir.bundle(stored, pdf=PDF), "DiagnosticReport")[0]
+    assert report["conclusion"] == "Worded at signing.\nSecond."

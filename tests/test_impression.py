@@ -203,3 +203,15 @@ def test_a_record_with_a_derived_value_that_is_not_text_is_refused(key: str) -> 
     written = record_dict(_analyse(_data("DEMO-0002"))) | {key: 7}
     with pytest.raises(ValueError, match=f"{key}: expected text, got int"):
         Analysis.model_validate(written)
+
+
+def test_a_copy_that_may_change_the_findings_makes_them_again() -> None:
+    # The derived values kept on an analysis must never outlive what they were made from.
+    analysis = _analyse(_data("DEMO-0002"))
+    made = (analysis.computed_impression, analysis.findings_sha256)
+    kept = analysis.model_copy(update={"impression_status": ImpressionStatus.NONE})
+    assert (vars(kept)["computed_impression"], vars(kept)["findings_sha256"]) == made
+    other = _analyse(_data("DEMO-0003"))
+    changed = analysis.model_copy(update={"segments": other.segments})
+    assert "computed_impression" not in vars(changed) and "findings_sha256" not in vars(changed)
+    assert changed.findings_sha256 == findings_sha256(changed) != analysis.findings_sha256

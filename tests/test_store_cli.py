@@ -247,6 +247,7 @@ def test_store_commands_take_the_lab_settings(db: str, tmp_path: Path) -> None:
     assert as_alice(db, "import", str(path), "--settings", str(lab)).exit_code == 0
     signed = as_alice(db, "sign", "DEMO-0001", "--settings", str(lab))
     assert signed.exit_code == 0, signed.output
+    assert f"Analysed with the settings in {lab}" in signed.stderr
     out = run("show", "DEMO-0001", "-o", str(tmp_path / "show"), "--db", db)
     assert out.exit_code == 0, out.output
     stress = json.loads((tmp_path / "show" / "DEMO-0001.v1.record.json").read_text())["stress"]

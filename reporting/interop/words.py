@@ -9,7 +9,6 @@ from __future__ import annotations
 
 from reporting.render.narrative.impression import (
     high_risk_paragraphs,
-    impression,
     summary,
     territory_sentence,
 )
@@ -22,14 +21,11 @@ def headline(analysis: Analysis) -> str:
     return summary(analysis)
 
 
-def conclusion_paragraphs(analysis: Analysis) -> list[str]:
-    """The PDF's Impression section, paragraph by paragraph (the headline first)."""
-    return impression(analysis)
-
-
 def conclusion_text(analysis: Analysis) -> str:
-    """The Impression section as one text, one paragraph a line."""
-    return "\n".join(conclusion_paragraphs(analysis))
+    """The Impression section as one text, one paragraph a line (the headline first): the
+    record's computed impression, so a signed record sent later keeps the words it was signed
+    with, whatever a later version would word."""
+    return analysis.computed_impression
 
 
 def territory_text(analysis: Analysis, territory: Territory) -> str:

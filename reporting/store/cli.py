@@ -46,8 +46,9 @@ def _settings(func: F) -> F:
         "--settings",
         "settings_path",
         type=click.Path(dir_okay=False, path_type=Path),
-        help="Lab settings file (YAML), as `serve --db` is given: its thresholds for analyses and "
-        "its lockout for wrong passwords [default: the built-in settings].",
+        help="Lab settings file (YAML), as `serve --db` is given: its thresholds for the analyses "
+        "a command signs, shows or exports, and its lockout for wrong passwords [default: the "
+        "built-in settings].",
     )(func)
 
 
@@ -55,6 +56,13 @@ def _lab(settings_path: Path | None) -> Any:
     from reporting.settings import load_settings
 
     return load_settings(settings_path)
+
+
+def _settings_used(settings_path: Path | None) -> str:
+    """Said after signing: a report signed with other settings than the lab page's is no surprise."""
+    if settings_path is None:
+        return "Analysed with the built-in settings (give the lab's with --settings FILE)"
+    return f"Analysed with the settings in {settings_path}"
 
 
 def _actor(func: F) -> F:
@@ -293,6 +301,7 @@ def sign(
         click.echo(
             f"Signed {signed.study_id} v{signed.version} ({signed.status.value}); PDF sha256 {signed.pdf_sha256}"
         )
+        click.echo(_settings_used(settings_path), err=True)
 
 
 @store.command("amend")
@@ -345,6 +354,7 @@ def amend(
         click.echo(
             f"Signed {signed.study_id} v{signed.version} ({signed.status.value}); PDF sha256 {signed.pdf_sha256}"
         )
+        click.echo(_settings_used(settings_path), err=True)
 
 
 @store.command("show")
