@@ -233,7 +233,12 @@ def parse_territory_map(data: Any, *, location: str) -> TerritoryMap:
         missing = [n for n in range(1, model + 1) if n not in seen]
         if missing:
             problems.append(
-                InputError(where, f"segments {number_ranges(missing)} belong to no territory")
+                InputError(
+                    where,
+                    f"segment {missing[0]} belongs to no territory"
+                    if len(missing) == 1
+                    else f"segments {number_ranges(missing)} belong to no territory",
+                )
             )
         assignment[model] = seen
     if problems:

@@ -154,3 +154,10 @@ def test_lab_map_loads_and_checks(tmp_path: Path) -> None:
     assert "segment 18 does not exist" in text
     assert "territory must be LAD, LCx or RCA" in text
     assert "belong to no territory" in text
+    one_short = tmp_path / "one_short.yaml"
+    one_short.write_text(
+        "territories:\n  '17':\n    LAD: [1,2,7,8,13,14,17]\n    RCA: [3,4,9,10,15]\n    LCx: [5,6,11,12]\n"
+    )
+    with pytest.raises(InputErrors) as info:
+        load_territory_map(one_short)
+    assert "segment 16 belongs to no territory" in str(info.value)
