@@ -160,7 +160,7 @@ def esv_rise_ml(study: Study) -> float | None:
     rest, peak = study.stages.get(Stage.REST), study.stages.get(Stage.PEAK)
     if rest is None or peak is None or rest.lv_esv_ml is None or peak.lv_esv_ml is None:
         return None
-    return peak.lv_esv_ml - rest.lv_esv_ml
+    return stress.settled(peak.lv_esv_ml - rest.lv_esv_ml)
 
 
 def _ef_fall(study: Study, settings: Settings) -> tuple[str, str] | None:
@@ -168,7 +168,7 @@ def _ef_fall(study: Study, settings: Settings) -> tuple[str, str] | None:
     if peak is None or peak.lvef_percent is None:
         return None
     if rest is not None and rest.lvef_percent is not None:
-        fall = rest.lvef_percent - peak.lvef_percent
+        fall = stress.settled(rest.lvef_percent - peak.lvef_percent)
         if fall >= settings.ef_fall_high_risk_min_points:
             return (
                 f"LVEF fell from {rest.lvef_percent:g} % to {peak.lvef_percent:g} % ({fall:g} points).",
@@ -238,7 +238,13 @@ def response_notes(
             Note(
                 kind=NoteKind.LV_DILATION,
                 text=f"LV end-systolic volume rose by {rise:g} mL from rest to peak: an abnormal "
-                "response (cavity dilation), not graded as a high-risk finding by itself.",
+                "response (cavity dilation), "
+                + (
+                    "not graded as a high-risk finding under this lab's settings."
+                    if threshold is None
+                    else f"within this lab's {threshold:g} mL allowance before it is graded as a "
+                    "high-risk finding."
+                ),
                 source=settings.cited("lv_dilation_high_risk_esv_rise_above_ml"),
             )
         )

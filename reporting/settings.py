@@ -74,7 +74,8 @@ class Settings(BaseModel):
     lv_dilation_high_risk_esv_rise_above_ml: float | None = Field(
         ge=0,
         description="Rise of LV end-systolic volume (mL) from rest to peak above which LV dilation is "
-        "a high-risk finding; null (the default): a rise is reported as an abnormal response only.",
+        "a high-risk finding (0, the default: any rise); null: a rise is reported as an abnormal "
+        "response only.",
     )
     ef_fall_high_risk_min_points: float = Field(
         gt=0,

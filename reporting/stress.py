@@ -32,6 +32,20 @@ class DukeRisk(StrEnum):
     """Score ≤ −11."""
 
 
+SETTLED_DECIMALS = 9
+"""Decimals kept of a sum or difference of recorded values (:func:`settled`)."""
+
+
+def settled(value: float) -> float:
+    """``value``, a sum or difference of recorded decimals, without binary floating-point noise.
+
+    In binary 65.1 − 55.1 is 9.999999999999993, so an EF fall of exactly 10 points would miss a
+    "≥ 10 points" threshold; rounded to :data:`SETTLED_DECIMALS` places it is 10. Recorded values
+    carry a few decimals at most, so the rounding loses nothing (common practice).
+    """
+    return round(value, SETTLED_DECIMALS)
+
+
 def age_predicted_max_hr(age_years: float, formula: HeartRateFormula) -> float:
     """Age-predicted maximum heart rate in bpm."""
     if formula is HeartRateFormula.TANAKA:
@@ -47,8 +61,9 @@ def rate_pressure_product(heart_rate_bpm: int, systolic_bp_mmhg: int) -> int:
 def duke_treadmill_score(
     duration_min: float, max_st_deviation_mm: float, angina_index: int
 ) -> float:
-    """Minutes of exercise − 5 × ST deviation (mm) − 4 × angina index (Mark 1991)."""
-    return duration_min - 5 * max_st_deviation_mm - 4 * angina_index
+    """Minutes of exercise − 5 × ST deviation (mm) − 4 × angina index (Mark 1991), settled so that
+    a score exactly at a band's edge (−11, +5) falls in the band the table gives it."""
+    return settled(duration_min - 5 * max_st_deviation_mm - 4 * angina_index)
 
 
 def duke_risk(score: float, low_min: float, high_max: float) -> DukeRisk:

@@ -9,6 +9,7 @@ al., Circulation 2002;105:539: LAD 1,2,7,8,13,14,17; RCA 3,4,9,10,15; LCx 5,6,11
 from __future__ import annotations
 
 import io
+from fractions import Fraction
 from typing import Any
 
 import pytest
@@ -287,15 +288,20 @@ def test_blood_pressure_fall(
 
 
 # LVEF fall >= 10 points or peak exercise LVEF < 45 % (Fihn SD et al., Circulation 2012, from
-# memory); LV dilation only above a lab threshold, none by default (Turakhia MP et al., Eur Heart J
-# 2009;30:2478 for the sign; the threshold is a lab choice).
+# memory); a rise in end-systolic volume at stress is high risk (Turakhia MP et al., Eur Heart J
+# 2009;30:2478; "any rise" as that study's definition, from memory).
 #   protocol, rest EF, peak EF, rest ESV, peak ESV -> ef_fall?, lv_dilation?, dilation note?
 LV_CASES = [
     ("dobutamine", 60, 50, 40, 40, True, False, False, "fall of 10 points"),
     ("dobutamine", 60, 52, 40, 40, False, False, False, "fall of 8 points"),
+    ("dobutamine", 65.1, 55.1, 40, 40, True, False, False, "fall of exactly 10.0 points"),
+    ("dobutamine", 65.1, 55.2, 40, 40, False, False, False, "fall of 9.9 points"),
     ("treadmill", 50, 44, 40, 40, True, False, False, "peak exercise EF 44 %"),
     ("dobutamine", 50, 44, 40, 40, False, False, False, "EF 44 % under dobutamine, fall of 6"),
-    ("dobutamine", 60, 60, 40, 48, False, False, True, "ESV rise: reported, not graded"),
+    ("dobutamine", 60, 60, 40, 48, False, True, False, "ESV rise of 8 mL: graded"),
+    ("dobutamine", 60, 60, 40.2, 40.3, False, True, False, "ESV rise of 0.1 mL: graded"),
+    ("dobutamine", 60, 60, 40, 40, False, False, False, "ESV unchanged"),
+    ("dobutamine", 60, 60, 40, 32, False, False, False, "ESV falls (the normal response)"),
 ]
 
 
@@ -323,18 +329,52 @@ def test_ef_fall_and_lv_dilation(
     assert any(n.kind is NoteKind.LV_DILATION for n in a.notes) is noted
 
 
-def test_lv_dilation_graded_above_a_lab_threshold() -> None:
-    # A lab that sets a threshold gets the high-risk item, cited as its own setting.
+def _lab_esv(rest: float, peak: float, allowance: float | None) -> Any:
     s = stages(rest=NORMAL_17, peak=NORMAL_17)
-    s["rest"]["lv_esv_ml"], s["peak"]["lv_esv_ml"] = 40, 48
+    s["rest"]["lv_esv_ml"], s["peak"]["lv_esv_ml"] = rest, peak
     lab = Settings.model_validate(
-        default_settings().model_dump() | {"lv_dilation_high_risk_esv_rise_above_ml": 5}
+        default_settings().model_dump() | {"lv_dilation_high_risk_esv_rise_above_ml": allowance}
     )
-    a = analyze(study_from_data(study_dict(stages=s)), settings=lab)
+    return analyze(study_from_data(study_dict(stages=s)), settings=lab)
+
+
+def test_lv_dilation_graded_above_a_lab_threshold() -> None:
+    # A lab that sets a larger allowance gets the high-risk item above it, cited as its own
+    # setting, and a note within it; 40.1 -> 45.1 mL is a rise of exactly 5 (binary arithmetic
+    # says 5.000000000000007), within a 5 mL allowance.
+    a = _lab_esv(40, 48, 5)
     found = [f for f in a.conclusion.high_risk_findings if f.code is FindingCode.LV_DILATION]
     assert len(found) == 1 and found[0].source.startswith(
-        "Lab setting lv_dilation_high_risk_esv_rise_above_ml = 5.0 (published default None: "
+        "Lab setting lv_dilation_high_risk_esv_rise_above_ml = 5.0 (published default 0.0: "
     )
+    within = _lab_esv(40.1, 45.1, 5)
+    assert FindingCode.LV_DILATION not in {f.code for f in within.conclusion.high_risk_findings}
+    (note,) = [n for n in within.notes if n.kind is NoteKind.LV_DILATION]
+    assert "rose by 5 mL" in note.text and "within this lab's 5 mL allowance" in note.text
+
+
+def test_lv_dilation_not_graded_when_a_lab_turns_it_off() -> None:
+    a = _lab_esv(40, 48, None)
+    assert FindingCode.LV_DILATION not in {f.code for f in a.conclusion.high_risk_findings}
+    (note,) = [n for n in a.notes if n.kind is NoteKind.LV_DILATION]
+    assert "not graded as a high-risk finding under this lab's settings" in note.text
+
+
+def test_ef_fall_at_ten_points_matches_exact_arithmetic() -> None:
+    # Oracle: fractions.Fraction. Every one-decimal resting EF from 20.0 to 85.0 % with a peak EF
+    # exactly 10 points lower is a fall ">= 10 points" (Fihn 2012, from memory); binary floating
+    # point makes some of these differences 9.999999999999993.
+    missed = []
+    for tenths in range(200, 851):
+        rest = tenths / 10
+        peak = (tenths - 100) / 10
+        assert Fraction(tenths, 10) - Fraction(tenths - 100, 10) == 10
+        s = stages(rest=NORMAL_17, peak=NORMAL_17)
+        s["rest"]["lvef_percent"], s["peak"]["lvef_percent"] = rest, peak
+        a = analysed(stages=s)
+        if FindingCode.EF_FALL not in {f.code for f in a.conclusion.high_risk_findings}:
+            missed.append((rest, peak))
+    assert missed == []
 
 
 # Reversible defects >= 10 % of the myocardium (Fihn 2012, from memory; ESC 2013, Montalescot G et

@@ -55,7 +55,7 @@ No high-risk finding identified.
 """,
     "DEMO-0002": """\
 Impression
-Positive for inducible ischaemia in the LAD territory; extensive ischaemia: 5 segments. High risk: extensive ischaemia and large reversible perfusion defect.
+Positive for inducible ischaemia in the LAD territory; extensive ischaemia: 5 segments. High risk: extensive ischaemia, large reversible perfusion defect and LV cavity dilation at stress.
 LAD (segments 1, 2, 7, 8, 13, 14 and 17): inducible ischaemia in 5 of 7 segments (7, 8, 13, 14 and 17), at worst akinetic at peak; reversible perfusion defect in segments 7, 8, 13, 14 and 17. Territory WMSI 1.00 at rest, 2.00 at peak.
 LCx (segments 5, 6, 11, 12 and 16): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
 RCA (segments 3, 4, 9, 10 and 15): no wall-motion abnormality at rest or stress. Territory WMSI 1.00 at rest, 1.00 at peak.
@@ -79,12 +79,10 @@ Peak: reduced or delayed in segments 7, 8 and 13; absent in segments 14 and 17; 
 Reversible defects (inducible ischaemia): segments 7, 8, 13, 14 and 17 (LAD).
 
 High-risk findings
-Risk: high risk (more than 3 % per year) by the noninvasive risk tables; criteria met: extensive ischaemia and large reversible perfusion defect.
+Risk: high risk (more than 3 % per year) by the noninvasive risk tables; criteria met: extensive ischaemia, large reversible perfusion defect and LV cavity dilation at stress.
 Extensive ischaemia — ischaemia in 5 segments: 7, 8, 13, 14, 17.
 Large reversible perfusion defect — reversible perfusion defects in 29.4 % of the myocardium.
-
-Image quality and protocol notes
-LV end-systolic volume rose by 6 mL from rest to peak: an abnormal response (cavity dilation), not graded as a high-risk finding by itself.
+LV cavity dilation at stress — LV end-systolic volume rose from 38 to 44 mL.
 """,
     "DEMO-0003": """\
 Impression

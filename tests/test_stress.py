@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from fractions import Fraction
+
 import pytest
 
 from reporting.settings import HeartRateFormula, default_settings
@@ -58,6 +60,30 @@ def test_duke_score_and_band(
     value = duke_treadmill_score(*inputs)
     assert value == pytest.approx(score)
     assert duke_risk(value, s.duke_low_risk_min, s.duke_high_risk_max) is risk
+
+
+def _exact_band(score: Fraction) -> DukeRisk:
+    # Mark 1991's bands on the exact rational score: >= +5 low, <= -11 high.
+    return DukeRisk.LOW if score >= 5 else DukeRisk.HIGH if score <= -11 else DukeRisk.INTERMEDIATE
+
+
+def test_duke_band_at_its_edges_matches_exact_arithmetic() -> None:
+    # Oracle: Python's fractions.Fraction (exact rationals). Durations to 0.1 min and ST deviation
+    # to 0.01 mm: 4.4 - 5 x 2.28 - 4 = -11 exactly is high risk, 9.2 - 5 x 0.84 = +5 is low, though
+    # binary floating point gives -10.999999999999998 and 4.999999999999999.
+    s = default_settings()
+    wrong = []
+    for tenths in range(0, 211):
+        for hundredths in range(0, 401):
+            for angina in (0, 1, 2):
+                exact = Fraction(tenths, 10) - 5 * Fraction(hundredths, 100) - 4 * angina
+                if exact not in (-11, 5):
+                    continue
+                score = duke_treadmill_score(tenths / 10, hundredths / 100, angina)
+                band = duke_risk(score, s.duke_low_risk_min, s.duke_high_risk_max)
+                if score != exact or band is not _exact_band(exact):
+                    wrong.append((tenths / 10, hundredths / 100, angina, score))
+    assert wrong == []
 
 
 # Exercise-induced hypotension (Gibbons RJ et al., ACC/AHA exercise testing guideline update 2002,
