@@ -30,7 +30,7 @@ from pydantic_core import ErrorDetails, InitErrorDetails, PydanticCustomError
 
 from reporting.notes import NoteKind
 from reporting.procedure import ImageQuality, Procedure, Vasodilator
-from reporting.segments import SegmentModel
+from reporting.segments import Ring, SegmentModel, segments_of
 from reporting.wording import number_ranges
 
 STUDY_SCHEMA_VERSION = 1
@@ -573,28 +573,6 @@ class Study(_Input):
         description="Order and imaging-study identity: accession and order numbers, Study Instance UID, clinicians.",
     )
 
-    @model_validator(mode="wrap")
-    @classmethod
-    def _every_problem(cls, data: Any, handler: ModelWrapValidatorHandler[Study]) -> Study:
-        # Field errors stop pydantic before the whole-study checks run; run those checks on the
-        # raw data as well, so a reader sees every problem in one pass.
-        try:
-            return handler(data)
-        except ValidationError as exc:
-            if not isinstance(data, dict):
-                raise
-            known = [tuple(e["loc"]) for e in exc.errors()]
-            extra = [
-                p
-                for p in _raw_study_problems(data)
-                if not any(tuple(p["loc"][: len(k)]) == k for k in known)
-            ]
-            if not extra:
-                raise
-            raise ValidationError.from_exception_data(
-                "Study", [*map(_again, exc.errors()), *extra]
-            ) from None
-
     @model_validator(mode="after")
     def _whole_study(self) -> Study:
         stages = {
@@ -632,6 +610,30 @@ class Study(_Input):
                 ],
             )
         return self
+
+    @model_validator(mode="wrap")
+    @classmethod
+    def _every_problem(cls, data: Any, handler: ModelWrapValidatorHandler[Study]) -> Study:
+        # Field errors stop pydantic before the whole-study checks run; run those checks on the
+        # raw data as well, so a reader sees every problem in one pass. Defined after the "after"
+        # validators so that it wraps them too (pydantic applies model validators in order).
+        try:
+            return handler(data)
+        except ValidationError as exc:
+            if not isinstance(data, dict):
+                raise
+            errors = exc.errors()
+            known = [tuple(e["loc"]) for e in errors]
+            extra = [
+                p
+                for p in _raw_study_problems(data)
+                if not any(tuple(p["loc"][: len(k)]) == k for k in known)
+            ]
+            if not extra and not any(e["type"] == SCORE_COUNT for e in errors):
+                raise
+            raise ValidationError.from_exception_data(
+                "Study", [*(_hinted(e, data) for e in errors), *extra]
+            ) from None
 
     def age_years(self) -> int | None:
         """Age at the study: ``patient.age_years``, else from the birth date and the study date."""
@@ -676,6 +678,7 @@ def _study_problems(
                         f"{len(scores)} scores given; the {count}-segment model needs {count} "
                         f"(none for segment {number_ranges(missing)}; use x for not visualised)",
                         len(scores),
+                        kind=SCORE_COUNT,
                     )
                 )
             if kind == "wall_motion" and scale == 4:
@@ -776,7 +779,64 @@ def _again(error: ErrorDetails) -> InitErrorDetails:
     )
 
 
-def _problem(loc: tuple[str | int, ...], message: str, value: Any) -> InitErrorDetails:
+def _problem(
+    loc: tuple[str | int, ...], message: str, value: Any, *, kind: str = "study"
+) -> InitErrorDetails:
     return InitErrorDetails(
-        type=PydanticCustomError("study", "{message}", {"message": message}), loc=loc, input=value
+        type=PydanticCustomError(kind, "{message}", {"message": message}), loc=loc, input=value
     )
+
+
+SCORE_COUNT = "score_count"
+"""Error type of a score set with too few scores for the segment model."""
+
+
+def _ring_groups(count: int) -> list[tuple[Ring, list[int]]]:
+    """The rings of the ``count``-segment model with their segment numbers, basal first."""
+    rings: dict[Ring, list[int]] = {}
+    for seg in segments_of(count):
+        rings.setdefault(seg.ring, []).append(seg.number)
+    return list(rings.items())
+
+
+def _group_hint(raw: Any, count: int) -> str | None:
+    """Which ring group of a score string written ring by ring (``111111 111111 1111 1``) holds
+    the wrong number of scores, when exactly one does; ``None`` otherwise."""
+    if not isinstance(raw, str):
+        return None
+    groups = raw.split()
+    rings = _ring_groups(count)
+    if len(groups) != len(rings):
+        return None
+    wrong = [
+        (group, ring, numbers)
+        for group, (ring, numbers) in zip(groups, rings, strict=True)
+        if len(group) != len(numbers)
+    ]
+    if len(wrong) != 1:
+        return None
+    group, ring, numbers = wrong[0]
+    return (
+        f"the {ring.value} group {group!r} has {len(group)} scores, not {len(numbers)} "
+        f"(segments {number_ranges(numbers)})"
+    )
+
+
+def _hinted(error: ErrorDetails, data: dict[Any, Any]) -> InitErrorDetails:
+    """``error`` again, naming the ring group at fault when a score count is wrong and the
+    reader grouped the scores by ring: a slip in the first group is not "none for segment 17"."""
+    loc = error["loc"]
+    if error["type"] == SCORE_COUNT and len(loc) == 3:
+        stages = data.get("stages")
+        stage = stages.get(loc[1]) if isinstance(stages, dict) else None
+        count = _segment_count(data.get("segment_model", int(SegmentModel.SEVENTEEN)))
+        raw = stage.get(loc[2]) if isinstance(stage, dict) else None
+        hint = _group_hint(raw, count) if count is not None else None
+        if hint is not None:
+            given = error["input"]
+            message = (
+                f"{given} scores given; the {count}-segment model needs {count}: {hint}; "
+                "use x for not visualised"
+            )
+            return _problem(loc, message, given, kind=SCORE_COUNT)
+    return _again(error)

@@ -41,6 +41,22 @@ GALLERY: list[tuple[str, str, str | bytes, str, str]] = [
         "stages.rest.wall_motion",
         "16 scores given; the 17-segment model needs 17",
     ),
+    # Scores written ring by ring with one basal score left out: the group at fault is named,
+    # not "none for segment 17" (ring sizes 6, 6, 4, 1: Cerqueira MD et al., Circulation 2002).
+    (
+        "basal-group-short",
+        "s.yaml",
+        _with(["stages", "rest", "wall_motion"], "11111 111111 1111 1"),
+        "stages.rest.wall_motion",
+        "17: the basal group '11111' has 5 scores, not 6 (segments 1–6); use x for not visualised",
+    ),
+    (
+        "apical-group-short",
+        "s.yaml",
+        _with(["stages", "peak", "perfusion"], "111111 111111 111 1"),
+        "stages.peak.perfusion",
+        "the apical group '111' has 3 scores, not 4 (segments 13–16)",
+    ),
     # A mapping naming segment 18 in a 17-segment study.
     (
         "segment-18",
