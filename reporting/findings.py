@@ -29,7 +29,7 @@ from reporting.results import (
 from reporting.scoring import ISCHEMIC_RESPONSES, PerfusionResponse, WallMotionResponse
 from reporting.segments import Territory, adjacency
 from reporting.settings import Settings
-from reporting.wording import number_list, sentence_case, stage_words
+from reporting.wording import and_list, number_list, sentence_case, stage_words
 
 
 def high_risk_findings(
@@ -229,6 +229,21 @@ def response_notes(
                 text=f"Segment {number} is scored aneurysmal at {where} but not at baseline: a segment "
                 "does not become aneurysmal during stress, so this is probably an entry error; please confirm.",
                 source="A segment turning aneurysmal only at stress is implausible (common practice)",
+            )
+        )
+    dosed = [
+        stage_words(stage, study.protocol)
+        for stage, data in study.stages.items()
+        if data.dose_ug_kg_min is not None or data.atropine_mg is not None
+    ]
+    if study.protocol in EXERCISE_PROTOCOLS and dosed:
+        notes.append(
+            Note(
+                kind=NoteKind.PROBABLE_ENTRY_ERROR,
+                text=f"A dobutamine dose or atropine is recorded at {and_list(dosed)} of a "
+                f"{study.protocol.value} study: doses belong to dobutamine stress, so no rule uses "
+                "them; please check the protocol.",
+                source="Exercise studies have workload stages, not doses (common practice)",
             )
         )
     rise = esv_rise_ml(study)

@@ -37,9 +37,10 @@ class NoteKind(StrEnum):
     ABNORMAL_AT_LOW_DOSE = "abnormal_at_low_dose"
     """Segments not seen at rest and already abnormal at low dose: not called fixed; review."""
     PROBABLE_ENTRY_ERROR = "probable_entry_error"
-    """A segment aneurysmal only at stress: implausible, probably an entry error."""
+    """An implausible entry (a segment aneurysmal only at stress, a dose in an exercise study)."""
     LV_DILATION = "lv_dilation"
-    """End-systolic volume rose with stress: an abnormal response, not graded high risk."""
+    """End-systolic volume rose with stress within the lab's allowance (or the lab does not grade
+    it): an abnormal response, not graded high risk."""
     BLOOD_PRESSURE_FALL = "blood_pressure_fall"
     """Systolic pressure fell under pharmacological stress: reported, not graded high risk."""
     FIT_QUALITY = "fit_quality"

@@ -61,6 +61,14 @@ def stage_words(stage: Enum, protocol: Enum | None = None) -> str:
     return str(stage.value).replace("_", " ")
 
 
+def and_list(values: Iterable[int | str]) -> str:
+    """``[1, 2, 3]`` -> ``"1, 2 and 3"``."""
+    items = [str(v) for v in values]
+    if len(items) <= 1:
+        return "".join(items)
+    return f"{', '.join(items[:-1])} and {items[-1]}"
+
+
 def number_list(numbers: Iterable[int]) -> str:
     """``[1, 2, 7]`` -> ``"1, 2, 7"``."""
     return ", ".join(str(n) for n in numbers)

@@ -232,6 +232,27 @@ def test_stress_only_aneurysm_is_a_probable_entry_error() -> None:
     ]
 
 
+@pytest.mark.parametrize(
+    "protocol,noted",
+    [("treadmill", True), ("bicycle", True), ("dobutamine", False)],
+    ids=["treadmill", "bicycle", "dobutamine"],
+)
+def test_a_dose_in_an_exercise_study_is_a_probable_entry_error(protocol: str, noted: bool) -> None:
+    # "Low dose" belongs to dobutamine only; exercise studies have workload stages (common
+    # practice, FACTS: exercise terms). A dose there suggests a wrong protocol: a note, no rule.
+    s = stages(rest=NORMAL_17, low_dose=NORMAL_17, peak=NORMAL_17)
+    s["low_dose"]["dose_ug_kg_min"] = 10
+    s["peak"]["atropine_mg"] = 0.5
+    a = analysed(stages=s, protocol=protocol)
+    notes = [n.text for n in a.notes if n.kind is NoteKind.PROBABLE_ENTRY_ERROR]
+    if noted:
+        (text,) = notes
+        assert text.startswith("A dobutamine dose or atropine is recorded at low workload and peak")
+        assert "please check the protocol" in text
+    else:
+        assert notes == []
+
+
 def test_abnormal_at_low_dose_baseline_is_flagged_not_fixed() -> None:
     # Baseline when rest is not seen (common practice): segment 1 unseen at rest, hypokinetic at low
     # dose and peak: not fixed, flagged for review.

@@ -18,8 +18,8 @@ from reporting.results import Analysis, FindingCode, RiskLevel, SegmentResult
 from reporting.scoring import IschemiaExtent
 from reporting.settings import HeartRateFormula
 from reporting.wording import WALL_MOTION_WORDS as WALL_MOTION_WORDS
+from reporting.wording import and_list, stage_words
 from reporting.wording import sentence_case as sentence_case
-from reporting.wording import stage_words
 
 EXTENT_WORDS = {  # extent by segment count (Kataoka 2015: 1–2, ≥ 3), never severity
     IschemiaExtent.MILD: "limited",
@@ -65,12 +65,8 @@ RESERVE_FLAG_WORDS = {
 }
 
 
-def numbers(values: Iterable[int | str]) -> str:
-    """``1, 2 and 3``."""
-    items = [str(v) for v in values]
-    if len(items) <= 1:
-        return "".join(items)
-    return f"{', '.join(items[:-1])} and {items[-1]}"
+numbers = and_list
+"""``1, 2 and 3``."""
 
 
 def segments_phrase(values: Iterable[int]) -> str:
