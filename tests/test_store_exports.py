@@ -295,3 +295,38 @@ def _reconfirmed(data: dict[str, Any]) -> dict[str, Any]:
     confirmed = confirm_impression(study, analyze(study))
     result: dict[str, Any] = json.loads(confirmed.model_dump_json(exclude_none=True))
     return result
+
+
+@pytest.mark.usefixtures("cheap_argon2")
+def test_a_version_signed_without_a_lab_is_released_through_an_amendment_naming_it(
+    tmp_path: Path,
+) -> None:
+    # A verified report names its lab as the verifying organization (DICOM Verifying Organization),
+    # and a signed version never changes (FACTS: signing, amendments). A version signed without a
+    # lab is refused with advice that can be followed (amend, never "sign again"), and the
+    # amendment naming the lab goes out, though the version it replaces was never released.
+    db = str(tmp_path / "s.db")
+    init = run(
+        "store", "init", "--db", db, "--admin", "alice", "--full-name", "Dr Alice Example",
+        "--password-stdin", stdin=PASSWORD + "\n",
+    )  # fmt: skip
+    assert init.exit_code == 0, init.output
+    data = study_data(STUDY)
+    data["order"] = dict(ORDER)
+    del data["study"]["lab"]
+    store_cmd(db, "import", str(write_study(tmp_path / "v1", data)))
+    store_cmd(db, "sign", STUDY)
+    refused = run("hl7", "--store", STUDY, "--db", db, "-o", str(tmp_path / "refused.hl7"))
+    assert refused.exit_code == 1
+    assert "names none; a signed version never changes, so amend the study with its lab" in (
+        refused.output
+    )
+    assert "sign again" not in refused.output
+    data["study"]["lab"] = LAB
+    store_cmd(db, "amend", STUDY, str(write_study(tmp_path / "v2", data)), "--reason", "lab named")
+    for kind, out in (("hl7", "v2.hl7"), ("fhir", "v2.json"), ("dicom", "v2")):
+        result = run(kind, "--store", STUDY, "--db", db, "-o", str(tmp_path / out))
+        assert result.exit_code == 0, result.output
+    sr = pydicom.dcmread(tmp_path / "v2" / f"{STUDY}.sr.dcm")
+    assert sr.VerifyingObserverSequence[0].VerifyingOrganization == LAB
+    assert "PredecessorDocumentsSequence" not in sr  # v1 was never released as an SR

@@ -193,7 +193,7 @@ def sr_dataset(
         ds.VerifyingObserverSequence = Sequence([observer])
     else:
         ds.VerificationFlag = "UNVERIFIED"
-    if release.state.replaces:
+    if release.state.replaces and (release.predecessor is None or release.predecessor.released):
         ds.PredecessorDocumentsSequence = _predecessor(release, study_instance_uid)
     request = header.referenced_request(analysis, study_instance_uid)
     if request is not None:

@@ -78,6 +78,11 @@ class Predecessor(BaseModel):
     sr_series_instance_uid: str | None = Field(
         default=None, description="Series Instance UID of that SR."
     )
+    released: bool = Field(
+        default=True,
+        description="The replaced version could be released (false: it named no lab, so no SR of "
+        "it exists for the Predecessor Documents Sequence to name).",
+    )
 
 
 class Release(BaseModel):

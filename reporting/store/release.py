@@ -94,13 +94,19 @@ def _signed(
     return analysis, pdf, release
 
 
+class NoLab(StoreError):
+    """A signed version names no lab, so it cannot be released as a verified report."""
+
+
 def _signer(sig: SignatureRow, analysis: Analysis, where: str) -> Signer:
     lab = analysis.study.lab
     if not lab:
-        raise StoreError(
+        raise NoLab(
             f"{where}: study.lab",
             "a signed export names the lab as the verifying organization (DICOM Verifying "
-            "Organization): give the study's lab, or lab_name in the lab settings, and sign again",
+            "Organization) and this signed version names none; a signed version never changes, "
+            "so amend the study with its lab (`store amend` with the study's lab, or with "
+            "--settings naming lab_name) and export the amendment",
         )
     try:
         return Signer(
@@ -125,11 +131,16 @@ def _predecessor(
             f"study {study.study_id} version {row.version}", "names no version it replaces"
         )
     _, parent = versions.get_version(session, study.study_id, row.parent_version)
-    analysis, pdf, release = _signed(session, study, parent, settings, new_study)
     series: str | None = None
     instance: str | None = None
+    released = True
     try:
+        analysis, pdf, release = _signed(session, study, parent, settings, new_study)
         series, instance = sr_uids(analysis, pdf, release, settings=settings, new_study=new_study)
+    except NoLab:
+        # the replaced version named no lab, so it was never released as an SR to refer to; the
+        # amendment that names the lab is released on its own
+        released = False
     except InputError:
         # no imaging study UID and no --new-study: the DICOM export refuses before it needs them
         log.debug("no SR UIDs for %s v%d", study.study_id, parent.version)
@@ -138,4 +149,5 @@ def _predecessor(
         reason=row.reason or "superseded",
         sr_sop_instance_uid=instance,
         sr_series_instance_uid=series,
+        released=released,
     )
