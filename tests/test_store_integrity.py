@@ -144,8 +144,14 @@ def drop_trigger(db: Database, table: str) -> None:
             "column actor differs from the hashed event",
         ),
         ("versions", "UPDATE versions SET author = 'mallory'", "author differs from event"),
+        (
+            # SQLite stores a text literal as TEXT in a BLOB column: found, not a traceback
+            "versions",
+            "UPDATE versions SET content = 'altered'",
+            "study DEMO-0001 version 1: the stored content does not match",
+        ),
     ],
-    ids=["content", "pdf", "record", "meaning", "event-column", "version-author"],
+    ids=["content", "pdf", "record", "meaning", "event-column", "version-author", "content-text"],
 )
 def test_tampering_is_found_by_verify(
     db: Database, tmp_path: Path, table: str, statement: str, message: str

@@ -97,7 +97,7 @@ def _chain(where: str, events: Iterable[EventRow]) -> str:
             raise IntegrityFailure(
                 where, f"{name}: does not link to event {seq - 1} (previous hash differs)"
             )
-        if sha256_hex(bytes(e.body)) != e.hash:
+        if _hash_of(e.body) != e.hash:
             raise IntegrityFailure(where, f"{name}: its hash does not match its stored bytes")
         body = audit.body_of(e)
         columns = {
@@ -120,6 +120,14 @@ def _chain(where: str, events: Iterable[EventRow]) -> str:
     return prev
 
 
+def _hash_of(value: Any) -> str | None:
+    """SHA-256 of a stored binary column; ``None`` when it no longer holds bytes (a text or number
+    written over it outside segreport: altered, whatever it now says)."""
+    if not isinstance(value, bytes | bytearray | memoryview):
+        return None
+    return sha256_hex(bytes(value))
+
+
 def _differs(facts: dict[str, Any], body: dict[str, Any]) -> list[str]:
     detail = body.get("detail", {})
     return sorted(k for k, v in facts.items() if detail.get(k) != v)
@@ -127,7 +135,7 @@ def _differs(facts: dict[str, Any], body: dict[str, Any]) -> list[str]:
 
 def _version(where: str, row: VersionRow, sid: str, by: dict[Any, EventRow]) -> None:
     name = f"study {sid} version {row.version}"
-    if sha256_hex(bytes(row.content)) != row.content_sha256:
+    if _hash_of(row.content) != row.content_sha256:
         raise IntegrityFailure(where, f"{name}: the stored content does not match its SHA-256")
     event = next((by[k] for a in VERSION_ACTIONS if (k := (sid, row.version, a)) in by), None)
     if event is None:
@@ -143,11 +151,11 @@ def _signature(
     where: str, sig: SignatureRow, row: VersionRow, sid: str, by: dict[Any, EventRow]
 ) -> None:
     name = f"signature of study {sid} version {row.version}"
-    if sha256_hex(bytes(sig.record_json)) != sig.record_sha256:
+    if _hash_of(sig.record_json) != sig.record_sha256:
         raise IntegrityFailure(
             where, f"{name}: the stored record does not match its SHA-256 (altered)"
         )
-    if sha256_hex(bytes(sig.pdf)) != sig.pdf_sha256:
+    if _hash_of(sig.pdf) != sig.pdf_sha256:
         raise IntegrityFailure(
             where, f"{name}: the stored PDF does not match its SHA-256 (altered)"
         )
