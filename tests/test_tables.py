@@ -139,3 +139,22 @@ def test_deidentified_rows_have_no_date_but_the_year(analyses: list[Analysis]) -
     row = tables.studies_frame([tables.study_row(deidentify(analyses[0], b"k" * 32))]).iloc[0]
     assert pd.isna(row["date"]) and row["year"] == analyses[0].study.year
     assert row["study_id"].startswith("S-") and bool(row["deidentified"])
+
+
+def test_perfusion_columns_follow_the_record_lists() -> None:
+    # CONTRACT: reversible = normal at rest and abnormal at peak; a defect abnormal at rest and
+    # worse at peak (segment 2: 2 -> 3) is partially reversible, in its own column, never counted
+    # as reversible (Porter TR et al., JASE 2018: reversible = normal at rest, abnormal at stress).
+    from conftest import NORMAL_17, analysed, stages
+
+    s = stages(rest=NORMAL_17, peak=NORMAL_17)
+    s["rest"]["perfusion"] = "121111 111111 1111 1"
+    s["peak"]["perfusion"] = "131111 211111 1111 1"
+    a = analysed(stages=s, contrast={"administration": "infusion", "imaging_mi": 0.12})
+    assert (a.perfusion.reversible_segments, a.perfusion.partially_reversible_segments) == (
+        [7],
+        [2],
+    )
+    row = dict(zip(tables.STUDY_COLUMNS, tables.study_row(a), strict=True))
+    assert row["reversible_perfusion_segments"] == "7"
+    assert row["partially_reversible_perfusion_segments"] == "2"

@@ -88,6 +88,7 @@ STUDY_COLUMNS: dict[str, str | tuple[str, tuple[str, ...]]] = {
     "viable_segment_count": "Int64",
     **{f"defect_extent_percent_{s}": "Float64" for s in _STAGES},
     "reversible_perfusion_segments": "string",
+    "partially_reversible_perfusion_segments": "string",
     "fixed_perfusion_segments": "string",
     "stress_adequate": "boolean",
     "peak_hr_bpm": "Int64",
@@ -156,8 +157,9 @@ def study_row(analysis: Analysis) -> Row:
         },
         "viable_segment_count": len(a.conclusion.viable_segments),
         **{f"defect_extent_percent_{s}": a.perfusion.defect_extent_percent.get(s) for s in _STAGES},
-        "reversible_perfusion_segments": _joined(
-            a.perfusion.reversible_segments + a.perfusion.partially_reversible_segments
+        "reversible_perfusion_segments": _joined(a.perfusion.reversible_segments),
+        "partially_reversible_perfusion_segments": _joined(
+            a.perfusion.partially_reversible_segments
         ),
         "fixed_perfusion_segments": _joined(a.perfusion.fixed_segments),
         "stress_adequate": a.stress.adequate,
