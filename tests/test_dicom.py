@@ -267,6 +267,20 @@ def test_a_study_id_longer_than_sh_is_refused_not_cut() -> None:
     ]
 
 
+def test_a_backslash_in_a_name_is_refused_not_split() -> None:
+    # DICOM PS3.5 6.4: backslash separates the values of a multi-valued element, so a patient's
+    # name holding one would be read as two names (dciodvfy: bad Value Multiplicity).
+    data = demo_data()
+    data["patient"]["name"] = "Ann|Smith^Jr\\x"
+    data["order"] = ORDER
+    with pytest.raises(InputErrors) as caught:
+        dicom_objects(with_data(data), PDF, UNSIGNED, at=AT)
+    assert [str(p) for p in problems_of(caught.value)] == [
+        "patient.name: 'Ann|Smith^Jr\\\\x' holds a backslash, which DICOM Patient's Name (PN) "
+        "reads as a separator between two values (refused, not changed)"
+    ]
+
+
 def test_uids_are_stable_for_one_release_and_new_for_new_content() -> None:
     a = ordered()
     first = dicom_objects(a, PDF, FINAL, at=AT)
@@ -282,7 +296,8 @@ def test_dicom_command_writes_both_files_or_explains_the_refusal(tmp_path: Path)
     out = tmp_path / "out"
     refused = runner.invoke(main, ["dicom", str(DEMO / "DEMO-0001.yaml"), "-o", str(out)])
     assert refused.exit_code == 1
-    assert "Error: order.study_instance_uid:" in refused.output
+    # located in the study file, as every error is
+    assert f"Error: {DEMO / 'DEMO-0001.yaml'}: order.study_instance_uid:" in refused.output
     assert not out.exists() or not list(out.iterdir())  # no partial output
     made = runner.invoke(
         main, ["dicom", str(DEMO / "DEMO-0001.yaml"), "-o", str(out), "--new-study"]

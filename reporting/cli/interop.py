@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 import click
@@ -13,6 +15,19 @@ from reporting.cli.common import (
     source_options,
     user_errors,
 )
+from reporting.errors import InputError, InputErrors
+
+
+@contextmanager
+def located(study: Path | None, store_id: str | None, version: int) -> Iterator[None]:
+    """Problems with a value an interface cannot carry, located in the study file (or the stored
+    version) as every other error is."""
+    try:
+        yield
+    except (InputError, InputErrors) as exc:
+        where = str(study) if study is not None else f"study {store_id} version {version}"
+        errors = exc if isinstance(exc, InputErrors) else InputErrors([exc])
+        raise errors.prefixed(where) from None
 
 
 @click.command("fhir")
@@ -42,7 +57,9 @@ def fhir_bundle(
 
     with user_errors():
         r = released(study, store_id, version_number, db, settings_path, territory_map)
-        emit(bundle_json(r.analysis, pdf=r.pdf, release=r.release, settings=r.settings), output)
+        with located(study, store_id, r.release.version):
+            bundle = bundle_json(r.analysis, pdf=r.pdf, release=r.release, settings=r.settings)
+        emit(bundle, output)
 
 
 @click.command("hl7")
@@ -69,7 +86,9 @@ def hl7_message(
 
     with user_errors():
         r = released(study, store_id, version_number, db, settings_path, territory_map)
-        emit(oru_message(r.analysis, r.pdf, r.release), output)
+        with located(study, store_id, r.release.version):
+            message = oru_message(r.analysis, r.pdf, r.release)
+        emit(message, output)
 
 
 @click.command("dicom")
@@ -106,9 +125,10 @@ def dicom(
         r = released(
             study, store_id, version_number, db, settings_path, territory_map, new_study=new_study
         )
-        objects = dicom_objects(
-            r.analysis, r.pdf, r.release, settings=r.settings, new_study=new_study
-        )
+        with located(study, store_id, r.release.version):
+            objects = dicom_objects(
+                r.analysis, r.pdf, r.release, settings=r.settings, new_study=new_study
+            )
         if objects.warning:
             click.echo(f"Warning: {objects.warning}", err=True)
         for path in write_dicom(r.analysis, objects, outdir):

@@ -95,7 +95,9 @@ def imaging_study(analysis: Analysis, settings: Settings, *, new_study: bool) ->
 
 
 def check_dicom_fields(analysis: Analysis) -> None:
-    """Refuse values longer than the DICOM fields they go into (never cut them)."""
+    """Refuse values longer than the DICOM fields they go into (never cut them), and values with
+    a backslash, which DICOM reads as the separator between values (PS3.5 6.4: the patient's
+    name would become two names); never changed either."""
     problems: list[InputError] = []
 
     def limit(location: str, value: str | None, most: int, field: str) -> None:
@@ -105,6 +107,14 @@ def check_dicom_fields(analysis: Analysis) -> None:
                     location,
                     f"{value[:80]!r} is {len(value)} characters; DICOM {field} holds at most "
                     f"{most} (refused, not cut)",
+                )
+            )
+        if value is not None and "\\" in value:
+            problems.append(
+                InputError(
+                    location,
+                    f"{value[:80]!r} holds a backslash, which DICOM {field} reads as a separator "
+                    "between two values (refused, not changed)",
                 )
             )
 
