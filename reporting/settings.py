@@ -12,7 +12,8 @@ from functools import cache
 from pathlib import Path
 from typing import Any
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
+from pydantic_core import ErrorDetails
 
 from reporting.documents import bundled_yaml, read_bytes_limited, read_yaml
 from reporting.errors import InputError, InputErrors
@@ -241,16 +242,15 @@ class Settings(BaseModel):
             raise ValueError("kinetics_beta_min_per_s must be below kinetics_beta_max_per_s")
         return self
 
-    @model_validator(mode="after")
-    def _real_system_uris(self) -> Settings:
-        for name in ("lab_code_system_uri", "lab_identifier_system_uri"):
-            value = getattr(self, name)
-            if value is not None and not _is_real_uri(value):
-                raise ValueError(
-                    f"{name} must be an absolute http(s) or urn: URI the lab controls, "
-                    f"not a placeholder; got {value!r}"
-                )
-        return self
+    @field_validator("lab_code_system_uri", "lab_identifier_system_uri")
+    @classmethod
+    def _real_system_uri(cls, value: str | None) -> str | None:
+        if value is not None and not _is_real_uri(value):
+            raise ValueError(
+                "must be an absolute http(s) or urn: URI the lab controls, not a placeholder; "
+                f"got {value!r}"
+            )
+        return value
 
     def cited(self, name: str) -> str:
         """The source of setting ``name``; a lab's own value says so and keeps the default's source."""
@@ -373,9 +373,13 @@ def load_settings(path: Path | None) -> Settings:
     try:
         return Settings.model_validate(merged)
     except ValidationError as exc:
-        raise InputErrors(
-            [
-                InputError(f"{path}: {'.'.join(str(p) for p in e['loc'])}", e["msg"])
-                for e in exc.errors()
-            ]
-        ) from None
+        raise InputErrors([_setting_problem(path, e) for e in exc.errors()]) from None
+
+
+def _setting_problem(path: Path, error: ErrorDetails) -> InputError:
+    """A settings problem located at its setting (the file alone for a rule across settings),
+    without pydantic's "Value error, " prefix."""
+    where = ".".join(str(p) for p in error["loc"])
+    return InputError(
+        f"{path}: {where}" if where else str(path), error["msg"].removeprefix("Value error, ")
+    )

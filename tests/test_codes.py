@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import re
+from pathlib import Path
 from typing import Any, cast
 
 import pytest
@@ -15,7 +16,7 @@ from reporting.codes import FHIR_SYSTEMS, Scheme, code, code_table, fhir_system
 from reporting.errors import InputErrors, problems_of
 from reporting.load import study_from_data
 from reporting.segments import SegmentModel, segments_of
-from reporting.settings import Settings, default_settings
+from reporting.settings import Settings, default_settings, load_settings
 
 # Per-segment wall-motion LOINC codes, HL7 Europe imaging report implementation guide [C].
 PUBLISHED_LOINC = {
@@ -122,6 +123,18 @@ def test_settings_refuse_placeholder_or_relative_system_uris(uri: str) -> None:
     data = default_settings().model_dump() | {"lab_code_system_uri": uri}
     with pytest.raises(ValueError, match="not a placeholder"):
         Settings.model_validate(data)
+
+
+def test_a_placeholder_uri_in_a_settings_file_is_located_at_its_setting(tmp_path: Path) -> None:
+    # The problem names the setting, without pydantic's "Value error, " prefix.
+    path = tmp_path / "lab.yaml"
+    path.write_text("lab_code_system_uri: https://lab.invalid/codes\n", encoding="utf-8")
+    with pytest.raises(InputErrors) as caught:
+        load_settings(path)
+    assert [str(p) for p in problems_of(caught.value)] == [
+        f"{path}: lab_code_system_uri: must be an absolute http(s) or urn: URI the lab controls, "
+        "not a placeholder; got 'https://lab.invalid/codes'"
+    ]
 
 
 def _problems(order: dict[str, Any]) -> list[str]:
