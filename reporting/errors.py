@@ -25,6 +25,11 @@ class InputError(ReportingError, ValueError):
         super().__init__(f"{location}: {problem}" if location else problem)
 
 
+class UsageError(InputError):
+    """Arguments or options that do not go together, or a missing one: exit 2, as click's own
+    usage errors, where every other input problem exits 1."""
+
+
 class InputErrors(ReportingError, ValueError):
     """Several input problems found together; ``problems`` lists them in file order."""
 

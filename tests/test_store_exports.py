@@ -221,13 +221,16 @@ def test_latest_signed_version_by_default(store: dict[str, Any]) -> None:
     ids=["unsigned", "no-such-version", "both", "neither", "territory-map"],
 )
 def test_refusals_are_located_and_write_nothing(
-    store: dict[str, Any], args: tuple[str, ...], message: str
+    store: dict[str, Any], args: tuple[str, ...], message: str, request: pytest.FixtureRequest
 ) -> None:
+    request_id = request.node.callspec.id
     out = store["base"] / "refused"
     study_file = write_study(store["base"] / "file", study_data(STUDY))
     argv = [str(out) if a == "OUT" else str(study_file) if a == "STUDYFILE" else a for a in args]
     result = run(*argv, "--db", store["db"]) if "--store" in argv else run(*argv)
-    assert result.exit_code == 1
+    # CONTRACT: exit 1 for bad input, 2 for usage errors (options that do not go together)
+    usage = request_id in ("both", "neither", "territory-map")
+    assert result.exit_code == (2 if usage else 1)
     assert result.output.startswith(message), result.output
     assert not out.exists()
 
@@ -235,7 +238,7 @@ def test_refusals_are_located_and_write_nothing(
 def test_version_needs_store(tmp_path: Path) -> None:
     path = write_study(tmp_path, study_data(STUDY))
     result = run("hl7", str(path), "--version", "2")  # bad: --version without --store
-    assert result.exit_code == 1
+    assert result.exit_code == 2  # a usage error (CONTRACT)
     assert result.output.strip() == "Error: --version: only with --store ID"
 
 

@@ -12,7 +12,7 @@ from typing import Any, TypeVar
 
 import click
 
-from reporting.errors import ReportingError, problems_of
+from reporting.errors import ReportingError, UsageError, problems_of
 
 F = TypeVar("F", bound=Callable[..., Any])
 
@@ -22,9 +22,10 @@ def user_errors() -> Iterator[None]:
     try:
         yield
     except ReportingError as exc:
-        for problem in problems_of(exc):
+        problems = problems_of(exc)
+        for problem in problems:
             click.echo(f"Error: {problem}", err=True)
-        sys.exit(1)
+        sys.exit(2 if all(isinstance(p, UsageError) for p in problems) else 1)
 
 
 STDOUT_NAMES = frozenset({"-", "/dev/stdout", "/dev/fd/1", "/proc/self/fd/1"})

@@ -10,7 +10,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from reporting.errors import InputError
+from reporting.errors import UsageError
 
 if TYPE_CHECKING:
     from reporting.interop.from_file import Released
@@ -30,20 +30,20 @@ def released_from(
     signed stored version (the two are mutually exclusive; ``version`` and ``db`` go with the store).
     """
     if study is not None and store_id is not None:
-        raise InputError("--store", "give either a STUDY file or --store ID, not both")
+        raise UsageError("--store", "give either a STUDY file or --store ID, not both")
     if store_id is None:
         if study is None:
-            raise InputError(
+            raise UsageError(
                 "STUDY", "missing: give a study file, or --store ID for a signed stored version"
             )
         for given, option in ((version, "--version"), (db, "--db")):
             if given is not None:
-                raise InputError(option, "only with --store ID")
+                raise UsageError(option, "only with --store ID")
         from reporting.interop.from_file import release_from_file
 
         return release_from_file(study, settings_path=settings_path, territory_map=territory_map)
     if territory_map is not None:
-        raise InputError(
+        raise UsageError(
             "--territory-map", "not with --store: a stored version keeps the map it was signed with"
         )
     from reporting.settings import load_settings
