@@ -231,12 +231,12 @@ def response_notes(
                 source="A segment turning aneurysmal only at stress is implausible (common practice)",
             )
         )
-    dosed = [
+    dosed = study.protocol in EXERCISE_PROTOCOLS and [
         stage_words(stage, study.protocol)
         for stage, data in study.stages.items()
         if data.dose_ug_kg_min is not None or data.atropine_mg is not None
     ]
-    if study.protocol in EXERCISE_PROTOCOLS and dosed:
+    if dosed:
         notes.append(
             Note(
                 kind=NoteKind.PROBABLE_ENTRY_ERROR,

@@ -13,6 +13,7 @@ from pathlib import Path
 from typing import Any
 
 from pydantic import ValidationError
+from pydantic_core import ErrorDetails
 
 from reporting.documents import check_suffix, key_lines, parse_document, read_text
 from reporting.documents import read_document as read_document  # re-exported for callers
@@ -147,6 +148,8 @@ def _located(
         problem = f"{_shown(error['input'])} is not a whole number"
     elif kind in ("date_from_datetime_parsing", "date_parsing", "date_type"):
         problem = f"{_shown(error['input'])} is not a date (use YYYY-MM-DD)"
+    elif kind == "value_error":  # a validator's ValueError: its own words, without pydantic's tag
+        problem = problem.removeprefix("Value error, ")
     elif kind == "enum" or kind == "literal_error":
         problem = f"{_shown(error['input'])} is not allowed; {problem[0].lower()}{problem[1:]}"
     if segment is not None and not problem.startswith("segment"):
@@ -154,6 +157,12 @@ def _located(
     path = ".".join(str(p) for p in loc if p != "[key]")
     where = source if line is None else f"{source}: line {line}"
     return line, InputError(f"{where}: {path}" if path else where, problem)
+
+
+def located_problem(error: ErrorDetails, source: str) -> InputError:
+    """One pydantic error of any model read from ``source`` (a settings file, say), worded and
+    located as a study's errors are."""
+    return _located(dict(error), source)[1]
 
 
 def _key_problem(loc: list[Any], message: str) -> str:

@@ -673,12 +673,11 @@ def _study_problems(
             missing = [n for n in range(1, count + 1) if n not in scores]
             if missing:
                 problems.append(
-                    _problem(
+                    _too_few(
                         where,
-                        f"{len(scores)} scores given; the {count}-segment model needs {count} "
-                        f"(none for segment {number_ranges(missing)}; use x for not visualised)",
                         len(scores),
-                        kind=SCORE_COUNT,
+                        count,
+                        f" (none for segment {number_ranges(missing)}; use x for not visualised)",
                     )
                 )
             if kind == "wall_motion" and scale == 4:
@@ -832,11 +831,17 @@ def _hinted(error: ErrorDetails, data: dict[Any, Any]) -> InitErrorDetails:
         count = _segment_count(data.get("segment_model", int(SegmentModel.SEVENTEEN)))
         raw = stage.get(loc[2]) if isinstance(stage, dict) else None
         hint = _group_hint(raw, count) if count is not None else None
-        if hint is not None:
-            given = error["input"]
-            message = (
-                f"{given} scores given; the {count}-segment model needs {count}: {hint}; "
-                "use x for not visualised"
-            )
-            return _problem(loc, message, given, kind=SCORE_COUNT)
+        if hint is not None and count is not None:
+            return _too_few(loc, error["input"], count, f": {hint}; use x for not visualised")
     return _again(error)
+
+
+def _too_few(loc: tuple[str | int, ...], given: int, count: int, why: str) -> InitErrorDetails:
+    """Too few scores for the ``count``-segment model; ``why`` follows (which segments have
+    none, or which ring group is short)."""
+    return _problem(
+        loc,
+        f"{given} scores given; the {count}-segment model needs {count}{why}",
+        given,
+        kind=SCORE_COUNT,
+    )

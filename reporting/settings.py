@@ -13,7 +13,6 @@ from pathlib import Path
 from typing import Any
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
-from pydantic_core import ErrorDetails
 
 from reporting.documents import bundled_yaml, read_bytes_limited, read_yaml
 from reporting.errors import InputError, InputErrors
@@ -373,13 +372,6 @@ def load_settings(path: Path | None) -> Settings:
     try:
         return Settings.model_validate(merged)
     except ValidationError as exc:
-        raise InputErrors([_setting_problem(path, e) for e in exc.errors()]) from None
+        from reporting.load import located_problem
 
-
-def _setting_problem(path: Path, error: ErrorDetails) -> InputError:
-    """A settings problem located at its setting (the file alone for a rule across settings),
-    without pydantic's "Value error, " prefix."""
-    where = ".".join(str(p) for p in error["loc"])
-    return InputError(
-        f"{path}: {where}" if where else str(path), error["msg"].removeprefix("Value error, ")
-    )
+        raise InputErrors([located_problem(e, str(path)) for e in exc.errors()]) from None
