@@ -8,7 +8,6 @@ loads a study, its lab territory map and a lab settings file first.
 
 from __future__ import annotations
 
-import logging
 from collections.abc import Mapping
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -55,8 +54,6 @@ from reporting.wording import CAUTIONS
 
 if TYPE_CHECKING:
     from reporting.kinetics.curves import CurveSet
-
-log = logging.getLogger(__name__)
 
 
 Scores = Mapping[int, int | None]
@@ -220,7 +217,6 @@ def analyze(
         + response_notes(study, settings, segments, entry_errors)
         + quality_notes(study, settings, segments, wall, perf)
     )
-    log.debug("analysed %s: %d segments, status %s", study.study.id, len(segments), answer.status)
 
     analysis = Analysis(
         schema_version=RECORD_SCHEMA_VERSION,

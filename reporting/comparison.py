@@ -35,7 +35,6 @@ it is no change of the heart: the change map shows it as not compared.
 from __future__ import annotations
 
 import datetime as dt
-import logging
 from enum import StrEnum
 from typing import TYPE_CHECKING
 
@@ -49,7 +48,6 @@ from reporting.segments import Territory
 if TYPE_CHECKING:
     from reporting.results import Analysis, Note, TerritoryResult
 
-log = logging.getLogger(__name__)
 
 SOURCE = "common practice"
 """Source of the comparison rules (FACTS gives no published rule for them)."""
@@ -220,9 +218,6 @@ def compare(
         wmsi=wmsi,
         territories=territories,
         changed_segments=changed,
-    )
-    log.debug(
-        "compared %s with %s: %d changed segments", current.study.id, prior.study.id, len(changed)
     )
     return comparison, made
 

@@ -37,7 +37,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import logging
 from collections.abc import Iterable, Mapping
 from functools import lru_cache
 from json.encoder import encode_basestring_ascii
@@ -46,8 +45,6 @@ from typing import Any
 
 from reporting.model import Stage, Study
 from reporting.results import Analysis, ImpressionStatus
-
-log = logging.getLogger(__name__)
 
 BASIS_VERSION = "segreport-findings-1"
 
@@ -204,7 +201,9 @@ def with_impression_state(analysis: Analysis) -> Analysis:
     if status is ImpressionStatus.NONE:
         return analysis
     if status is ImpressionStatus.STALE:
-        log.info(
+        import logging  # here: the one message of this module, and not every analysis needs logging
+
+        logging.getLogger(__name__).info(
             "%s: the reader's impression was written against earlier findings", analysis.study.id
         )
     # model_copy carries the hash already made (it lives in the instance's __dict__)

@@ -7,13 +7,11 @@ the names fix the order) and the study id is safe to use in a file name. Each fi
 (``"111111 111111 1111 1"``, ``x`` for not visualised) or as a mapping of segment number to score.
 """
 
-from __future__ import annotations
-
 import datetime as dt
 import re
 from collections.abc import Mapping
 from enum import StrEnum
-from typing import Annotated, Any, Literal
+from typing import Annotated, Any, Literal, Self
 
 from pydantic import (
     AfterValidator,
@@ -574,7 +572,7 @@ class Study(_Input):
     )
 
     @model_validator(mode="after")
-    def _whole_study(self) -> Study:
+    def _whole_study(self) -> Self:
         stages = {
             stage.value: {
                 kind: scores
@@ -596,7 +594,7 @@ class Study(_Input):
         return self
 
     @model_validator(mode="after")
-    def _vasodilator_only_for_vasodilator_stress(self) -> Study:
+    def _vasodilator_only_for_vasodilator_stress(self) -> Self:
         if self.vasodilator is not None and self.protocol is not Protocol.VASODILATOR:
             raise ValidationError.from_exception_data(
                 "Study",
@@ -613,7 +611,7 @@ class Study(_Input):
 
     @model_validator(mode="wrap")
     @classmethod
-    def _every_problem(cls, data: Any, handler: ModelWrapValidatorHandler[Study]) -> Study:
+    def _every_problem(cls, data: Any, handler: ModelWrapValidatorHandler[Self]) -> Self:
         # Field errors stop pydantic before the whole-study checks run; run those checks on the
         # raw data as well, so a reader sees every problem in one pass. Defined after the "after"
         # validators so that it wraps them too (pydantic applies model validators in order).

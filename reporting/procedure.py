@@ -9,16 +9,11 @@ beyond them belongs in the reader's comments. The input models here are part of 
 and the ACC/AHA exercise-testing guideline (Gibbons RJ et al., 2002 update; from memory).
 """
 
-from __future__ import annotations
-
-import logging
 from enum import StrEnum
-from typing import Any
+from typing import Any, Self
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 from pydantic_core import PydanticCustomError
-
-log = logging.getLogger(__name__)
 
 
 class BaselineRhythm(StrEnum):
@@ -284,7 +279,7 @@ class Vasodilator(_Input):
     )
 
     @model_validator(mode="after")
-    def _dose_in_the_agent_unit(self) -> Vasodilator:
+    def _dose_in_the_agent_unit(self) -> Self:
         wanted = DOSE_FIELD[self.agent]
         for name in DOSE_UNITS:
             if name != wanted and getattr(self, name) is not None:

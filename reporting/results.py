@@ -6,13 +6,11 @@ back to the study file. Its JSON form *is* the analysis record (``schemas/record
 the keys fixed by the interface contract are all here.
 """
 
-from __future__ import annotations
-
 import datetime as dt
 from collections.abc import Mapping
 from enum import StrEnum
 from functools import cached_property
-from typing import Any, Literal, cast
+from typing import Any, Literal, Self, cast
 
 from pydantic import (
     BaseModel,
@@ -126,7 +124,7 @@ class StudyHeader(_Result):
         return data
 
     @model_validator(mode="after")
-    def _year_fits_date(self) -> StudyHeader:
+    def _year_fits_date(self) -> Self:
         if self.year <= 0:
             raise ValueError("year is required when the date is null")
         if self.date is not None and self.date.year != self.year:
@@ -555,7 +553,7 @@ class ProcedureSummary(_Result):
     )
 
     @classmethod
-    def from_study(cls, study: Study) -> ProcedureSummary:
+    def from_study(cls, study: Study) -> Self:
         """The record form of the study's ``procedure``, ``vasodilator`` and stage image quality."""
         p, v = study.procedure, study.vasodilator
         return cls(
@@ -656,9 +654,7 @@ class Analysis(_Result):
 
         return findings_sha256(self)
 
-    def model_copy(
-        self, *, update: Mapping[str, Any] | None = None, deep: bool = False
-    ) -> Analysis:
+    def model_copy(self, *, update: Mapping[str, Any] | None = None, deep: bool = False) -> Self:
         """A copy; one whose ``update`` may change what the derived values are made from makes
         them again when read (only a new impression status or comparison keeps them)."""
         copied = super().model_copy(update=update, deep=deep)
@@ -669,16 +665,16 @@ class Analysis(_Result):
 
     @model_validator(mode="wrap")
     @classmethod
-    def _stored_derived(cls, data: Any, handler: ValidatorFunctionWrapHandler) -> Analysis:
+    def _stored_derived(cls, data: Any, handler: ValidatorFunctionWrapHandler) -> Self:
         """A record read back keeps its written computed impression and findings hash."""
         if not isinstance(data, dict) or not DERIVED_FIELDS.intersection(data):
-            return cast(Analysis, handler(data))
+            return cast(Self, handler(data))
         rest = {k: v for k, v in data.items() if k not in DERIVED_FIELDS}
         stored = {k: data[k] for k in DERIVED_FIELDS if k in data}
         for name, value in stored.items():
             if not isinstance(value, str):
                 raise ValueError(f"{name}: expected text, got {type(value).__name__}")
-        analysis = cast(Analysis, handler(rest))
+        analysis = cast(Self, handler(rest))
         analysis.__dict__.update(stored)  # what cached_property would have stored
         return analysis
 

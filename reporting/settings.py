@@ -5,12 +5,10 @@ subset with a YAML file of plain ``name: value`` pairs; unknown names and wrong 
 their location. Settings are immutable: pass a different object, never change one in place.
 """
 
-from __future__ import annotations
-
 from enum import StrEnum
 from functools import cache
 from pathlib import Path
-from typing import Any
+from typing import Any, Self
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
@@ -236,7 +234,7 @@ class Settings(BaseModel):
     )
 
     @model_validator(mode="after")
-    def _kinetics_beta_bounds(self) -> Settings:
+    def _kinetics_beta_bounds(self) -> Self:
         if self.kinetics_beta_min_per_s >= self.kinetics_beta_max_per_s:
             raise ValueError("kinetics_beta_min_per_s must be below kinetics_beta_max_per_s")
         return self

@@ -25,6 +25,46 @@ def test_help_does_not_import_heavy_modules() -> None:
     assert out.stdout.strip().splitlines()[-1] == "HEAVY:"
 
 
+def test_a_command_loads_only_its_own_module(tmp_path: Path) -> None:
+    # Start-up cost of one `segreport analyze` (issue 11, item 8): the batch, server, quality and
+    # interface commands are not imported to run it, nor is logging (common practice)
+    CliRunner().invoke(main, ["demo", "-o", str(tmp_path)])
+    study = tmp_path / "DEMO-0002.yaml"
+    code = (
+        "import sys\n"
+        "from reporting.cli import main\n"
+        f"try:\n    main(['analyze', {str(study)!r}])\nexcept SystemExit:\n    pass\n"
+        "loaded = sorted(m for m in sys.modules if m.startswith('reporting.cli.') or m == 'logging')\n"
+        "print('LOADED:' + ','.join(loaded))\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip().splitlines()[-1] == "LOADED:reporting.cli.common,reporting.cli.study"
+
+
+def test_every_command_is_listed_and_a_near_miss_is_suggested() -> None:
+    listed = CliRunner().invoke(main, ["--help"]).output
+    for name in [
+        "agreement",
+        "analyze",
+        "batch",
+        "curves",
+        "demo",
+        "dicom",
+        "fhir",
+        "hl7",
+        "qa",
+        "report",
+        "schema",
+        "serve",
+        "store",
+        "validate",
+    ]:
+        assert f"\n  {name} " in listed
+    wrong = CliRunner().invoke(main, ["analyse"])
+    assert wrong.exit_code == 2
+    assert "Did you mean 'analyze'?" in wrong.output
+
+
 def test_python_dash_m_runs_the_cli() -> None:
     out = subprocess.run(
         [sys.executable, "-m", "reporting", "--help"], capture_output=True, text=True, check=True
@@ -100,3 +140,14 @@ def test_unwritable_output_is_one_error_line(tmp_path: Path) -> None:
     assert result.stderr.startswith("Error: ") and "cannot write" in result.stderr
     schema = CliRunner().invoke(main, ["schema", "-o", str(tmp_path / "blocker" / "s")])
     assert schema.exit_code == 1 and "cannot write" in schema.stderr
+
+
+def test_model_modules_keep_their_annotations_evaluated() -> None:
+    # pydantic evaluates string annotations (PEP 563) field by field at import, which made up a
+    # tenth of one `segreport analyze` (issue 11, item 8); see DEVELOPERS.md, "House rules"
+    import reporting
+
+    package = Path(reporting.__file__).parent
+    for name in ("model", "results", "settings", "procedure", "kinetics/models"):
+        text = (package / f"{name}.py").read_text(encoding="utf-8")
+        assert "from __future__ import annotations" not in text, name

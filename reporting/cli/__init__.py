@@ -3,11 +3,13 @@
 Each command parses its options, calls one or two library functions and turns a
 :class:`~reporting.errors.ReportingError` into ``Error: <location>: <problem>`` lines on stderr with
 exit code 1 (click's usage errors exit 2). Heavy modules are imported inside the commands so that
-``segreport --help`` stays quick. The commands live by subject in this package's modules.
+``segreport --help`` stays quick. The commands live by subject in this package's modules, and a
+command's module is imported only when that command runs (or when the help lists them all).
 """
 
 from __future__ import annotations
 
+import importlib
 import os
 
 import click
@@ -19,11 +21,55 @@ from reporting.wording import CAUTION_LINE
 # Set PYDANTIC_DISABLE_PLUGINS to an empty string to scan for plugins anyway.
 os.environ.setdefault("PYDANTIC_DISABLE_PLUGINS", "__all__")
 
-from reporting.cli import batch, interop, quality, serve, study
 from reporting.store.command import store_group
+
+# command name -> (module, attribute); see _Commands
+COMMANDS: dict[str, tuple[str, str]] = {
+    "analyze": ("reporting.cli.study", "analyze"),
+    "validate": ("reporting.cli.study", "validate"),
+    "report": ("reporting.cli.study", "report"),
+    "curves": ("reporting.cli.study", "curves"),
+    "demo": ("reporting.cli.study", "demo"),
+    "schema": ("reporting.cli.study", "schema"),
+    "serve": ("reporting.cli.serve", "serve"),
+    "qa": ("reporting.cli.quality", "qa"),
+    "agreement": ("reporting.cli.quality", "agreement"),
+    "batch": ("reporting.cli.batch", "batch"),
+    "fhir": ("reporting.cli.interop", "fhir_bundle"),
+    "hl7": ("reporting.cli.interop", "hl7_message"),
+    "dicom": ("reporting.cli.interop", "dicom"),
+}
+
+
+class _Commands(click.Group):
+    """The top-level group; a command in :data:`COMMANDS` is imported when first looked up.
+
+    One `segreport analyze` then loads the study commands only, not the batch, server, quality and
+    interface modules beside them (a few milliseconds of every run).
+    """
+
+    def list_commands(self, ctx: click.Context) -> list[str]:
+        return sorted({*self.commands, *COMMANDS})
+
+    def get_command(self, ctx: click.Context, cmd_name: str) -> click.Command | None:
+        if cmd_name not in self.commands and cmd_name in COMMANDS:
+            module, attribute = COMMANDS[cmd_name]
+            command = getattr(importlib.import_module(module), attribute)
+            assert isinstance(command, click.Command)
+            self.add_command(command, cmd_name)
+        return super().get_command(ctx, cmd_name)
+
+    def resolve_command(
+        self, ctx: click.Context, args: list[str]
+    ) -> tuple[str | None, click.Command | None, list[str]]:
+        if args and args[0] not in self.commands and args[0] not in COMMANDS:
+            for name in COMMANDS:  # an unknown name: load them all, so click can suggest one
+                self.get_command(ctx, name)
+        return super().resolve_command(ctx, args)
 
 
 @click.group(
+    cls=_Commands,
     context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100},
     epilog=CAUTION_LINE,
 )
@@ -37,20 +83,4 @@ def main() -> None:
     """
 
 
-for command in (
-    study.analyze,
-    study.validate,
-    study.report,
-    study.curves,
-    study.demo,
-    study.schema,
-    serve.serve,
-    quality.qa,
-    quality.agreement,
-    batch.batch,
-    interop.fhir_bundle,
-    interop.hl7_message,
-    interop.dicom,
-):
-    main.add_command(command)
 main.add_command(store_group())  # `segreport store …`, loaded on first use

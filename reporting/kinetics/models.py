@@ -5,8 +5,6 @@ becomes the published JSON Schema). They import neither numpy nor the fitting co
 models can be built and validated without loading the numerical stack.
 """
 
-from __future__ import annotations
-
 from enum import StrEnum
 
 from pydantic import BaseModel, ConfigDict, Field
