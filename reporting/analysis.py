@@ -8,9 +8,9 @@ loads a study, its lab territory map and a lab settings file first.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from reporting import conclusion, scoring, stress
 from reporting.errors import InputError
@@ -314,22 +314,28 @@ def _segment_results(
         territory = assignment[n]
         others = sorted({seg.default_territory, *seg.alternative_territories} - {territory})
         course = courses[n]
-        results.append(
-            SegmentResult(
-                number=n,
-                name=seg.name,
-                ring=seg.ring,
-                territory=territory,
-                shared_supply=others,
-                wall_motion={stage: scores[n] for stage, scores in wall.items()},
-                perfusion={stage: scores[n] for stage, scores in perf.items()},
-                response=course.response,
-                baseline_stage=course.baseline_stage,
-                ischemia_onset_stage=course.worse_from,
-                perfusion_response=scoring.perfusion_response(perf_rest.get(n), perf_peak.get(n)),
-            )
-        )
+        fields = {
+            "number": n,
+            "name": seg.name,
+            "ring": seg.ring,
+            "territory": territory,
+            "shared_supply": others,
+            "wall_motion": {stage: scores[n] for stage, scores in wall.items()},
+            "perfusion": {stage: scores[n] for stage, scores in perf.items()},
+            "response": course.response,
+            "baseline_stage": course.baseline_stage,
+            "ischemia_onset_stage": course.worse_from,
+            "perfusion_response": scoring.perfusion_response(perf_rest.get(n), perf_peak.get(n)),
+        }
+        results.append(_new_segment_result(fields))
     return results
+
+
+# SegmentResult(**fields) less the keyword wrapper of BaseModel.__init__: the same validation,
+# a few microseconds less for each of the 16-18 segments of every analysis
+_new_segment_result: Callable[[dict[str, Any]], SegmentResult] = (
+    SegmentResult.__pydantic_validator__.validate_python
+)
 
 
 def _territory_result(
