@@ -9,12 +9,19 @@ Prints figures; asserts nothing.
 
     python benchmarks/bench_analysis.py                 # both parts
     python benchmarks/bench_analysis.py --whole-process # start-up only
+    python benchmarks/bench_analysis.py --instructions  # per-study instruction count (valgrind)
+
+Wall-clock figures on a shared machine swing by 10 % or more between runs, even for one code in
+two folders; ``--instructions`` counts the CPU instructions of validate + analyse per study with
+valgrind's callgrind, which gives the same figure on every run, for comparing two versions.
 """
 
 from __future__ import annotations
 
 import argparse
 import os
+import re
+import shutil
 import statistics
 import subprocess
 import sys
@@ -47,6 +54,38 @@ def in_process(rounds: int = 3, per_round: int = 2000) -> None:
         f"in-process validate + analyse:          {per_round / best_validate:8.0f} studies/s (target >= 2000)"
     )
     print(f"in-process validate + analyse + record: {per_round / best_full:8.0f} studies/s")
+
+
+def _analyse_many(count: int) -> None:
+    """Child of --instructions: load everything, warm up, then validate + analyse ``count`` studies."""
+    documents = [yaml.safe_load(demo_study_text(n)) for n in demo_study_names()]
+    documents = [d for d in documents if "perfusion_curves" not in d]
+    for i in range(50 + count):
+        analyze(study_from_data(documents[i % len(documents)]))
+
+
+def _instructions(count: int) -> int:
+    done = subprocess.run(
+        [
+            *("valgrind", "--tool=callgrind", "--callgrind-out-file=/dev/null"),
+            *(sys.executable, __file__, "--analyse-many", str(count)),
+        ],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
+    found = re.search(r"Collected : (\d+)", done.stderr)
+    if found is None:
+        raise SystemExit(f"valgrind printed no instruction count:\n{done.stderr[-2000:]}")
+    return int(found.group(1))
+
+
+def instructions_per_study(count: int = 300) -> None:
+    """CPU instructions of one validate + analyse, from two runs that differ only in ``count``."""
+    if shutil.which("valgrind") is None:
+        raise SystemExit("--instructions needs valgrind (Debian package valgrind)")
+    per_study = (_instructions(count) - _instructions(0)) / count
+    print(f"validate + analyse: {per_study / 1e6:.3f} million instructions per study (callgrind)")
 
 
 BASELINE = "import yaml, click\nfrom pydantic import BaseModel\nclass M(BaseModel):\n    x: int"
@@ -109,6 +148,10 @@ def whole_process(runs: int = 30, *, bytecode_cache: bool = True) -> None:
 if __name__ == "__main__":
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--whole-process", action="store_true", help="start-up figures only")
+    parser.add_argument(
+        "--instructions", action="store_true", help="instructions per study (needs valgrind)"
+    )
+    parser.add_argument("--analyse-many", type=int, help=argparse.SUPPRESS)
     parser.add_argument("--runs", type=int, default=30, help="interleaved runs (default 30)")
     parser.add_argument(
         "--as-given",
@@ -117,6 +160,12 @@ if __name__ == "__main__":
         "modules from source on every run)",
     )
     args = parser.parse_args()
+    if args.analyse_many is not None:
+        _analyse_many(args.analyse_many)
+        raise SystemExit(0)
+    if args.instructions:
+        instructions_per_study()
+        raise SystemExit(0)
     if not args.whole_process:
         in_process()
     whole_process(args.runs, bytecode_cache=not args.as_given)
