@@ -143,8 +143,8 @@ def test_unwritable_output_is_one_error_line(tmp_path: Path) -> None:
 
 
 def test_model_modules_keep_their_annotations_evaluated() -> None:
-    # pydantic evaluates string annotations (PEP 563) field by field at import, which made up a
-    # tenth of one `segreport analyze` (issue 11, item 8); see DEVELOPERS.md, "House rules"
+    # pydantic evaluates string annotations (PEP 563) field by field at import, a few per cent of
+    # one `segreport analyze` (issue 11, item 8; common practice); see DEVELOPERS.md, "House rules"
     import reporting
 
     package = Path(reporting.__file__).parent
