@@ -37,9 +37,14 @@ from reporting.export.record import record_json
 from reporting.load import study_from_data
 
 
-def in_process(rounds: int = 3, per_round: int = 2000) -> None:
+def _demo_documents() -> list[dict[str, object]]:
+    """The demo studies without perfusion curves, as parsed documents."""
     documents = [yaml.safe_load(demo_study_text(n)) for n in demo_study_names()]
-    documents = [d for d in documents if "perfusion_curves" not in d]
+    return [d for d in documents if "perfusion_curves" not in d]
+
+
+def in_process(rounds: int = 3, per_round: int = 2000) -> None:
+    documents = _demo_documents()
     best_validate = best_full = float("inf")
     for _ in range(rounds):
         start = time.perf_counter()
@@ -58,8 +63,7 @@ def in_process(rounds: int = 3, per_round: int = 2000) -> None:
 
 def _analyse_many(count: int) -> None:
     """Child of --instructions: load everything, warm up, then validate + analyse ``count`` studies."""
-    documents = [yaml.safe_load(demo_study_text(n)) for n in demo_study_names()]
-    documents = [d for d in documents if "perfusion_curves" not in d]
+    documents = _demo_documents()
     for i in range(50 + count):
         analyze(study_from_data(documents[i % len(documents)]))
 
