@@ -69,6 +69,8 @@ def _analyse_many(count: int) -> None:
 
 
 def _instructions(count: int) -> int:
+    # One hash seed for both runs: string hashes decide set and dict layouts and the interpreter's
+    # attribute-cache collisions, which move start-up by millions of instructions between seeds.
     done = subprocess.run(
         [
             *("valgrind", "--tool=callgrind", "--callgrind-out-file=/dev/null"),
@@ -77,6 +79,7 @@ def _instructions(count: int) -> int:
         capture_output=True,
         text=True,
         check=True,
+        env={**os.environ, "PYTHONHASHSEED": "0"},
     )
     found = re.search(r"Collected : (\d+)", done.stderr)
     if found is None:
@@ -88,6 +91,9 @@ def instructions_per_study(count: int = 300) -> None:
     """CPU instructions of one validate + analyse, from two runs that differ only in ``count``."""
     if shutil.which("valgrind") is None:
         raise SystemExit("--instructions needs valgrind (Debian package valgrind)")
+    # A run outside valgrind first writes any stale bytecode, which would otherwise be compiled
+    # (and counted) in the first measured run only.
+    subprocess.run([sys.executable, __file__, "--analyse-many", "0"], check=True)
     per_study = (_instructions(count) - _instructions(0)) / count
     print(f"validate + analyse: {per_study / 1e6:.3f} million instructions per study (callgrind)")
 
