@@ -24,9 +24,14 @@ from reporting.deidentify import (
 )
 from reporting.export import tables
 from reporting.results import Analysis, StudyHeader
+from reporting.store.export import VERSION_COLUMNS, VERSIONS_SCOPE
 
 KEY = b"an invented key for tests only, 32+ bytes"
-COLUMNS = {"studies": list(tables.STUDY_COLUMNS), "segments": list(tables.SEGMENT_COLUMNS)}
+COLUMNS = {
+    "studies": list(tables.STUDY_COLUMNS),
+    "segments": list(tables.SEGMENT_COLUMNS),
+    VERSIONS_SCOPE: list(VERSION_COLUMNS),
+}
 
 # Invented lab-map text that must never reach an extract (a lab names maps after whoever drew them).
 MAP_TITLE = "Map drawn for Peregrine Ashdown-Vale by Dr Hesper Kilbride"

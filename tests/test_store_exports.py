@@ -10,6 +10,7 @@ fhir.resources R4B models.
 from __future__ import annotations
 
 import base64
+import csv
 import itertools
 import json
 import shutil
@@ -333,3 +334,37 @@ def test_a_version_signed_without_a_lab_is_released_through_an_amendment_naming_
     sr = pydicom.dcmread(tmp_path / "v2" / f"{STUDY}.sr.dcm")
     assert sr.VerifyingObserverSequence[0].VerifyingOrganization == LAB
     assert "PredecessorDocumentsSequence" not in sr  # v1 was never released as an SR
+
+
+def test_the_store_export_names_the_version_and_status_of_each_record(
+    store: dict[str, Any], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # A signed record says only that its report was signed (report_status final) and never changes;
+    # versions.csv says which version of each study went out and whether it amended, corrected or
+    # added to a signed one (FHIR R4 DiagnosticReport.status codes,
+    # http://hl7.org/fhir/R4/valueset-diagnostic-report-status.html).
+    def exported(name: str, *extra: str) -> tuple[list[tuple[str, str, str]], list[str]]:
+        out = store["base"] / name
+        result = run("store", "export", "-o", str(out), *extra, "--db", store["db"])
+        assert result.exit_code == 0, result.output
+        with (out / "versions.csv").open(encoding="utf-8", newline="") as handle:
+            rows = [
+                (r["study_id"], r["version"], r["version_status"]) for r in csv.DictReader(handle)
+            ]
+        registry = (out / "registry.ndjson").read_text(encoding="utf-8").splitlines()
+        return rows, [json.loads(line)["study"]["id"] for line in registry]
+
+    rows, ids = exported("export-all")
+    assert rows == [
+        ("DEMO-0002", "2", "amended"),
+        ("DEMO-0004", "3", "appended"),
+        ("UNSIGNED-1", "1", "preliminary"),
+    ]
+    assert ids == [r[0] for r in rows]
+    rows, ids = exported("export-final", "--final-only")
+    assert rows == [("DEMO-0002", "2", "amended"), ("DEMO-0004", "3", "appended")]
+    monkeypatch.setenv("SEGREPORT_DEID_KEY", "an invented key for tests only, 32+ bytes")
+    rows, ids = exported("export-deid", "--deidentify")
+    # de-identified: the records' own pseudonyms, the versions and statuses kept
+    assert [r[0] for r in rows] == ids and not any(i.startswith(("DEMO", "UNSIGNED")) for i in ids)
+    assert [r[1:] for r in rows] == [("2", "amended"), ("3", "appended"), ("1", "preliminary")]

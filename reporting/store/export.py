@@ -6,7 +6,13 @@ record JSON; an unsigned one is analysed again from its stored content. The file
 ``batch --no-pdf`` writes, through the same writers (:mod:`reporting.batch`,
 :mod:`reporting.export.tables`): ``<id>.record.json``, ``registry.ndjson``, ``studies.csv``,
 ``segments.csv`` (and Parquet with pyarrow) and ``failures.csv``; with a de-identification key
-every record goes through the project's de-identification first (see :func:`_released`). The
+every record goes through the project's de-identification first (see :func:`_released`).
+
+A record says only whether its report was signed (``study.report_status`` final), and a signed
+record never changes, so ``versions.csv`` adds what the store alone knows: which version of each
+study was exported and its status (``preliminary``, ``final``, ``amended``, ``corrected`` or
+``appended``, FHIR DiagnosticReport.status), one row per exported study under the record's own
+study id (the pseudonym when de-identified). The
 export also writes ``chain-head.txt``, the audit chain head it was taken at, to be kept apart
 from the store (``store verify --expect-head``), and adds an ``export`` event to the audit trail
 naming that head.
@@ -14,9 +20,13 @@ naming that head.
 
 from __future__ import annotations
 
+import contextlib
+import csv
 import logging
+import os
 from collections.abc import Callable, Iterator
 from pathlib import Path
+from typing import NamedTuple
 
 from sqlalchemy import select
 
@@ -25,18 +35,32 @@ from reporting.batch.results import Problem, Status, StudyResult
 from reporting.batch.study import record_text, registry_line
 from reporting.errors import OutputError, ReportingError, problems_of
 from reporting.export import tables
-from reporting.files import write_atomic
+from reporting.files import temporary_beside, write_atomic
 from reporting.results import Analysis
 from reporting.settings import Settings
 from reporting.store import audit, content
 from reporting.store.canonical import Origin
 from reporting.store.engine import Database
 from reporting.store.schema import SignatureRow, StudyRow, VersionRow
+from reporting.store.status import VersionStatus, effective_status
 
 log = logging.getLogger(__name__)
 
 HEAD_FILE = "chain-head.txt"
+VERSIONS_CSV = "versions.csv"
+VERSIONS_SCOPE = "versions"
+"""The de-identification allow-list's scope for the columns of ``versions.csv``."""
+VERSION_COLUMNS = ("study_id", "version", "version_status")
 CHUNK = 128
+
+
+class _Chosen(NamedTuple):
+    study_id: str
+    content: bytes
+    record: bytes | None
+    """The signed record; None for an unsigned version."""
+    version: int
+    status: VersionStatus
 
 
 def _released(analysis: Analysis, key: bytes | None) -> Analysis:
@@ -48,12 +72,16 @@ def _released(analysis: Analysis, key: bytes | None) -> Analysis:
     return deidentify(analysis, key)
 
 
-def _chosen(db: Database, final_only: bool) -> Iterator[tuple[str, bytes, bytes | None]]:
-    """(study id, content bytes, signed record or None) of each exported study, by study id."""
+def _chosen(db: Database, final_only: bool) -> Iterator[_Chosen]:
+    """The version exported of each study, by study id."""
     with db.read() as session:
         query = (
             select(
-                StudyRow.study_id, VersionRow.content, SignatureRow.record_json, VersionRow.version
+                StudyRow.study_id,
+                VersionRow.content,
+                SignatureRow.record_json,
+                VersionRow.version,
+                VersionRow.status,
             )
             .join(VersionRow, VersionRow.study_pk == StudyRow.id)
             .outerjoin(SignatureRow, SignatureRow.version_pk == VersionRow.id)
@@ -62,11 +90,13 @@ def _chosen(db: Database, final_only: bool) -> Iterator[tuple[str, bytes, bytes 
         if final_only:
             query = query.where(SignatureRow.id.is_not(None))
         last = None
-        for sid, data, record, _ in session.execute(query).yield_per(CHUNK):
+        for sid, data, record, version, created_as in session.execute(query).yield_per(CHUNK):
             if sid == last:
                 continue
             last = sid
-            yield sid, bytes(data), bytes(record) if record is not None else None
+            signed = record is not None
+            status = effective_status(VersionStatus(created_as), signed)
+            yield _Chosen(sid, bytes(data), bytes(record) if signed else None, version, status)
 
 
 def _labeller(key: bytes | None) -> Callable[[str], str]:
@@ -85,6 +115,36 @@ def _problem(problem: ReportingError, key: bytes | None) -> Problem:
     from reporting.batch import redact
 
     return redact.invalid(getattr(problem, "location", ""))
+
+
+class _VersionsFile:
+    """``versions.csv``, written to a temporary file and moved to its name by :meth:`commit`."""
+
+    def __init__(self, outdir: Path, *, deidentified: bool) -> None:
+        self.target = outdir / VERSIONS_CSV
+        self.deidentified = deidentified
+        fd, self.temp = temporary_beside(self.target)
+        self.file = os.fdopen(fd, "w", encoding="utf-8", newline="")
+        self.writer = csv.writer(self.file, lineterminator="\n")
+        self.writer.writerow(VERSION_COLUMNS)
+
+    def add(self, study_id: str, version: int, status: VersionStatus) -> None:
+        row: tuple[object, ...] = (study_id, version, status.value)
+        if self.deidentified:
+            from reporting.deidentify import deidentified_row
+
+            row = deidentified_row(VERSIONS_SCOPE, VERSION_COLUMNS, row)
+        self.writer.writerow(row)
+
+    def commit(self) -> Path:
+        self.file.close()
+        os.replace(self.temp, self.target)
+        return self.target
+
+    def abort(self) -> None:
+        self.file.close()
+        with contextlib.suppress(FileNotFoundError):
+            self.temp.unlink()
 
 
 def export(
@@ -106,21 +166,23 @@ def export(
         ) from None
     with db.read() as session:
         head = audit.chain_head(session)
+    versions: _VersionsFile | None = None
     try:
+        versions = _VersionsFile(outdir, deidentified=key is not None)
         with tables.TableWriter(outdir) as writer:
             studies: list[tables.Row] = []
             segments: list[tables.Row] = []
-            for sid, data, record in _chosen(db, final_only):
+            for chosen in _chosen(db, final_only):
                 try:
-                    if record is not None:
-                        analysis = Analysis.model_validate_json(record)
+                    if chosen.record is not None:
+                        analysis = Analysis.model_validate_json(chosen.record)
                     else:
                         analysis = content.analyse(
-                            content.parse(data), final=False, settings=settings
+                            content.parse(chosen.content), final=False, settings=settings
                         )
                 except ReportingError as exc:
                     failed = StudyResult(
-                        source=sid,
+                        source=chosen.study_id,
                         status=Status.FAILED,
                         problems=tuple(_problem(p, key) for p in problems_of(exc)),
                     )
@@ -129,15 +191,18 @@ def export(
                 analysis = _released(analysis, key)
                 write_atomic(outdir / f"{analysis.study.id}.record.json", record_text(analysis))
                 aggregates.record(registry_line(analysis))
+                versions.add(analysis.study.id, chosen.version, chosen.status)
                 studies.append(tables.study_row(analysis))
                 segments.extend(tables.segment_rows(analysis))
                 if len(studies) >= CHUNK:
                     writer.append(studies, segments)
                     studies, segments = [], []
             writer.append(studies, segments)
-            written = aggregates.commit() + writer.commit()
+            written = aggregates.commit() + writer.commit() + [versions.commit()]
     except BaseException:
         aggregates.abort()
+        if versions is not None:
+            versions.abort()
         raise
     write_atomic(outdir / HEAD_FILE, head + "\n")
     with db.write() as session:
