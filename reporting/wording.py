@@ -93,3 +93,18 @@ def shown_target_bpm(target_bpm: float) -> int:
 def shown_percent(percent: float) -> int:
     """A heart rate as % of the predicted maximum, as printed: rounded down, never overstated."""
     return math.floor(percent)
+
+
+_SUPERSEDING_KIND = {"appended": "Addendum", "corrected": "Corrected report"}
+
+
+def supersession_words(
+    status: str, version: int, supersedes: int, reason: str | None
+) -> tuple[str, str]:
+    """The label and text saying which version a signed ``status`` version (amended, corrected or
+    appended) supersedes and why: the PDF's page-1 line, and the same words in HL7 and FHIR."""
+    kind = _SUPERSEDING_KIND.get(status, "Amended report")
+    return (
+        kind,
+        f"version {version} supersedes version {supersedes}. Reason: {reason or 'not given'}",
+    )

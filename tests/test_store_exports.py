@@ -32,6 +32,7 @@ from reporting.cli import main
 __all__ = ["cheap_argon2"]
 
 STUDY = "DEMO-0002"
+AMENDED_LINE = "Amended report: version 2 supersedes version 1. Reason: segment 7 rescored"
 LAB = "Larkspur Valley Heart Clinic, Echo Laboratory"  # DEMO-0002's lab
 needs_dciodvfy = pytest.mark.skipif(shutil.which("dciodvfy") is None, reason="dicom3tools missing")
 
@@ -136,6 +137,9 @@ def test_hl7_from_the_store(store: dict[str, Any], version: int, status: str) ->
     assert obr[25] == status  # HL7 table 0123: F final, C correction
     (ed,) = [o for o in hl7_fields(message, "OBX") if o[2] == "ED"]
     assert base64.b64decode(ed[5].split("^")[-1]) == store["pdf"][version]  # the signed PDF
+    # the amendment's reason travels as text too, in the signed PDF's own page-1 words
+    notes = [n[3] for n in hl7_fields(message, "NTE")]
+    assert (notes[0] == AMENDED_LINE) == (version == 2), notes
 
 
 @pytest.mark.parametrize(
@@ -150,6 +154,23 @@ def test_fhir_from_the_store(store: dict[str, Any], version: int, status: str) -
     assert report["status"] == status  # FHIR R4 DiagnosticReport.status
     assert base64.b64decode(report["presentedForm"][0]["data"]) == store["pdf"][version]
     assert "Dr Alice Example" in json.dumps(data)  # the signer interprets
+    # an amendment: a Provenance of the report (FHIR R4 Provenance: target, recorded, activity
+    # v3-DataOperation UPDATE, reason, agent.who) with the reason in the signed PDF's words
+    provenance = [
+        e["resource"] for e in data["entry"] if e["resource"]["resourceType"] == "Provenance"
+    ]
+    assert (AMENDED_LINE in report["text"]["div"]) == (version == 2)
+    if version == 1:
+        assert provenance == []
+        return
+    ((revision,),) = [provenance]
+    assert revision["reason"] == [{"text": AMENDED_LINE}]
+    assert revision["activity"]["coding"][0]["code"] == "UPDATE"
+    assert revision["target"] == [{"reference": data["entry"][0]["fullUrl"]}]  # the report
+    (signer,) = [
+        e for e in data["entry"] if e["fullUrl"] == revision["agent"][0]["who"]["reference"]
+    ]
+    assert signer["resource"]["name"] == [{"text": "Dr Alice Example"}]
 
 
 @needs_dciodvfy
@@ -274,6 +295,13 @@ def test_corrected_and_appended_versions(
     assert parse_message(message, validation_level=VALIDATION_LEVEL.TOLERANT).validate() is True
     (obr,) = hl7_fields(message, "OBR")
     assert obr[25] == hl7_status
+    line = {
+        2: "Corrected report: version 2 supersedes version 1. Reason: typo",
+        3: "Addendum: version 3 supersedes version 2. Reason: addendum",
+    }.get(version)
+    assert (hl7_fields(message, "NTE")[0][3] == line) == (line is not None)
+    revisions = [r["reason"][0]["text"] for r in kinds if r["resourceType"] == "Provenance"]
+    assert revisions == ([line] if line else [])
 
 
 def test_each_replacing_sr_names_the_one_before(store: dict[str, Any]) -> None:

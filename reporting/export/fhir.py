@@ -16,6 +16,9 @@ FHIR R4 http.html conditional update). Patient, Practitioners and the ServiceReq
   preliminary), ``conclusion`` in the PDF's own words (its Impression section), the PDF as
   ``presentedForm`` with its base64 SHA-1 ``hash``, and the cautions in the narrative ``text`` (R4
   has no ``note`` on DiagnosticReport).
+- Provenance, for a version that supersedes an earlier signed one: the revision (v3-DataOperation
+  UPDATE) of the DiagnosticReport, its signer and the reason, in the words the signed PDF prints on
+  page 1 (also a paragraph of the report's narrative).
 - Observations (:mod:`reporting.export.fhir_observations`): per stage and segment the wall motion
   and perfusion score, per stage WMSI and LVEF. **The stage is carried explicitly** in a component
   coded DCM 109055 "Protocol Stage" whose value is the SNOMED CT stress phase of DICOM CID 3207.
@@ -47,6 +50,7 @@ from reporting.settings import Settings, default_settings
 
 DIAGNOSTIC_SERVICE_SECTION = "http://terminology.hl7.org/CodeSystem/v2-0074"
 IDENTIFIER_TYPE = "http://terminology.hl7.org/CodeSystem/v2-0203"
+DATA_OPERATION = "http://terminology.hl7.org/CodeSystem/v3-DataOperation"
 XHTML = "http://www.w3.org/1999/xhtml"
 FHIR_STATUS = {
     ReportState.PRELIMINARY: "preliminary",
@@ -162,6 +166,7 @@ class _Builder:
         self.add(report_url, report, _conditional("DiagnosticReport", report["identifier"][0]))
         # The report comes first for a reader; a server orders a transaction by method anyway.
         self.entries.insert(0, self.entries.pop())
+        self.provenance(report_url, interpreter_ref)
         for url, resource in obs:
             self.add(url, resource, _conditional("Observation", resource["identifier"][0]))
         return {
@@ -301,9 +306,27 @@ class _Builder:
             ]
         return resource
 
+    def provenance(self, report_url: str, signer_ref: dict[str, Any] | None) -> None:
+        """For a version that supersedes another: a Provenance of the report naming the revision
+        (v3-DataOperation UPDATE), who signed it and why, in the words of the signed PDF."""
+        text = words.supersession_text(self.a, self.release)
+        if text is None or signer_ref is None or self.release.signer is None:
+            return
+        resource = {
+            "resourceType": "Provenance",
+            "target": [{"reference": report_url}],
+            "recorded": self.release.signer.signed_at.isoformat(),
+            "activity": {"coding": [{"system": DATA_OPERATION, "code": "UPDATE", "display": "revise"}]},
+            "reason": [{"text": text}],
+            "agent": [{"who": signer_ref}],
+        }  # fmt: skip
+        self.add(self.url("provenance"), resource, {"method": "POST", "url": "Provenance"})
+
     def narrative(self) -> str:
-        """The narrative ``text``: the PDF's headline, then the cautions (R4 has no note)."""
-        paragraphs = [words.headline(self.a), *self.a.cautions]
+        """The narrative ``text``: the PDF's headline, for a superseding version the line saying
+        which version it replaces and why, then the cautions (R4 has no note)."""
+        superseding = words.supersession_text(self.a, self.release)
+        paragraphs = [words.headline(self.a), *filter(None, [superseding]), *self.a.cautions]
         body = "".join(f"<p>{html.escape(p, quote=False)}</p>" for p in paragraphs)
         return f'<div xmlns="{XHTML}">{body}</div>'
 

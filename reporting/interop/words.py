@@ -7,6 +7,7 @@ one-sentence summary; nothing here re-words a finding.
 
 from __future__ import annotations
 
+from reporting.interop.release import Release
 from reporting.render.narrative.impression import (
     high_risk_paragraphs,
     summary,
@@ -14,6 +15,7 @@ from reporting.render.narrative.impression import (
 )
 from reporting.results import Analysis
 from reporting.segments import Territory
+from reporting.wording import supersession_words
 
 
 def headline(analysis: Analysis) -> str:
@@ -26,6 +28,18 @@ def conclusion_text(analysis: Analysis) -> str:
     record's computed impression, so a signed record sent later keeps the words it was signed
     with, whatever a later version would word."""
     return analysis.computed_impression
+
+
+def supersession_text(analysis: Analysis, release: Release) -> str | None:
+    """The signed PDF's page-1 line of a version that supersedes another (which one, and why);
+    None for a first version, and in a de-identified export (the reason is free text)."""
+    before = release.predecessor
+    if before is None or analysis.study.deidentified:
+        return None
+    kind, text = supersession_words(
+        release.state.value, release.version, before.version, before.reason
+    )
+    return f"{kind}: {text}"
 
 
 def territory_text(analysis: Analysis, territory: Territory) -> str:

@@ -16,6 +16,7 @@ from reportlab.platypus import Flowable, KeepTogether, Spacer, Table, TableStyle
 
 from reporting.render import palette
 from reporting.render.pdf.styles import Styles, labelled, paragraph
+from reporting.wording import supersession_words
 
 SHORT_HASH_CHARS = 12
 
@@ -59,18 +60,10 @@ def supersession_note(block: SignatureBlock, st: Styles) -> list[Flowable]:
     """Page-1 lines of an amendment or addendum: which version it replaces, and why."""
     if block.supersedes_version is None:
         return []
-    kind = {"appended": "Addendum", "corrected": "Corrected report"}.get(
-        block.status, "Amended report"
+    kind, text = supersession_words(
+        block.status, block.version, block.supersedes_version, block.reason
     )
-    lines: list[Flowable] = [
-        Spacer(1, 3),
-        labelled(
-            kind,
-            f"version {block.version} supersedes version {block.supersedes_version}. "
-            f"Reason: {block.reason or 'not given'}",
-            st,
-        ),
-    ]
+    lines: list[Flowable] = [Spacer(1, 3), labelled(kind, text, st)]
     lines += [
         labelled(f"Addendum ({a.author}, {a.at[:16].replace('T', ' ')})", a.text, st)
         for a in block.addenda
