@@ -264,3 +264,29 @@ def test_store_commands_take_the_lab_settings(db: str, tmp_path: Path) -> None:
     assert locked.exit_code == 1 and "locked" in locked.output, locked.output
     broken = as_alice(db, "sign", "DEMO-0001", "--settings", str(tmp_path / "none.yaml"))
     assert broken.exit_code == 1 and "none.yaml" in broken.output, broken.output
+
+
+def test_an_export_folder_holds_identified_outputs_or_an_extract_never_both(
+    db: str, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # As for batch (issue 11, item 1): a de-identified export into a folder holding an identified
+    # export (or the other way round) is refused before anything is written; before this check,
+    # DEMO-0001.record.json stayed beside the extract.
+    monkeypatch.setenv("SEGREPORT_DEID_KEY", "a test key of enough length")
+    as_alice(db, "import", str(write_study(tmp_path / "in", study_data())))
+    identified, extract = tmp_path / "identified", tmp_path / "extract"
+    assert run("export", "-o", str(identified), "--db", db).exit_code == 0
+    assert run("export", "-o", str(extract), "--deidentify", "--db", db).exit_code == 0
+    for folder, flag, problem in (
+        (identified, ("--deidentify",), "holds identified outputs"),
+        (extract, (), "holds a de-identified extract"),
+    ):
+        before = {p: p.read_bytes() for p in folder.rglob("*") if p.is_file()}
+        result = run("export", "-o", str(folder), *flag, "--db", db)
+        assert result.exit_code == 1
+        assert result.stderr.startswith(f"Error: {folder}: {problem}"), result.stderr
+        after = {p: p.read_bytes() for p in folder.rglob("*") if p.is_file()}
+        assert after == before  # nothing written
+    # the same mode again is an ordinary re-export
+    assert run("export", "-o", str(extract), "--deidentify", "--db", db).exit_code == 0
+    assert not any("DEMO" in p.name for p in extract.iterdir())

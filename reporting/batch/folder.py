@@ -1,4 +1,5 @@
-"""The output folder of a batch: one batch at a time (a lock), and one mode for ever (its stamp).
+"""The output folder of a batch or a store export: one writer at a time (a lock), and one mode for
+ever (its stamp).
 
 **Lock.** ``.segreport-batch/lock`` holds the pid of the batch writing the folder. It is taken with
 an exclusive ``flock`` held for the whole run, so the kernel releases it when the batch dies however
@@ -47,6 +48,7 @@ _AGGREGATES = (
     "segments.csv",
     "studies.parquet",
     "segments.parquet",
+    "versions.csv",  # a store export's
 )
 _IDENTIFIED_ONLY = (".pdf", ".svg")
 """Reports and maps: a de-identifying batch never writes them."""
@@ -113,13 +115,13 @@ def check_mode(outdir: Path, deidentify: bool) -> None:
         )
     elif deidentify:
         problem = (
-            "holds identified outputs (from a batch run without --deidentify); a de-identified "
+            "holds identified outputs (written without --deidentify); a de-identified "
             "extract needs a folder of its own: choose an empty output folder (--force does not "
             "change this)"
         )
     else:
         problem = (
-            "holds a de-identified extract (from a batch run with --deidentify); identified "
+            "holds a de-identified extract (written with --deidentify); identified "
             "outputs must not be mixed into it: choose another output folder (--force does not "
             "change this)"
         )

@@ -157,8 +157,55 @@ def export(
 ) -> list[Path]:
     """Write the export into ``outdir``; return the aggregate files written. A signed version is
     its signed record; an unsigned one is analysed with the lab's ``settings``."""
+    from reporting.batch import folder
+
+    # An output folder holds identified outputs or a de-identified extract, never both (as batch).
+    folder.check_mode(outdir, key is not None)  # before anything is written
     try:
         outdir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(
+            str(outdir), f"cannot write the export folder: {exc.strerror or exc}"
+        ) from None
+    with folder.locked(outdir):
+        folder.check_mode(outdir, key is not None)  # again: another writer may have been first
+        fingerprint = None
+        if key is not None:
+            from reporting.deidentify import key_fingerprint
+
+            fingerprint = key_fingerprint(key)
+        folder.write_mode(outdir, key is not None, fingerprint)
+        written, head = _export(db, outdir, key=key, final_only=final_only, settings=settings)
+    write_atomic(outdir / HEAD_FILE, head + "\n")
+    with db.write() as session:
+        # who took what out of the store, and at which head (21 CFR 11.10(e)); no paths, which
+        # may name a patient, and no key
+        audit.append(
+            session,
+            action="export",
+            actor=None,
+            origin=Origin.CLI,
+            detail={
+                "deidentified": key is not None,
+                "final_only": final_only,
+                "files": len(written) + 1,
+                "chain_head": head,
+            },
+        )
+    log.info("exported the store into %s at chain head %s", outdir, head)
+    return [*written, outdir / HEAD_FILE]
+
+
+def _export(
+    db: Database,
+    outdir: Path,
+    *,
+    key: bytes | None,
+    final_only: bool,
+    settings: Settings | None,
+) -> tuple[list[Path], str]:
+    """The records and tables of the export, and the audit chain head they were taken at."""
+    try:
         aggregates = Aggregates(outdir, _labeller(key))
     except OSError as exc:
         raise OutputError(
@@ -204,21 +251,4 @@ def export(
         if versions is not None:
             versions.abort()
         raise
-    write_atomic(outdir / HEAD_FILE, head + "\n")
-    with db.write() as session:
-        # who took what out of the store, and at which head (21 CFR 11.10(e)); no paths, which
-        # may name a patient, and no key
-        audit.append(
-            session,
-            action="export",
-            actor=None,
-            origin=Origin.CLI,
-            detail={
-                "deidentified": key is not None,
-                "final_only": final_only,
-                "files": len(written) + 1,
-                "chain_head": head,
-            },
-        )
-    log.info("exported the store into %s at chain head %s", outdir, head)
-    return [*written, outdir / HEAD_FILE]
+    return written, head
