@@ -104,6 +104,8 @@ def all_or_nothing(paths: list[Path]) -> Iterator[None]:
     except BaseException:
         for p in paths:
             if p not in existed:
-                with contextlib.suppress(FileNotFoundError):
+                # never mask the failure: a path whose folder is missing or is not a folder
+                # (NotADirectoryError) was never written
+                with contextlib.suppress(OSError):
                     p.unlink()
         raise

@@ -290,3 +290,20 @@ def test_an_export_folder_holds_identified_outputs_or_an_extract_never_both(
     # the same mode again is an ordinary re-export
     assert run("export", "-o", str(extract), "--deidentify", "--db", db).exit_code == 0
     assert not any("DEMO" in p.name for p in extract.iterdir())
+
+
+def test_show_into_something_that_is_not_a_folder_is_a_located_error(
+    db: str, tmp_path: Path
+) -> None:
+    # A FIFO (or a device) given as the output folder: the write fails at the first file, and the
+    # clean-up of the files not yet written must not hide that error behind a traceback (it did:
+    # NotADirectoryError while removing them). Common practice: one "Error:" line, exit 1.
+    import os
+
+    as_alice(db, "import", str(write_study(tmp_path / "in", study_data())))
+    fifo = tmp_path / "pipe"
+    os.mkfifo(fifo)
+    result = run("show", "DEMO-0001", "-o", str(fifo), "--db", db)
+    assert result.exit_code == 1
+    assert result.stderr.startswith(f"Error: {fifo}/DEMO-0001.v1.study.json: cannot write")
+    assert "Traceback" not in result.output
