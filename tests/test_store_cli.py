@@ -307,3 +307,33 @@ def test_show_into_something_that_is_not_a_folder_is_a_located_error(
     assert result.exit_code == 1
     assert result.stderr.startswith(f"Error: {fifo}/DEMO-0001.v1.study.json: cannot write")
     assert "Traceback" not in result.output
+
+
+def test_password_stdin_from_an_endless_stream_is_refused_at_once(db: str) -> None:
+    # --password-stdin < /dev/zero read one endless "line" until memory ran out (2 GB and more);
+    # now at most one password's length is read (NIST SP 800-63B 5.1.1.2 allows a maximum).
+    with open("/dev/zero", "rb") as zeros:
+        done = subprocess.run(
+            [
+                *(sys.executable, "-m", "reporting", "store", "sign", "DEMO-0001", "--db", db),
+                *("--as", "alice", "--password-stdin"),
+            ],
+            stdin=zeros,
+            capture_output=True,
+            text=True,
+            timeout=60,
+        )
+    assert done.returncode == 1
+    assert done.stderr.startswith(
+        "Error: --password-stdin: the line for the password for alice is longer than 1,024 "
+        "characters"
+    ), done.stderr
+
+
+def test_a_password_longer_than_the_limit_is_refused() -> None:
+    from reporting.store.errors import StoreError
+    from reporting.store.users import MAX_PASSWORD_CHARS, check_new_password
+
+    check_new_password("p" * MAX_PASSWORD_CHARS, "password")
+    with pytest.raises(StoreError, match="at most 1,024 characters"):
+        check_new_password("p" * (MAX_PASSWORD_CHARS + 1), "password")

@@ -83,10 +83,19 @@ class _Passwords:
 
     def read(self, prompt: str, *, new: bool = False) -> str:
         if self.from_stdin:
-            line = sys.stdin.readline()
+            from reporting.store.users import MAX_PASSWORD_CHARS
+
+            # bounded: a line longer than any password is refused, not read to its end
+            line = sys.stdin.readline(MAX_PASSWORD_CHARS + 2)
             if not line:
                 raise ReportingError(f"--password-stdin: no line for the {prompt.lower()}")
-            return line.rstrip("\r\n")
+            password = line.rstrip("\r\n")
+            if len(password) > MAX_PASSWORD_CHARS:
+                raise ReportingError(
+                    f"--password-stdin: the line for the {prompt.lower()} is longer than "
+                    f"{MAX_PASSWORD_CHARS:,} characters, more than any password"
+                )
+            return password
         value = click.prompt(prompt, hide_input=True, confirmation_prompt=new, err=True)
         assert isinstance(value, str)
         return value

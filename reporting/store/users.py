@@ -41,6 +41,9 @@ log = logging.getLogger(__name__)
 
 MIN_PASSWORD_CHARS = 10
 """Shortest password accepted (common practice)."""
+MAX_PASSWORD_CHARS = 1024
+"""Longest password accepted: NIST SP 800-63B 5.1.1.2 asks for at least 64 and allows a limit; a
+bound also keeps ``--password-stdin`` from reading without end (``< /dev/zero``)."""
 
 
 class Role(StrEnum):
@@ -111,6 +114,8 @@ def hash_password(password: str, where: str) -> str:
 def check_new_password(password: str, where: str) -> None:
     if len(password) < MIN_PASSWORD_CHARS:
         raise StoreError(where, f"the password must have at least {MIN_PASSWORD_CHARS} characters")
+    if len(password) > MAX_PASSWORD_CHARS:
+        raise StoreError(where, f"the password must have at most {MAX_PASSWORD_CHARS:,} characters")
     if password != password.strip():
         raise StoreError(where, "the password must not start or end with a space")
 
