@@ -53,6 +53,8 @@ KEY_ENV = "SEGREPORT_DEID_KEY"
 """Environment variable holding the de-identification key (used when no key file is given)."""
 MIN_KEY_BYTES = 16
 """Shortest key accepted: a short key could be guessed and the hashes reversed by trying ids."""
+MAX_KEY_FILE_BYTES = 4096
+"""Largest key file read (a key is a few dozen bytes; common practice)."""
 OLDEST_EXACT_AGE = 89
 """Ages above this are grouped as 90+ (45 CFR 164.514(b)(2)(i)(C))."""
 AGE_GROUP_90_PLUS = "90+"
@@ -263,12 +265,16 @@ def load_key(key_file: Path | None = None, *, environ: Mapping[str, str] | None 
     """
     env = os.environ if environ is None else environ
     if key_file is not None:
-        try:
-            key = Path(key_file).read_bytes().rstrip(b"\r\n")
-        except OSError as exc:
-            raise DeidentificationKeyError(
-                f"{key_file}: cannot read the de-identification key file: {exc.strerror or exc}"
-            ) from None
+        from reporting.documents import read_bytes_limited
+        from reporting.errors import InputError
+
+        try:  # bounded: a link to /dev/zero or a huge file is refused, not read to its end
+            raw = read_bytes_limited(
+                Path(key_file), what="de-identification key file", max_bytes=MAX_KEY_FILE_BYTES
+            )
+        except InputError as exc:
+            raise DeidentificationKeyError(f"{key_file}: {exc.problem}") from None
+        key = raw.rstrip(b"\r\n")
         where = str(key_file)
     elif env.get(KEY_ENV):
         key = env[KEY_ENV].encode("utf-8")

@@ -256,6 +256,20 @@ def test_key_is_required_with_a_clear_error(tmp_path: Path) -> None:
         BatchOptions(outdir=tmp_path, deidentify=True)
 
 
+def test_a_key_file_is_read_bounded(tmp_path: Path) -> None:
+    # --deid-key-file /dev/zero read without end (24 GB in 30 s) and a 3 GB file whole; a key file
+    # is now read as study files are (issue 11, item 3): a regular file, its size checked first.
+    zero = tmp_path / "zero.key"
+    zero.symlink_to("/dev/zero")
+    with pytest.raises(DeidentificationKeyError, match="is a device, not a regular file"):
+        load_key(zero, environ={})
+    sparse = tmp_path / "huge.key"
+    with sparse.open("wb") as handle:
+        handle.truncate(4 * 1024**3)  # 4 GB, sparse: nothing is written
+    with pytest.raises(DeidentificationKeyError, match="a de-identification key file is at most"):
+        load_key(sparse, environ={})
+
+
 def test_key_from_file_wins_over_environment(tmp_path: Path) -> None:
     key_file = tmp_path / "deid.key"
     key_file.write_bytes(KEY + b"\n")
