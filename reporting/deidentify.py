@@ -265,16 +265,7 @@ def load_key(key_file: Path | None = None, *, environ: Mapping[str, str] | None 
     """
     env = os.environ if environ is None else environ
     if key_file is not None:
-        from reporting.documents import read_bytes_limited
-        from reporting.errors import InputError
-
-        try:  # bounded: a link to /dev/zero or a huge file is refused, not read to its end
-            raw = read_bytes_limited(
-                Path(key_file), what="de-identification key file", max_bytes=MAX_KEY_FILE_BYTES
-            )
-        except InputError as exc:
-            raise DeidentificationKeyError(f"{key_file}: {exc.problem}") from None
-        key = raw.rstrip(b"\r\n")
+        key = _read_key_file(Path(key_file)).rstrip(b"\r\n")
         where = str(key_file)
     elif env.get(KEY_ENV):
         key = env[KEY_ENV].encode("utf-8")
@@ -289,6 +280,25 @@ def load_key(key_file: Path | None = None, *, environ: Mapping[str, str] | None 
             f"{where}: the de-identification key is {len(key)} bytes; use at least {MIN_KEY_BYTES}"
         )
     return key
+
+
+def _read_key_file(path: Path) -> bytes:
+    """At most :data:`MAX_KEY_FILE_BYTES` of ``path``: a regular file or a pipe (a key handed over
+    as ``--deid-key-file <(…)`` from a password manager); a link to ``/dev/zero`` or a huge file is
+    refused after that many bytes, never read to its end."""
+    try:
+        with path.open("rb") as handle:
+            raw = handle.read(MAX_KEY_FILE_BYTES + 1)
+    except OSError as exc:
+        raise DeidentificationKeyError(
+            f"{path}: cannot read the de-identification key file: {exc.strerror or exc}"
+        ) from None
+    if len(raw) > MAX_KEY_FILE_BYTES:
+        raise DeidentificationKeyError(
+            f"{path}: more than {MAX_KEY_FILE_BYTES:,} bytes; a de-identification key file holds "
+            "only the key"
+        )
+    return raw
 
 
 def keyed_hash(key: bytes, kind: str, value: str) -> str:

@@ -106,6 +106,6 @@ def all_or_nothing(paths: list[Path]) -> Iterator[None]:
             if p not in existed:
                 # never mask the failure: a path whose folder is missing or is not a folder
                 # (NotADirectoryError) was never written
-                with contextlib.suppress(OSError):
+                with contextlib.suppress(FileNotFoundError, NotADirectoryError):
                     p.unlink()
         raise

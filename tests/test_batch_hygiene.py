@@ -104,7 +104,9 @@ def test_a_second_batch_into_the_same_folder_is_refused_at_once(tmp_path: Path) 
         elapsed = time.monotonic() - started
         assert first.poll() is None, "the first batch ended too early for this test"
         assert second.returncode == 1
-        assert second.stderr.startswith(f"Error: {outdir}: another batch (process {first.pid}")
+        assert second.stderr.startswith(
+            f"Error: {outdir}: another batch or export (process {first.pid}"
+        )
         assert "Traceback" not in second.stderr
         assert elapsed < 10  # refused at once, not after waiting for the first batch
         assert first.wait(300) == 0, first.stderr.read()  # type: ignore[union-attr]
@@ -146,7 +148,9 @@ def test_a_lock_held_by_a_live_batch_refuses_in_process(tmp_path: Path) -> None:
     holder = BatchLock(outdir)
     holder.acquire()
     try:
-        with pytest.raises(OutputError, match=rf"another batch \(process {os.getpid()}, started "):
+        with pytest.raises(
+            OutputError, match=rf"another batch or export \(process {os.getpid()}, started "
+        ):
             run_batch(indir, BatchOptions(outdir=outdir, pdf=False))
         assert not list(outdir.glob("*.record.json"))  # nothing written
     finally:

@@ -337,3 +337,40 @@ def test_a_password_longer_than_the_limit_is_refused() -> None:
     check_new_password("p" * MAX_PASSWORD_CHARS, "password")
     with pytest.raises(StoreError, match="at most 1,024 characters"):
         check_new_password("p" * (MAX_PASSWORD_CHARS + 1), "password")
+
+
+def test_an_export_that_cannot_finish_its_files_renames_none_of_them(
+    db: str, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # A full disk surfaces when the last buffered rows are written. versions.csv is closed before
+    # any aggregate takes its name, so a failure leaves no registry without it, and the user
+    # gets one Error: line instead of a traceback (common practice: all or nothing).
+    import errno
+
+    from reporting.store import export
+
+    as_alice(db, "import", str(write_study(tmp_path / "in", study_data())))
+
+    def full(self: object) -> None:
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(export._VersionsFile, "close", full)
+    out = tmp_path / "export"
+    result = run("export", "-o", str(out), "--db", db)
+    assert result.exit_code == 1
+    assert result.stderr.startswith(f"Error: {out}: cannot write the export: No space left")
+    # each study's record is whole in itself (written as it goes, as batch does); no aggregate is
+    left = {p.name for p in out.iterdir()}
+    assert left.isdisjoint({"registry.ndjson", "studies.csv", "segments.csv", "versions.csv"})
+    assert not any(n.endswith(".part") for n in left) and "chain-head.txt" not in left
+
+
+def test_an_amendment_reason_is_at_most_what_the_exports_carry(db: str, tmp_path: Path) -> None:
+    # The reason travels in HL7, FHIR and DICOM (the release's limit, 2,000 characters, is the lab
+    # page's): a longer one is refused when amending, not later as a failed export.
+    path = write_study(tmp_path / "in", study_data())
+    as_alice(db, "import", str(path))
+    assert as_alice(db, "sign", "DEMO-0001").exit_code == 0
+    result = as_alice(db, "amend", "DEMO-0001", str(path), "--reason", "r" * 2001)
+    assert result.exit_code == 1
+    assert "Error: --reason: is 2,001 characters; at most 2,000" in result.stderr

@@ -206,7 +206,8 @@ class BatchLock:
         since = f", started {owner['started']}" if owner and owner.get("started") else ""
         return OutputError(
             str(self.outdir),
-            f"another batch ({who}{since}) is writing this output folder; wait for it to finish "
+            f"another batch or export ({who}{since}) is writing this output folder; wait for it "
+            "to finish "
             f"or choose another output folder (the lock is {BOOKKEEPING}/{LOCK})",
         )
 

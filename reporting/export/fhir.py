@@ -16,7 +16,8 @@ FHIR R4 http.html conditional update). Patient, Practitioners and the ServiceReq
   preliminary), ``conclusion`` in the PDF's own words (its Impression section), the PDF as
   ``presentedForm`` with its base64 SHA-1 ``hash``, and the cautions in the narrative ``text`` (R4
   has no ``note`` on DiagnosticReport).
-- Provenance, for a version that supersedes an earlier signed one: the revision (v3-DataOperation
+- Provenance, for a version that supersedes an earlier signed one (an update of an id derived from the
+  version, so sending the bundle again replaces it): the revision (v3-DataOperation
   UPDATE) of the DiagnosticReport, its signer and the reason, in the words the signed PDF prints on
   page 1 (also a paragraph of the report's narrative).
 - Observations (:mod:`reporting.export.fhir_observations`): per stage and segment the wall motion
@@ -320,7 +321,10 @@ class _Builder:
             "reason": [{"text": text}],
             "agent": [{"who": signer_ref}],
         }  # fmt: skip
-        self.add(self.url("provenance"), resource, {"method": "POST", "url": "Provenance"})
+        # One Provenance per version, its id derived from the version: sent again (after a
+        # timeout, say), the update replaces it instead of adding a second one.
+        url = self.url(f"provenance/v{self.release.version}")
+        self.add(url, resource, {"method": "PUT", "url": f"Provenance/{url[9:]}"})
 
     def narrative(self) -> str:
         """The narrative ``text``: the PDF's headline, for a superseding version the line saying

@@ -65,13 +65,19 @@ class Signer(BaseModel):
         return self
 
 
+MAX_REASON_CHARS = 2000
+"""Longest reason for an amendment (the lab page's limit; the CLI's too)."""
+
+
 class Predecessor(BaseModel):
     """The released version this one replaces (for DICOM's Predecessor Documents Sequence)."""
 
     model_config = ConfigDict(extra="forbid", frozen=True)
 
     version: int = Field(ge=1, description="Version number of the replaced version.")
-    reason: str = Field(min_length=1, max_length=1000, description="Why it was replaced.")
+    reason: str = Field(
+        min_length=1, max_length=MAX_REASON_CHARS, description="Why it was replaced."
+    )
     sr_sop_instance_uid: str | None = Field(
         default=None, description="SOP Instance UID of the SR sent for the replaced version."
     )

@@ -136,6 +136,9 @@ class _VersionsFile:
             row = deidentified_row(VERSIONS_SCOPE, VERSION_COLUMNS, row)
         self.writer.writerow(row)
 
+    def close(self) -> None:
+        self.file.close()
+
     def commit(self) -> Path:
         self.file.close()
         os.replace(self.temp, self.target)
@@ -176,22 +179,23 @@ def export(
             fingerprint = key_fingerprint(key)
         folder.write_mode(outdir, key is not None, fingerprint)
         written, head = _export(db, outdir, key=key, final_only=final_only, settings=settings)
-    write_atomic(outdir / HEAD_FILE, head + "\n")
-    with db.write() as session:
-        # who took what out of the store, and at which head (21 CFR 11.10(e)); no paths, which
-        # may name a patient, and no key
-        audit.append(
-            session,
-            action="export",
-            actor=None,
-            origin=Origin.CLI,
-            detail={
-                "deidentified": key is not None,
-                "final_only": final_only,
-                "files": len(written) + 1,
-                "chain_head": head,
-            },
-        )
+        # under the lock, so no other export's files come between these and their chain head
+        write_atomic(outdir / HEAD_FILE, head + "\n")
+        with db.write() as session:
+            # who took what out of the store, and at which head (21 CFR 11.10(e)); no paths,
+            # which may name a patient, and no key
+            audit.append(
+                session,
+                action="export",
+                actor=None,
+                origin=Origin.CLI,
+                detail={
+                    "deidentified": key is not None,
+                    "final_only": final_only,
+                    "files": len(written) + 1,
+                    "chain_head": head,
+                },
+            )
     log.info("exported the store into %s at chain head %s", outdir, head)
     return [*written, outdir / HEAD_FILE]
 
@@ -245,10 +249,15 @@ def _export(
                     writer.append(studies, segments)
                     studies, segments = [], []
             writer.append(studies, segments)
+            versions.close()  # its last rows reach the disk before any file takes its name
             written = aggregates.commit() + writer.commit() + [versions.commit()]
-    except BaseException:
+    except BaseException as exc:
         aggregates.abort()
         if versions is not None:
             versions.abort()
+        if isinstance(exc, OSError):  # a full disk, say: an Error: line, not a traceback
+            raise OutputError(
+                str(outdir), f"cannot write the export: {exc.strerror or exc}"
+            ) from None
         raise
     return written, head

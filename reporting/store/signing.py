@@ -20,6 +20,7 @@ from sqlalchemy.orm import Session
 
 from reporting.errors import InputError
 from reporting.impression import impression_is_stale
+from reporting.interop.release import MAX_REASON_CHARS
 from reporting.model import Study
 from reporting.render.pdf.signature import Addendum, SignatureBlock
 from reporting.settings import Settings
@@ -219,6 +220,8 @@ def amend(
     the lab's ``settings``."""
     _signer(who)
     reason = _text(reason, "--reason")
+    if reason is not None and len(reason) > MAX_REASON_CHARS:
+        raise InputError("--reason", f"is {len(reason):,} characters; at most {MAX_REASON_CHARS:,}")
     addendum = _text(addendum, "--addendum")
     if [path, edited, addendum].count(None) != 2:
         raise InputError("amend", "give either a study FILE or --addendum TEXT")

@@ -20,7 +20,7 @@ from reporting.store.audit import body_of
 from reporting.store.canonical import Origin
 from reporting.store.errors import StoreError
 from reporting.store.schema import EventRow, User
-from reporting.store.users import Role
+from reporting.store.users import MAX_PASSWORD_CHARS, Role
 from reporting.web.api import REFUSED
 from reporting.web.lab.access import CallerDep
 from reporting.web.lab.context import lab_of
@@ -59,7 +59,9 @@ class NewUser(_Model):
     name: str = Field(pattern=USER_NAME, description="The user's name (their id).")
     full_name: str = Field(min_length=1, max_length=200, description="Printed name.")
     roles: list[Role] = Field(min_length=1, description="Roles (at least one).")
-    password: str = Field(min_length=1, max_length=1000, description="Temporary password.")
+    password: str = Field(
+        min_length=1, max_length=MAX_PASSWORD_CHARS, description="Temporary password."
+    )
 
 
 class SettingInEffect(_Model):

@@ -23,7 +23,7 @@ from starlette.concurrency import run_in_threadpool
 
 from reporting.store.canonical import Origin
 from reporting.store.errors import AuthError
-from reporting.store.users import Person, Role, authenticate, set_password
+from reporting.store.users import MAX_PASSWORD_CHARS, Person, Role, authenticate, set_password
 from reporting.web.api import ProblemList
 from reporting.web.handlers import refused
 from reporting.web.lab.access import CallerDep
@@ -54,14 +54,18 @@ class SignIn(_Body):
     """A sign-in: user name and password."""
 
     user: str = Field(min_length=1, max_length=200, description="The user's name (their id).")
-    password: str = Field(min_length=1, max_length=1000, description="The user's password.")
+    password: str = Field(
+        min_length=1, max_length=MAX_PASSWORD_CHARS, description="The user's password."
+    )
 
 
 class PasswordChange(_Body):
     """A password change: the current password, then the new one."""
 
-    old: str = Field(min_length=1, max_length=1000, description="The current password.")
-    new: str = Field(min_length=1, max_length=1000, description="The new password.")
+    old: str = Field(
+        min_length=1, max_length=MAX_PASSWORD_CHARS, description="The current password."
+    )
+    new: str = Field(min_length=1, max_length=MAX_PASSWORD_CHARS, description="The new password.")
 
 
 class SessionInfo(_Body):

@@ -9,7 +9,9 @@ from typing import Any
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from reporting.interop.release import MAX_REASON_CHARS
 from reporting.store.status import VersionStatus
+from reporting.store.users import MAX_PASSWORD_CHARS
 from reporting.store.worklist import WorklistStatus
 from reporting.web.api import Problem
 
@@ -127,7 +129,9 @@ class NewStudy(_Shape):
 class SignRequest(_Shape):
     """Signing the latest version: the signer's password again (21 CFR 11.200)."""
 
-    password: str = Field(description="The signer's password, re-entered.", max_length=1024)
+    password: str = Field(
+        description="The signer's password, re-entered.", max_length=MAX_PASSWORD_CHARS
+    )
     meaning: str | None = Field(
         default=None, description="What the signature means (default: approved as final).",
         max_length=200,
@@ -138,8 +142,12 @@ class AmendRequest(_Shape):
     """An amendment: the changed study, why, and the signer's password."""
 
     study: dict[str, Any] = Field(description="The amended study (study-file form).")
-    reason: str = Field(description="Why the signed report is amended.", max_length=2000)
-    password: str = Field(description="The signer's password, re-entered.", max_length=1024)
+    reason: str = Field(
+        description="Why the signed report is amended.", max_length=MAX_REASON_CHARS
+    )
+    password: str = Field(
+        description="The signer's password, re-entered.", max_length=MAX_PASSWORD_CHARS
+    )
     correction: bool = Field(default=False, description="Corrects an error (status corrected).")
     meaning: str | None = Field(
         default=None, description="Meaning of the signature.", max_length=200
