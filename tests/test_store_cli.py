@@ -374,3 +374,15 @@ def test_an_amendment_reason_is_at_most_what_the_exports_carry(db: str, tmp_path
     result = as_alice(db, "amend", "DEMO-0001", str(path), "--reason", "r" * 2001)
     assert result.exit_code == 1
     assert "Error: --reason: is 2,001 characters; at most 2,000" in result.stderr
+
+
+def test_an_export_sweeps_the_temporaries_of_one_killed_before(db: str, tmp_path: Path) -> None:
+    # An export killed outright (kill -9) leaves its write_atomic temporaries; the next export into
+    # the folder removes them under the folder's lock, as batch does.
+    as_alice(db, "import", str(write_study(tmp_path / "in", study_data())))
+    out = tmp_path / "export"
+    assert run("export", "-o", str(out), "--db", db).exit_code == 0
+    left = out / ".registry.ndjson.x1y2z3.part"
+    left.write_text('{"half": ')
+    assert run("export", "-o", str(out), "--db", db).exit_code == 0
+    assert not left.exists()

@@ -138,6 +138,15 @@ def write_mode(outdir: Path, deidentify: bool, key_fingerprint: str | None) -> N
         raise OutputError(str(outdir), f"cannot write the output folder: {why}") from None
 
 
+def sweep_temporaries(*folders: Path) -> None:
+    """Remove the ``write_atomic`` temporaries (``.<name>.<random>.part``) that a writer killed
+    mid-write left in ``folders``; call it holding the output folder's lock."""
+    for where in folders:
+        for temp in where.glob(".*.part"):
+            with contextlib.suppress(OSError):
+                temp.unlink()
+
+
 class BatchLock:
     """The lock of one output folder, held from :meth:`acquire` to :meth:`release`."""
 

@@ -230,8 +230,4 @@ def _process_chunk(
 
 
 def _sweep_temporaries(outdir: Path) -> None:
-    # A worker killed mid-write leaves its write_atomic temporary (".<name>.<random>.part").
-    for where in (outdir, outdir / stamps.STAMPS):
-        for temp in where.glob(".*.part"):
-            with contextlib.suppress(OSError):
-                temp.unlink()
+    folder.sweep_temporaries(outdir, outdir / stamps.STAMPS)

@@ -178,6 +178,7 @@ def export(
 
             fingerprint = key_fingerprint(key)
         folder.write_mode(outdir, key is not None, fingerprint)
+        folder.sweep_temporaries(outdir)  # left by an export that was killed outright
         written, head = _export(db, outdir, key=key, final_only=final_only, settings=settings)
         # under the lock, so no other export's files come between these and their chain head
         write_atomic(outdir / HEAD_FILE, head + "\n")
