@@ -95,6 +95,11 @@ def shown_percent(percent: float) -> int:
     return math.floor(percent)
 
 
+def addendum_label(author: str, at: str) -> str:
+    """``Addendum (author, 2026-10-15 14:02)``: how every output heads an addendum."""
+    return f"Addendum ({author}, {at[:16].replace('T', ' ')})"
+
+
 _SUPERSEDING_KIND = {"appended": "Addendum", "corrected": "Corrected report"}
 
 

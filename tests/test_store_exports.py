@@ -302,6 +302,15 @@ def test_corrected_and_appended_versions(
     assert (hl7_fields(message, "NTE")[0][3] == line) == (line is not None)
     revisions = [r["reason"][0]["text"] for r in kinds if r["resourceType"] == "Provenance"]
     assert revisions == ([line] if line else [])
+    # the addendum's own words, headed as the signed PDF heads them: "Addendum (author, time): "
+    added = "Discussed with the referring doctor."
+    notes = [n[3] for n in hl7_fields(message, "NTE")]
+    (narrative,) = [r["text"]["div"] for r in kinds if r["resourceType"] == "DiagnosticReport"]
+    if version == 3:
+        assert notes[1].startswith("Addendum (Dr Alice Example, 20") and notes[1].endswith(added)
+        assert f"): {added}</p>" in narrative
+    else:
+        assert not any(added in n for n in notes) and added not in narrative
 
 
 def test_each_replacing_sr_names_the_one_before(store: dict[str, Any]) -> None:

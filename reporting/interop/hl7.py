@@ -2,8 +2,8 @@
 
 Segments (separated by CR, HL7 v2.5.1 chapter 2): MSH, PID, ORC and OBR carrying the placer and filler order
 numbers and the result status (P preliminary, F final, C corrected: from the :class:`Release`), NTE
-lines (a superseding version's line first, saying which version it replaces and why, as its PDF
-does on page 1; then the cautions), then OBX: the conclusion (FT, the PDF's Impression word for word), per stage
+lines (a superseding version's line first, saying which version it replaces and why, and its
+addenda, as its PDF prints them on page 1; then the cautions), then OBX: the conclusion (FT, the PDF's Impression word for word), per stage
 the WMSI (NM, DCM 125202) and LVEF (NM, LOINC 10230-1), per stage and segment the wall motion (CWE,
 SNOMED CT codes of DICOM CID 3703/3704; observation id the segment's LOINC code where one exists)
 and the perfusion score (NM; CWE "Not visualized", DCM 122288, when it was not seen), and the PDF as an encapsulated-data OBX (``^AP^PDF^Base64^…``).
@@ -118,10 +118,8 @@ class _Message:
         fields += [_ts(self.at), "", "", self.status]  # OBR-22 status change, OBR-25 status
         fields += [""] * 6 + [_ndl(reader), "", _ndl(performer(a))]  # OBR-32, OBR-34
         self.add(*fields)
-        notes = list(a.cautions)
         superseding = words.supersession_text(a, self.release)
-        if superseding is not None:
-            notes.insert(0, superseding)
+        notes = [*filter(None, [superseding]), *words.addendum_texts(a, self.release), *a.cautions]
         for n, note in enumerate(notes, start=1):
             self.add("NTE", str(n), "L", escape(note))
 

@@ -65,6 +65,15 @@ class Signer(BaseModel):
         return self
 
 
+class Addendum(BaseModel):
+    """Text added to a signed report (an appended version carries every addendum so far)."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+    text: str = Field(description="The added text.")
+    author: str = Field(description="Printed name of the author.")
+    at: str = Field(description="When it was written (ISO 8601 with UTC offset).")
+
+
 MAX_REASON_CHARS = 2000
 """Longest reason for an amendment (the lab page's limit; the CLI's too)."""
 
@@ -102,6 +111,9 @@ class Release(BaseModel):
     predecessor: Predecessor | None = Field(
         default=None,
         description="The version replaced; required when amended, corrected or appended.",
+    )
+    addenda: tuple[Addendum, ...] = Field(
+        default=(), description="The version's addenda, oldest first (the PDF prints them too)."
     )
 
     @model_validator(mode="after")

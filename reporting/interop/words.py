@@ -15,7 +15,7 @@ from reporting.render.narrative.impression import (
 )
 from reporting.results import Analysis
 from reporting.segments import Territory
-from reporting.wording import supersession_words
+from reporting.wording import addendum_label, supersession_words
 
 
 def headline(analysis: Analysis) -> str:
@@ -40,6 +40,14 @@ def supersession_text(analysis: Analysis, release: Release) -> str | None:
         release.state.value, release.version, before.version, before.reason
     )
     return f"{kind}: {text}"
+
+
+def addendum_texts(analysis: Analysis, release: Release) -> list[str]:
+    """The released version's addenda as its PDF prints them (``Addendum (author, time): text``);
+    none in a de-identified export (free text)."""
+    if analysis.study.deidentified:
+        return []
+    return [f"{addendum_label(a.author, a.at)}: {a.text}" for a in release.addenda]
 
 
 def territory_text(analysis: Analysis, territory: Territory) -> str:

@@ -24,10 +24,10 @@ from sqlalchemy.orm import Session
 
 from reporting.errors import InputError
 from reporting.interop.from_file import Released
-from reporting.interop.release import Predecessor, Release, ReportState, Signer
+from reporting.interop.release import Addendum, Predecessor, Release, ReportState, Signer
 from reporting.results import Analysis
 from reporting.settings import Settings, default_settings
-from reporting.store import versions
+from reporting.store import content, versions
 from reporting.store.engine import Database
 from reporting.store.errors import StoreError
 from reporting.store.schema import SignatureRow, StudyRow, VersionRow
@@ -88,6 +88,7 @@ def _signed(
             version=row.version,
             signer=_signer(sig, analysis, where),
             predecessor=predecessor,
+            addenda=tuple(Addendum(**a) for a in content.parse(bytes(row.content)).addenda),
         )
     except ValidationError as exc:
         raise StoreError(where, exc.errors()[0]["msg"]) from None

@@ -20,9 +20,9 @@ from sqlalchemy.orm import Session
 
 from reporting.errors import InputError
 from reporting.impression import impression_is_stale
-from reporting.interop.release import MAX_REASON_CHARS
+from reporting.interop.release import MAX_REASON_CHARS, Addendum
 from reporting.model import Study
-from reporting.render.pdf.signature import Addendum, SignatureBlock
+from reporting.render.pdf.signature import SignatureBlock
 from reporting.settings import Settings
 from reporting.store import audit, content, versions, worklist
 from reporting.store.canonical import Origin, now, sha256_hex

@@ -14,20 +14,12 @@ import datetime as dt
 from pydantic import BaseModel, ConfigDict, Field
 from reportlab.platypus import Flowable, KeepTogether, Spacer, Table, TableStyle
 
+from reporting.interop.release import Addendum
 from reporting.render import palette
 from reporting.render.pdf.styles import Styles, labelled, paragraph
-from reporting.wording import supersession_words
+from reporting.wording import addendum_label, supersession_words
 
 SHORT_HASH_CHARS = 12
-
-
-class Addendum(BaseModel):
-    """Text added to a signed report."""
-
-    model_config = ConfigDict(extra="forbid", frozen=True)
-    text: str = Field(description="The added text.")
-    author: str = Field(description="Printed name of the author.")
-    at: str = Field(description="When it was written (ISO 8601 with UTC offset).")
 
 
 class SignatureBlock(BaseModel):
@@ -64,10 +56,7 @@ def supersession_note(block: SignatureBlock, st: Styles) -> list[Flowable]:
         block.status, block.version, block.supersedes_version, block.reason
     )
     lines: list[Flowable] = [Spacer(1, 3), labelled(kind, text, st)]
-    lines += [
-        labelled(f"Addendum ({a.author}, {a.at[:16].replace('T', ' ')})", a.text, st)
-        for a in block.addenda
-    ]
+    lines += [labelled(addendum_label(a.author, a.at), a.text, st) for a in block.addenda]
     return lines
 
 
