@@ -138,6 +138,39 @@ def write_mode(outdir: Path, deidentify: bool, key_fingerprint: str | None) -> N
         raise OutputError(str(outdir), f"cannot write the output folder: {why}") from None
 
 
+def make_folder(outdir: Path) -> None:
+    """Create ``outdir`` (and its parents) or raise a located :class:`OutputError`."""
+    if outdir.exists() and not outdir.is_dir():
+        raise OutputError(str(outdir), "not a folder (the output folder)")
+    try:
+        outdir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(
+            str(outdir), f"cannot create the output folder: {exc.strerror or exc}"
+        ) from None
+
+
+@contextlib.contextmanager
+def claimed(
+    outdir: Path,
+    deidentify: bool,
+    key_fingerprint: str | None,
+    *,
+    temporaries: tuple[Path, ...] = (),
+) -> Iterator[None]:
+    """``outdir`` made, locked and stamped with its mode for the block: a folder holding the other
+    mode's outputs is refused before anything is written (and again under the lock, where another
+    writer may have been first), and the temporaries of a writer killed outright are removed from
+    it and from ``temporaries``. Batch and the store export write their folders through this."""
+    check_mode(outdir, deidentify)
+    make_folder(outdir)
+    with locked(outdir):
+        check_mode(outdir, deidentify)
+        write_mode(outdir, deidentify, key_fingerprint)
+        sweep_temporaries(outdir, *temporaries)
+        yield
+
+
 def sweep_temporaries(*folders: Path) -> None:
     """Remove the ``write_atomic`` temporaries (``.<name>.<random>.part``) that a writer killed
     mid-write left in ``folders``; call it holding the output folder's lock."""

@@ -68,12 +68,10 @@ def run_batch(
     indir = Path(indir)
     paths = list(studies) if studies is not None else find_studies(indir, exclude=options.outdir)
     outdir = options.outdir
-    folder.check_mode(outdir, options.deidentify)  # before anything is written
-    _make_folder(outdir)
-    with folder.locked(outdir):
-        folder.check_mode(outdir, options.deidentify)  # again: another batch may have written
-        folder.write_mode(outdir, options.deidentify, options.key_fingerprint)
-        _sweep_temporaries(outdir)  # left by a run that was killed outright
+    claimed = folder.claimed(
+        outdir, options.deidentify, options.key_fingerprint, temporaries=(outdir / stamps.STAMPS,)
+    )
+    with claimed:
         quiet = redact.input_logs_silenced() if options.deidentify else contextlib.nullcontext()
         with quiet:
             summary = _run_locked(indir, paths, options, jobs=jobs, progress=progress)
@@ -143,17 +141,6 @@ def _run_locked(
         written=tuple(written),
         ignored=counts[Status.IGNORED],
     )
-
-
-def _make_folder(outdir: Path) -> None:
-    if outdir.exists() and not outdir.is_dir():
-        raise OutputError(str(outdir), "not a folder (the output folder)")
-    try:
-        outdir.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise OutputError(
-            str(outdir), f"cannot create the output folder: {exc.strerror or exc}"
-        ) from None
 
 
 def _output_error(outdir: Path, exc: OSError) -> ReportingError:

@@ -329,11 +329,9 @@ class _Builder:
     def narrative(self) -> str:
         """The narrative ``text``: the PDF's headline, for a superseding version the line saying
         which version it replaces and why and its addenda, then the cautions (R4 has no note)."""
-        superseding = words.supersession_text(self.a, self.release)
         paragraphs = [
             words.headline(self.a),
-            *filter(None, [superseding]),
-            *words.addendum_texts(self.a, self.release),
+            *words.release_notes(self.a, self.release),
             *self.a.cautions,
         ]
         body = "".join(f"<p>{html.escape(p, quote=False)}</p>" for p in paragraphs)

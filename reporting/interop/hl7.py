@@ -118,8 +118,7 @@ class _Message:
         fields += [_ts(self.at), "", "", self.status]  # OBR-22 status change, OBR-25 status
         fields += [""] * 6 + [_ndl(reader), "", _ndl(performer(a))]  # OBR-32, OBR-34
         self.add(*fields)
-        superseding = words.supersession_text(a, self.release)
-        notes = [*filter(None, [superseding]), *words.addendum_texts(a, self.release), *a.cautions]
+        notes = [*words.release_notes(a, self.release), *a.cautions]
         for n, note in enumerate(notes, start=1):
             self.add("NTE", str(n), "L", escape(note))
 

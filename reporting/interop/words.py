@@ -42,12 +42,14 @@ def supersession_text(analysis: Analysis, release: Release) -> str | None:
     return f"{kind}: {text}"
 
 
-def addendum_texts(analysis: Analysis, release: Release) -> list[str]:
-    """The released version's addenda as its PDF prints them (``Addendum (author, time): text``);
-    none in a de-identified export (free text)."""
-    if analysis.study.deidentified:
+def release_notes(analysis: Analysis, release: Release) -> list[str]:
+    """What the signed PDF prints on page 1 about the version's history: the line of a version
+    that supersedes another, then each addendum (``Addendum (author, time): text``); none in a
+    de-identified export (free text)."""
+    superseding = supersession_text(analysis, release)
+    if superseding is None:  # a first version, or de-identified (no addendum without a predecessor)
         return []
-    return [f"{addendum_label(a.author, a.at)}: {a.text}" for a in release.addenda]
+    return [superseding, *(f"{addendum_label(a.author, a.at)}: {a.text}" for a in release.addenda)]
 
 
 def territory_text(analysis: Analysis, territory: Territory) -> str:

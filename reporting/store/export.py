@@ -162,23 +162,13 @@ def export(
     its signed record; an unsigned one is analysed with the lab's ``settings``."""
     from reporting.batch import folder
 
-    # An output folder holds identified outputs or a de-identified extract, never both (as batch).
-    folder.check_mode(outdir, key is not None)  # before anything is written
-    try:
-        outdir.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise OutputError(
-            str(outdir), f"cannot write the export folder: {exc.strerror or exc}"
-        ) from None
-    with folder.locked(outdir):
-        folder.check_mode(outdir, key is not None)  # again: another writer may have been first
-        fingerprint = None
-        if key is not None:
-            from reporting.deidentify import key_fingerprint
+    fingerprint = None
+    if key is not None:
+        from reporting.deidentify import key_fingerprint
 
-            fingerprint = key_fingerprint(key)
-        folder.write_mode(outdir, key is not None, fingerprint)
-        folder.sweep_temporaries(outdir)  # left by an export that was killed outright
+        fingerprint = key_fingerprint(key)
+    # identified outputs or a de-identified extract, never both; one writer at a time (as batch)
+    with folder.claimed(outdir, key is not None, fingerprint):
         written, head = _export(db, outdir, key=key, final_only=final_only, settings=settings)
         # under the lock, so no other export's files come between these and their chain head
         write_atomic(outdir / HEAD_FILE, head + "\n")
