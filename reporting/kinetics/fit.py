@@ -15,12 +15,14 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import TypedDict
 
 import numpy as np
 import numpy.typing as npt
 
 from reporting.kinetics.curves import Curve, CurveSet
 from reporting.kinetics.models import FitStatus, SegmentFit, UnassignedCurve
+from reporting.model import Stage
 from reporting.settings import Settings
 
 FloatArray = npt.NDArray[np.float64]
@@ -238,12 +240,24 @@ def fit_curve_set(
     return fits, unassigned
 
 
+class _CurveFields(TypedDict):
+    """The fields of a SegmentFit that come from its curve, fitted or not."""
+
+    number: int
+    stage: Stage
+    frames: int
+    pre_flash_frames_excluded: int
+    time_s: list[float]
+    intensity: list[float | None]
+    location: str
+
+
 def _segment_fit(
     curve: Curve, arrays: FitArrays | None, i: int | None, min_r_squared: float
 ) -> SegmentFit:
     stage = curve.stage
     assert stage is not None  # unknown stages were set aside by the caller
-    common = {
+    common: _CurveFields = {
         "number": curve.segment,
         "stage": stage,
         "frames": int(curve.time_s.size),
