@@ -2,7 +2,8 @@
 
 The findings hash is written directly (``reporting.impression.canonical_text``) instead of through
 ``json.dumps(findings_basis(...), sort_keys=True, ...)``; segment courses are cached; the score
-strings are read through a lookup table. Each is compared here with the definition it replaces,
+strings are read through a lookup table; a study whose score sets are complete skips the per-segment
+checks of the whole-study validator. Each is compared here with the definition it replaces,
 over generated studies (hypothesis) and over every case of the small domains.
 """
 
@@ -19,7 +20,7 @@ from hypothesis import strategies as st
 from reporting.analysis import analyze
 from reporting.impression import canonical_bytes, canonical_text, findings_basis, findings_sha256
 from reporting.load import study_from_data
-from reporting.model import _SCORE_CHARS, NOT_VISUALISED, Stage
+from reporting.model import _SCORE_CHARS, NOT_VISUALISED, Stage, _study_problems
 from reporting.scoring import course_of, segment_course
 
 PROTOCOL_STAGES = {
@@ -105,3 +106,30 @@ def test_score_lookup_table_follows_the_character_rules() -> None:
         else:
             assert char.isdigit() and char.isascii() and value == int(char)
     assert set(_SCORE_CHARS) == {*"0123456789", "x", "X"}
+
+
+@settings(max_examples=400, deadline=None)
+@given(
+    count=st.sampled_from([16, 17, 18]),
+    scale=st.sampled_from([4, 5]),
+    kind=st.sampled_from(["wall_motion", "perfusion"]),
+    numbers=st.sets(st.integers(1, 20), max_size=20),
+    complete=st.booleans(),  # every segment scored, the usual case (the shortcut's)
+    fives=st.sets(st.integers(1, 20), max_size=3),
+)
+def test_score_set_checks_find_exactly_what_the_rules_name(
+    count: int, scale: int, kind: str, numbers: set[int], complete: bool, fives: set[int]
+) -> None:
+    if complete:
+        numbers = set(range(1, count + 1)) | {n for n in numbers if n > count and n % 2}
+    # the rules, stated independently: a number beyond the model, a segment without a score,
+    # and an aneurysmal 5 on the 4-point wall-motion scale are each a problem at their location
+    scores = {n: 5 if n in fives else 1 for n in sorted(numbers)}
+    where = ("stages", "peak", kind)
+    expected = [(*where, n) for n in sorted(numbers) if n > count]
+    if any(n not in numbers for n in range(1, count + 1)):
+        expected.append(where)
+    if kind == "wall_motion" and scale == 4:
+        expected += [(*where, n) for n in sorted(numbers) if n in fives and n <= count]
+    problems = _study_problems(count, scale, {"peak": {kind: scores}}, None, None, None)
+    assert [p["loc"] for p in problems] == expected
