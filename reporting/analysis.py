@@ -9,6 +9,7 @@ loads a study, its lab territory map and a lab settings file first.
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
+from functools import cache
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -47,6 +48,7 @@ from reporting.segments import (
     TerritoryMap,
     built_in_map,
     load_territory_map,
+    segment,
     segments_of,
 )
 from reporting.settings import Settings, default_settings, load_settings
@@ -192,11 +194,12 @@ def analyze(
     wmsi: dict[Stage, float] = {}
     wmsi_counts: dict[Stage, int] = {}
     for stage, scores in wall.items():
-        value, count = scoring.score_index(scores[n] for n in wmsi_numbers)
+        value, count = scoring.score_index([scores[n] for n in wmsi_numbers])
         if value is not None:
             wmsi[stage], wmsi_counts[stage] = value, count
 
-    territories = {t: _territory_result(t, segments, wall, wmsi_numbers) for t in Territory}
+    indexed = frozenset(wmsi_numbers)
+    territories = {t: _territory_result(t, segments, wall, indexed) for t in Territory}
     perfusion = _perfusion_result(segments, perf)
     kinetics = None
     if curves is not None:
@@ -312,14 +315,13 @@ def _segment_results(
     for seg in segments_of(study.segment_model):
         n = seg.number
         territory = assignment[n]
-        others = sorted({seg.default_territory, *seg.alternative_territories} - {territory})
         course = courses[n]
         fields = {
             "number": n,
             "name": seg.name,
             "ring": seg.ring,
             "territory": territory,
-            "shared_supply": others,
+            "shared_supply": _shared_supply(study.segment_model, n, territory),
             "wall_motion": {stage: scores[n] for stage, scores in wall.items()},
             "perfusion": {stage: scores[n] for stage, scores in perf.items()},
             "response": course.response,
@@ -331,6 +333,14 @@ def _segment_results(
     return results
 
 
+@cache
+def _shared_supply(model: SegmentModel, number: int, territory: Territory) -> tuple[Territory, ...]:
+    """The other territories that commonly supply segment ``number`` when ``territory`` is its own
+    (made once per segment and map territory: the same for every study)."""
+    seg = segment(model, number)
+    return tuple(sorted({seg.default_territory, *seg.alternative_territories} - {territory}))
+
+
 # SegmentResult(**fields) less the keyword wrapper of BaseModel.__init__: the same validation,
 # a few microseconds less for each of the 16-18 segments of every analysis
 _new_segment_result: Callable[[dict[str, Any]], SegmentResult] = (
@@ -338,11 +348,19 @@ _new_segment_result: Callable[[dict[str, Any]], SegmentResult] = (
 )
 
 
+# Enum members read in the per-segment loops: a class-attribute read of an enum member costs
+# about ten times a global's on Python 3.11.
+_FIXED = WallMotionResponse.FIXED
+_REVERSIBLE = PerfusionResponse.REVERSIBLE
+_PARTIALLY_REVERSIBLE = PerfusionResponse.PARTIALLY_REVERSIBLE
+_FIXED_DEFECT = PerfusionResponse.FIXED
+
+
 def _territory_result(
     territory: Territory,
     segments: list[SegmentResult],
     wall: dict[Stage, dict[int, int | None]],
-    wmsi_numbers: list[int],
+    wmsi_numbers: frozenset[int],
 ) -> TerritoryResult:
     mine = [s for s in segments if s.territory is territory]
     numbers = [s.number for s in mine]
@@ -351,23 +369,38 @@ def _territory_result(
     counts: dict[Stage, int] = {}
     for stage, scores in wall.items():
         wmsi[stage], counts[stage] = scoring.score_index([scores[n] for n in indexed])
-    ischemic = [s.number for s in mine if s.response in ISCHEMIC_RESPONSES]
-    reversible = [s.number for s in mine if s.perfusion_response in ISCHEMIC_PERFUSION]
+    # One pass puts each segment in every list its responses belong to (segment order kept).
+    ischemic: list[int] = []
+    viable: list[int] = []
+    fixed: list[int] = []
+    reversible: list[int] = []
+    partially_reversible: list[int] = []
+    fixed_perfusion: list[int] = []
+    for s in mine:
+        n, response, perfusion = s.number, s.response, s.perfusion_response
+        if response in ISCHEMIC_RESPONSES:
+            ischemic.append(n)
+        if response in VIABLE_RESPONSES:
+            viable.append(n)
+        if response is _FIXED:
+            fixed.append(n)
+        if perfusion in ISCHEMIC_PERFUSION:
+            reversible.append(n)
+        if perfusion is _PARTIALLY_REVERSIBLE:
+            partially_reversible.append(n)
+        if perfusion is _FIXED_DEFECT:
+            fixed_perfusion.append(n)
     return TerritoryResult(
         segments=numbers,
         ischemic_segments=ischemic,
         ischemic_perfusion_segments=[n for n in reversible if n not in ischemic],
-        viable_segments=[s.number for s in mine if s.response in VIABLE_RESPONSES],
-        fixed_segments=[s.number for s in mine if s.response is WallMotionResponse.FIXED],
+        viable_segments=viable,
+        fixed_segments=fixed,
         wmsi=wmsi,
         scored_segments=counts,
         reversible_perfusion_segments=reversible,
-        partially_reversible_perfusion_segments=[
-            s.number for s in mine if s.perfusion_response is PerfusionResponse.PARTIALLY_REVERSIBLE
-        ],
-        fixed_perfusion_segments=[
-            s.number for s in mine if s.perfusion_response is PerfusionResponse.FIXED
-        ],
+        partially_reversible_perfusion_segments=partially_reversible,
+        fixed_perfusion_segments=fixed_perfusion,
         ischemic=bool(ischemic or reversible),
         status=conclusion.territory_status(mine),
     )
@@ -384,18 +417,22 @@ def _perfusion_result(
         percent = scoring.defect_extent_percent(scores.values())
         if value is not None and percent is not None:
             index[stage], counts[stage], extent[stage] = value, count, percent
-
-    def having(response: PerfusionResponse) -> list[int]:
-        return [s.number for s in segments if s.perfusion_response is response]
-
+    having: dict[PerfusionResponse, list[int]] = {
+        _REVERSIBLE: [],
+        _PARTIALLY_REVERSIBLE: [],
+        _FIXED_DEFECT: [],
+    }
+    for s in segments:
+        if s.perfusion_response in having:
+            having[s.perfusion_response].append(s.number)
     return PerfusionResult(
         scored=bool(perf),
         defect_extent_percent=extent,
         score_index=index,
         scored_segments=counts,
-        reversible_segments=having(PerfusionResponse.REVERSIBLE),
-        partially_reversible_segments=having(PerfusionResponse.PARTIALLY_REVERSIBLE),
-        fixed_segments=having(PerfusionResponse.FIXED),
+        reversible_segments=having[_REVERSIBLE],
+        partially_reversible_segments=having[_PARTIALLY_REVERSIBLE],
+        fixed_segments=having[_FIXED_DEFECT],
     )
 
 

@@ -101,20 +101,36 @@ class VesselPattern:
 
 def vessel_pattern(segments: list[SegmentResult]) -> VesselPattern:
     """Apply the wrap-around LAD rule to the ischaemic segments."""
-    ischemic = [s for s in segments if is_ischemic(s)]
-    lad_ischemic = any(s.territory is Territory.LAD for s in ischemic)
+    return _pattern_of([s for s in segments if is_ischemic(s)])
+
+
+def _pattern_of(ischemic: list[SegmentResult]) -> VesselPattern:
+    """:func:`vessel_pattern` given the ischaemic segments only."""
+    by_territory: dict[Territory, list[SegmentResult]] = {}
+    for s in ischemic:
+        by_territory.setdefault(s.territory, []).append(s)
+    lad_ischemic = _LAD in by_territory
     counted: list[Territory] = []
     wrap: list[int] = []
-    for territory in Territory:
-        mine = [s for s in ischemic if s.territory is territory]
+    for territory in _TERRITORIES:  # in the enum's order, as the record lists them
+        mine = by_territory.get(territory)
         if not mine:
             continue
-        apical_only = all(s.ring is Ring.APICAL for s in mine)
-        if territory is Territory.LAD or not apical_only or not lad_ischemic:
+        apical_only = all(s.ring is _APICAL for s in mine)
+        if territory is _LAD or not apical_only or not lad_ischemic:
             counted.append(territory)
         else:
             wrap += [s.number for s in mine]
     return VesselPattern(counted, sorted(wrap))
+
+
+# Enum members and order read per segment: an enum class attribute costs about ten times a global
+# on Python 3.11.
+_TERRITORIES = tuple(Territory)
+_LAD = Territory.LAD
+_APICAL = Ring.APICAL
+_FIXED = WallMotionResponse.FIXED
+_AKINETIC_TO_DYSKINETIC = WallMotionResponse.AKINETIC_TO_DYSKINETIC
 
 
 def stress_imaged(study: Study) -> bool:
@@ -134,8 +150,8 @@ def conclude(
     stress_result: StressResult,
 ) -> Conclusion:
     """The conclusion of the study: status, territories, pattern, extent, findings and risk."""
-    wm_ischemic = [s.number for s in segments if s.response in ISCHEMIC_RESPONSES]
-    ischemic = [s.number for s in segments if is_ischemic(s)]
+    ischemic_results = [s for s in segments if is_ischemic(s)]
+    ischemic = [s.number for s in ischemic_results]
     ischemic_territories = [t for t, r in territories.items() if r.ischemic]
     status, reason = diagnostic_status(
         ischemia=bool(ischemic),
@@ -144,7 +160,7 @@ def conclude(
         rate_dependent=stress_result.heart_rate_target_applies,
         adequate=stress_result.adequate,
     )
-    pattern = vessel_pattern(segments)
+    pattern = _pattern_of(ischemic_results)
     reversible = [s for s in segments if s.perfusion_response in ISCHEMIC_PERFUSION]
     reversible_percent = 100 * len(reversible) / len(segments)
     high_risk = high_risk_findings(
@@ -172,16 +188,16 @@ def conclude(
         non_diagnostic_reason=reason,
         ischemic_segments=ischemic,
         ischemic_territories=ischemic_territories,
-        ischemic_segment_count=len(wm_ischemic),
+        ischemic_segment_count=sum(s.response in ISCHEMIC_RESPONSES for s in ischemic_results),
         ischemia_extent=scoring.ischemia_extent(
             len(ischemic), settings.extensive_ischemia_segments_min
         ),
         multivessel=pattern.multivessel(settings),
         wrap_around_segments=pattern.wrap_around_segments,
         viable_segments=[s.number for s in segments if s.response in VIABLE_RESPONSES],
-        fixed_segments=[s.number for s in segments if s.response is WallMotionResponse.FIXED],
+        fixed_segments=[s.number for s in segments if s.response is _FIXED],
         akinetic_to_dyskinetic_segments=[
-            s.number for s in segments if s.response is WallMotionResponse.AKINETIC_TO_DYSKINETIC
+            s.number for s in segments if s.response is _AKINETIC_TO_DYSKINETIC
         ],
         high_risk_findings=high_risk,
         risk=risk,
