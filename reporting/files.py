@@ -64,9 +64,11 @@ def write_atomic(path: Path, data: bytes | str) -> None:
     """Write ``data`` to ``path`` through a temporary file in the same folder, then rename."""
     payload = data.encode("utf-8") if isinstance(data, str) else data
     try:
-        check_target(path)
-        path.parent.mkdir(parents=True, exist_ok=True)
-        fd, temp = temporary_beside(path)
+        try:
+            fd, temp = temporary_beside(path)  # refuses a target that is not a regular file
+        except FileNotFoundError:  # the folder is not there yet: one mkdir, only then
+            path.parent.mkdir(parents=True, exist_ok=True)
+            fd, temp = temporary_beside(path)
     except OutputError:
         raise
     except OSError as exc:

@@ -37,7 +37,7 @@ from __future__ import annotations
 
 import hashlib
 import json
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable
 from functools import lru_cache
 from json.encoder import encode_basestring_ascii
 from operator import attrgetter
@@ -119,9 +119,13 @@ def canonical_text(analysis: Analysis) -> str:
     p = analysis.perfusion
     segments = ",".join(
         [
-            f'{{"number":{s.number},"perfusion":{_scores(s.perfusion)},'
-            f'"perfusion_response":{_text(s.perfusion_response)},'
-            f'"response":{_quoted(s.response)},"wall_motion":{_scores(s.wall_motion)}}}'
+            _segment_text(
+                s.number,
+                s.response,
+                s.perfusion_response,
+                tuple(s.wall_motion.items()),
+                tuple(s.perfusion.items()),
+            )
             for s in sorted(analysis.segments, key=_NUMBER)
         ]
     )
@@ -168,14 +172,24 @@ def _texts(values: Iterable[str]) -> str:
     return f"[{','.join(map(_quoted, sorted(values)))}]"
 
 
-def _scores(scores: Mapping[Stage, int | None]) -> str:
-    """``{"peak":2,"rest":1}``: scores per stage, stages in sorted order, null = not seen."""
-    return _scores_text(tuple(scores.items()))
-
-
-@lru_cache(maxsize=4096)
-def _scores_text(items: tuple[tuple[Stage, int | None], ...]) -> str:
+@lru_cache(maxsize=8192)
+def _segment_text(
+    number: int,
+    response: str,
+    perfusion_response: str | None,
+    wall_motion: tuple[tuple[Stage, int | None], ...],
+    perfusion: tuple[tuple[Stage, int | None], ...],
+) -> str:
     # Cached: most segments of most studies share a few patterns (normal at every stage, say).
+    return (
+        f'{{"number":{number},"perfusion":{_scores(perfusion)},'
+        f'"perfusion_response":{_text(perfusion_response)},'
+        f'"response":{_quoted(response)},"wall_motion":{_scores(wall_motion)}}}'
+    )
+
+
+def _scores(items: tuple[tuple[Stage, int | None], ...]) -> str:
+    """``{"peak":2,"rest":1}``: scores per stage, stages in sorted order, null = not seen."""
     pairs = [f"{_quoted(k)}:{'null' if v is None else v}" for k, v in sorted(items)]
     return f"{{{','.join(pairs)}}}"
 
