@@ -15,14 +15,15 @@ import csv
 import io
 import logging
 from dataclasses import dataclass
-from enum import StrEnum
 from functools import cache
 from importlib import resources
+
+from reporting.vocabulary import Vocabulary
 
 log = logging.getLogger(__name__)
 
 
-class Scheme(StrEnum):
+class Scheme(Vocabulary):
     """Coding scheme designator, as DICOM writes it."""
 
     LN = "LN"

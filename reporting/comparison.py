@@ -35,7 +35,6 @@ it is no change of the heart: the change map shows it as not compared.
 from __future__ import annotations
 
 import datetime as dt
-from enum import StrEnum
 from typing import TYPE_CHECKING
 
 from pydantic import BaseModel, ConfigDict, Field
@@ -44,6 +43,7 @@ from reporting.errors import InputError
 from reporting.model import Stage
 from reporting.scoring import ISCHEMIC_RESPONSES, WallMotionResponse
 from reporting.segments import Territory
+from reporting.vocabulary import Vocabulary
 
 if TYPE_CHECKING:
     from reporting.results import Analysis, Note, TerritoryResult
@@ -53,7 +53,7 @@ SOURCE = "common practice"
 """Source of the comparison rules (FACTS gives no published rule for them)."""
 
 
-class TerritoryChange(StrEnum):
+class TerritoryChange(Vocabulary):
     """How a territory's inducible ischaemia changed since the prior study."""
 
     NEW = "new"

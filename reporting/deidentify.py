@@ -35,7 +35,6 @@ import types
 import typing
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
-from enum import StrEnum
 from functools import cache
 from importlib import resources
 from pathlib import Path
@@ -46,6 +45,7 @@ from pydantic import BaseModel
 from reporting.errors import ReportingError
 from reporting.results import DERIVED_FIELDS, Analysis, TerritoryMapInfo
 from reporting.segments import BUILT_IN_MAPS, built_in_map
+from reporting.vocabulary import Vocabulary
 
 log = logging.getLogger(__name__)
 
@@ -83,7 +83,7 @@ UNLESS_KEEP_TEXT = "unless_keep_text"
 """Rule of a dropped free-text field that ``--keep-text`` keeps."""
 
 
-class Treatment(StrEnum):
+class Treatment(Vocabulary):
     """What de-identification does with one field or column."""
 
     KEPT = "kept"

@@ -10,7 +10,6 @@ the names fix the order) and the study id is safe to use in a file name. Each fi
 import datetime as dt
 import re
 from collections.abc import Mapping
-from enum import StrEnum
 from typing import Annotated, Any, Literal, Self
 
 from pydantic import (
@@ -29,13 +28,14 @@ from pydantic_core import ErrorDetails, InitErrorDetails, PydanticCustomError
 from reporting.notes import NoteKind
 from reporting.procedure import ImageQuality, Procedure, Vasodilator
 from reporting.segments import Ring, SegmentModel, segments_of
+from reporting.vocabulary import Vocabulary
 from reporting.wording import number_ranges
 
 STUDY_SCHEMA_VERSION = 1
 NOT_VISUALISED = "x"
 
 
-class Stage(StrEnum):
+class Stage(Vocabulary):
     """Imaging stage of a stress study, in protocol order."""
 
     REST = "rest"
@@ -54,7 +54,7 @@ MAX_AGE_YEARS = 120
 STRESS_STAGES: tuple[Stage, ...] = (Stage.LOW_DOSE, Stage.PEAK)
 
 
-class Protocol(StrEnum):
+class Protocol(Vocabulary):
     """Kind of stress."""
 
     DOBUTAMINE = "dobutamine"
@@ -72,7 +72,7 @@ class Protocol(StrEnum):
 EXERCISE_PROTOCOLS = frozenset({Protocol.TREADMILL, Protocol.BICYCLE})
 
 
-class Sex(StrEnum):
+class Sex(Vocabulary):
     """Patient sex as recorded."""
 
     FEMALE = "female"
@@ -83,7 +83,7 @@ class Sex(StrEnum):
     """Other or not stated."""
 
 
-class Administration(StrEnum):
+class Administration(Vocabulary):
     """How the ultrasound-enhancing agent was given."""
 
     INFUSION = "infusion"
@@ -92,7 +92,7 @@ class Administration(StrEnum):
     """Bolus injections: concentration changes over time."""
 
 
-class ReportStatus(StrEnum):
+class ReportStatus(Vocabulary):
     """Sign-off state of the report."""
 
     PRELIMINARY = "preliminary"

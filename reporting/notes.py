@@ -10,10 +10,10 @@ This module imports nothing from the package, so the study model can name note k
 
 from __future__ import annotations
 
-from enum import StrEnum
+from reporting.vocabulary import Vocabulary
 
 
-class NoteKind(StrEnum):
+class NoteKind(Vocabulary):
     """Kind of image-quality or protocol note."""
 
     SUGGEST_CONTRAST = "suggest_contrast"

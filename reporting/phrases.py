@@ -22,7 +22,6 @@ from __future__ import annotations
 import logging
 import string
 from collections.abc import Callable
-from enum import StrEnum
 from functools import cache
 from pathlib import Path
 from typing import Annotated, Any
@@ -31,6 +30,7 @@ from pydantic import BaseModel, ConfigDict, Field, StringConstraints, Validation
 
 from reporting.errors import InputError, InputErrors
 from reporting.results import Analysis
+from reporting.vocabulary import Vocabulary
 from reporting.wording import number_list, shown_percent, stage_words
 
 log = logging.getLogger(__name__)
@@ -45,7 +45,7 @@ NOT_AVAILABLE = "[{name}: not available]"
 """What a slot becomes when the study has no value for it (visible, so the reader edits it)."""
 
 
-class PhraseField(StrEnum):
+class PhraseField(Vocabulary):
     """Which box of the entry page a phrase is meant for."""
 
     IMPRESSION = "impression"

@@ -15,8 +15,10 @@ from typing import Any, Self
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 from pydantic_core import PydanticCustomError
 
+from reporting.vocabulary import Vocabulary
 
-class BaselineRhythm(StrEnum):
+
+class BaselineRhythm(Vocabulary):
     """Cardiac rhythm on the resting ECG before stress."""
 
     SINUS = "sinus"
@@ -31,7 +33,7 @@ class BaselineRhythm(StrEnum):
     """Another rhythm (describe it in the comments)."""
 
 
-class BaselineEcg(StrEnum):
+class BaselineEcg(Vocabulary):
     """A finding on the resting ECG; several may apply."""
 
     NORMAL = "normal"
@@ -54,7 +56,7 @@ class BaselineEcg(StrEnum):
     """Another finding (describe it in the comments)."""
 
 
-class MedicationUse(StrEnum):
+class MedicationUse(Vocabulary):
     """Whether a medication that changes the response to stress was taken before the test."""
 
     NOT_PRESCRIBED = "not_prescribed"
@@ -65,7 +67,7 @@ class MedicationUse(StrEnum):
     """Prescribed but withheld before the test, as the protocol asks."""
 
 
-class StopReason(StrEnum):
+class StopReason(Vocabulary):
     """Why stress was stopped; several may apply."""
 
     TARGET_HEART_RATE = "target_heart_rate"
@@ -96,7 +98,7 @@ class StopReason(StrEnum):
     """Another reason (describe it in the comments)."""
 
 
-class Complication(StrEnum):
+class Complication(Vocabulary):
     """A complication of the test other than an arrhythmia."""
 
     NONE = "none"
@@ -117,7 +119,7 @@ class Complication(StrEnum):
     """Another complication (describe it in the comments)."""
 
 
-class Arrhythmia(StrEnum):
+class Arrhythmia(Vocabulary):
     """An arrhythmia seen during stress or recovery."""
 
     NONE = "none"
@@ -142,7 +144,7 @@ class Arrhythmia(StrEnum):
     """Another arrhythmia (describe it in the comments)."""
 
 
-class VasodilatorAgent(StrEnum):
+class VasodilatorAgent(Vocabulary):
     """Vasodilator stress agent, by generic name."""
 
     ADENOSINE = "adenosine"
@@ -163,7 +165,7 @@ DOSE_UNITS = {"dose_ug_kg_min": "μg/kg/min", "dose_mg": "mg", "dose_mg_kg": "mg
 """Units of each dose field, as printed."""
 
 
-class ImageQuality(StrEnum):
+class ImageQuality(Vocabulary):
     """Image quality at one stage, as the reader judged it."""
 
     GOOD = "good"

@@ -8,7 +8,6 @@ the keys fixed by the interface contract are all here.
 
 import datetime as dt
 from collections.abc import Mapping
-from enum import StrEnum
 from functools import cached_property
 from typing import Any, Literal, Self, cast
 
@@ -39,6 +38,7 @@ from reporting.scoring import IschemiaExtent, PerfusionResponse, WallMotionRespo
 from reporting.segments import Ring, SegmentModel, Territory
 from reporting.settings import HeartRateFormula
 from reporting.stress import DukeRisk
+from reporting.vocabulary import Vocabulary
 
 RECORD_SCHEMA_VERSION = 1
 RECORD_SCHEMA_ID = f"urn:segreport:schemas:record-{RECORD_SCHEMA_VERSION}.schema.json"
@@ -211,7 +211,7 @@ class SegmentResult(_Result):
     )
 
 
-class TerritoryStatus(StrEnum):
+class TerritoryStatus(Vocabulary):
     """Answer of one territory."""
 
     ISCHEMIA = "ischemia"
@@ -335,7 +335,7 @@ class StressResult(_Result):
     )
 
 
-class FindingCode(StrEnum):
+class FindingCode(Vocabulary):
     """Findings that grade risk (noninvasive risk tables); the first group are high-risk findings."""
 
     LOW_THRESHOLD_ISCHEMIA = "low_threshold_ischemia"
@@ -373,7 +373,7 @@ class FindingCode(StrEnum):
     """Low risk: normal stress wall motion and perfusion, or no change of resting abnormalities."""
 
 
-class RiskLevel(StrEnum):
+class RiskLevel(Vocabulary):
     """Annual risk band of the noninvasive risk tables (Fihn SD et al., Circulation 2012)."""
 
     LOW = "low"
@@ -405,7 +405,7 @@ class HighRiskFinding(_Result):
     source: str = Field(description="Published source of the criterion.")
 
 
-class DiagnosticStatus(StrEnum):
+class DiagnosticStatus(Vocabulary):
     """Overall answer of the study for inducible ischaemia."""
 
     ISCHEMIA = "ischemia"
@@ -417,7 +417,7 @@ class DiagnosticStatus(StrEnum):
     stress was inadequate."""
 
 
-class NonDiagnosticReason(StrEnum):
+class NonDiagnosticReason(Vocabulary):
     """Why a study without ischaemia is non-diagnostic (checked in this order)."""
 
     NO_STRESS_IMAGES = "no_stress_images"
@@ -428,7 +428,7 @@ class NonDiagnosticReason(StrEnum):
     """The heart-rate target was not reached or not established (not for vasodilator stress)."""
 
 
-class ImpressionStatus(StrEnum):
+class ImpressionStatus(Vocabulary):
     """Whether the reader's impression was written against the findings computed now."""
 
     NONE = "none"

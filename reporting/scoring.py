@@ -10,17 +10,17 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
-from enum import StrEnum
 from functools import lru_cache
 
 from reporting.model import Stage
+from reporting.vocabulary import Vocabulary
 
 NORMAL_SCORE = 1
 AKINETIC_SCORE = 3
 ANEURYSMAL_SCORE = 5
 
 
-class WallMotionResponse(StrEnum):
+class WallMotionResponse(Vocabulary):
     """How a segment's wall motion behaved from rest through stress."""
 
     NORMAL = "normal"
@@ -48,7 +48,7 @@ VIABLE_RESPONSES = frozenset(
 )
 
 
-class PerfusionResponse(StrEnum):
+class PerfusionResponse(Vocabulary):
     """How a segment's contrast perfusion behaved from rest to peak."""
 
     NORMAL = "normal"
@@ -73,7 +73,7 @@ A defect that worsens from rest to peak is reported as partially reversible with
 reader, but does not by itself call the study ischaemic."""
 
 
-class IschemiaExtent(StrEnum):
+class IschemiaExtent(Vocabulary):
     """Extent of inducible ischaemia by segment count, wall motion and perfusion together (Kataoka 2015)."""
 
     NONE = "none"

@@ -11,7 +11,7 @@ from __future__ import annotations
 import csv
 import io
 from dataclasses import dataclass
-from enum import IntEnum, StrEnum
+from enum import IntEnum
 from functools import cache
 from importlib import resources
 from pathlib import Path
@@ -19,6 +19,7 @@ from typing import Any
 
 from reporting.documents import bundled_yaml, read_yaml
 from reporting.errors import InputError, InputErrors
+from reporting.vocabulary import Vocabulary
 from reporting.wording import number_ranges
 
 
@@ -33,7 +34,7 @@ class SegmentModel(IntEnum):
     """Six segments in each of the basal, mid and apical rings, no cap."""
 
 
-class Ring(StrEnum):
+class Ring(Vocabulary):
     """Short-axis level of a segment."""
 
     BASAL = "basal"
@@ -46,7 +47,7 @@ class Ring(StrEnum):
     """Apical cap, the centre disc of the 17-segment polar map."""
 
 
-class Territory(StrEnum):
+class Territory(Vocabulary):
     """Coronary territory."""
 
     LAD = "LAD"

@@ -5,7 +5,6 @@ subset with a YAML file of plain ``name: value`` pairs; unknown names and wrong 
 their location. Settings are immutable: pass a different object, never change one in place.
 """
 
-from enum import StrEnum
 from functools import cache
 from pathlib import Path
 from typing import Any, Self
@@ -15,9 +14,10 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_valida
 from reporting.documents import bundled_yaml, read_bytes_limited, read_yaml
 from reporting.errors import InputError, InputErrors
 from reporting.model import Protocol
+from reporting.vocabulary import Vocabulary
 
 
-class HeartRateFormula(StrEnum):
+class HeartRateFormula(Vocabulary):
     """Formula for the age-predicted maximum heart rate."""
 
     FOX = "fox"
@@ -26,7 +26,7 @@ class HeartRateFormula(StrEnum):
     """208 − 0.7 × age (Tanaka 2001)."""
 
 
-class TerritoryAggregation(StrEnum):
+class TerritoryAggregation(Vocabulary):
     """How segment kinetics are combined into a territory reserve."""
 
     RATIO_OF_MEANS = "ratio_of_means"
@@ -322,7 +322,7 @@ _SVG_REFUSED = (
 )
 
 
-class LogoKind(StrEnum):
+class LogoKind(Vocabulary):
     """Image formats a lab logo may have."""
 
     PNG = "png"

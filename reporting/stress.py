@@ -15,13 +15,13 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
-from enum import StrEnum
 
 from reporting.settings import HeartRateFormula
+from reporting.vocabulary import Vocabulary
 from reporting.wording import shown_target_bpm
 
 
-class DukeRisk(StrEnum):
+class DukeRisk(Vocabulary):
     """Risk band of the Duke treadmill score (Mark 1991)."""
 
     LOW = "low"

@@ -8,14 +8,14 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
-from enum import StrEnum
 from pathlib import Path
 
 from reporting.errors import ReportingError
 from reporting.export import tables
+from reporting.vocabulary import Vocabulary
 
 
-class Status(StrEnum):
+class Status(Vocabulary):
     """Outcome of one study in a batch."""
 
     DONE = "done"

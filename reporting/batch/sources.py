@@ -9,12 +9,12 @@ them as failed studies.
 
 from __future__ import annotations
 
-from enum import StrEnum
 from pathlib import Path
 from typing import Any
 
 from reporting.errors import ReportingError
 from reporting.load import STUDY_SUFFIXES
+from reporting.vocabulary import Vocabulary
 
 OUTPUT_SUFFIXES = (".record.json", ".fhir.json")
 """Files a batch writes whose suffix is also a study suffix: never read back as studies."""
@@ -51,7 +51,7 @@ def source_name(path: Path, indir: Path) -> str:
     return Path(path).relative_to(indir).as_posix()
 
 
-class NotAStudy(StrEnum):
+class NotAStudy(Vocabulary):
     """A YAML or JSON file of a lab that is not a study."""
 
     TERRITORY_MAP = "territory map"

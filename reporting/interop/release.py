@@ -11,12 +11,13 @@ from the study file.
 from __future__ import annotations
 
 import datetime as dt
-from enum import StrEnum
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from reporting.vocabulary import Vocabulary
 
-class ReportState(StrEnum):
+
+class ReportState(Vocabulary):
     """State of the released report."""
 
     PRELIMINARY = "preliminary"

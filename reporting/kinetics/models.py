@@ -5,13 +5,12 @@ becomes the published JSON Schema). They import neither numpy nor the fitting co
 models can be built and validated without loading the numerical stack.
 """
 
-from enum import StrEnum
-
 from pydantic import BaseModel, ConfigDict, Field
 
 from reporting.model import Stage
 from reporting.segments import Territory
 from reporting.settings import TerritoryAggregation
+from reporting.vocabulary import Vocabulary
 
 MODEL_EQUATION = "y(t) = A(1 − exp(−β t)) + C"
 
@@ -20,7 +19,7 @@ class _Result(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
 
-class FitStatus(StrEnum):
+class FitStatus(Vocabulary):
     """Outcome of fitting one replenishment curve."""
 
     OK = "ok"
@@ -60,7 +59,7 @@ BAD_DATA_STATUSES = frozenset(
 )
 
 
-class IntensityScale(StrEnum):
+class IntensityScale(Vocabulary):
     """How intensities were given in the curve file."""
 
     LINEAR = "linear"
@@ -69,7 +68,7 @@ class IntensityScale(StrEnum):
     """Column ``intensity_db``: log-compressed, converted to linear before fitting."""
 
 
-class ReserveFlag(StrEnum):
+class ReserveFlag(Vocabulary):
     """Why a segment or territory reserve is flagged."""
 
     LOW_BETA_RESERVE = "low_beta_reserve"
@@ -80,7 +79,7 @@ class ReserveFlag(StrEnum):
     """Territory A·β reserve below the configured cut-off (Vogel 2009)."""
 
 
-class CrossCheckKind(StrEnum):
+class CrossCheckKind(Vocabulary):
     """Disagreement between the visual perfusion score and the fitted replenishment time."""
 
     VISUAL_NORMAL_SLOW_REPLENISHMENT = "visual_normal_slow_replenishment"

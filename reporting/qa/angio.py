@@ -16,7 +16,6 @@ import io
 import logging
 import math
 import re
-from enum import StrEnum
 from pathlib import Path
 
 from pydantic import BaseModel, ConfigDict, Field
@@ -24,6 +23,7 @@ from pydantic import BaseModel, ConfigDict, Field
 from reporting.documents import read_bytes_limited
 from reporting.errors import InputError, InputErrors
 from reporting.segments import Territory
+from reporting.vocabulary import Vocabulary
 
 log = logging.getLogger(__name__)
 
@@ -32,7 +32,7 @@ MAX_ANGIO_BYTES = 50_000_000
 _STUDY_ID = re.compile(r"[A-Za-z0-9._-]{1,64}")
 
 
-class Vessel(StrEnum):
+class Vessel(Vocabulary):
     """Coronary vessel named in the angiography file."""
 
     LAD = "LAD"

@@ -13,13 +13,14 @@ agreement, as when both readers give every segment the same score.
 from __future__ import annotations
 
 from collections.abc import Hashable, Sequence
-from enum import StrEnum
 from typing import TypeVar
+
+from reporting.vocabulary import Vocabulary
 
 C = TypeVar("C", bound=Hashable)
 
 
-class Weighting(StrEnum):
+class Weighting(Vocabulary):
     """Disagreement weights of kappa."""
 
     NONE = "none"
@@ -30,7 +31,7 @@ class Weighting(StrEnum):
     """Weight (i − j)²: close to the intraclass correlation (Fleiss & Cohen 1973)."""
 
 
-class AgreementLabel(StrEnum):
+class AgreementLabel(Vocabulary):
     """Landis & Koch descriptive band of a kappa (Landis JR, Koch GG, *Biometrics* 1977;33:159–174)."""
 
     POOR = "poor"

@@ -17,7 +17,6 @@ import datetime as dt
 import json
 import logging
 from collections.abc import Callable, Mapping, Sequence
-from enum import StrEnum
 from pathlib import Path
 from typing import TypeVar
 
@@ -38,6 +37,7 @@ from reporting.qa.status import (
 )
 from reporting.results import Analysis, DiagnosticStatus
 from reporting.segments import Territory
+from reporting.vocabulary import Vocabulary
 
 log = logging.getLogger(__name__)
 _T = TypeVar("_T")
@@ -70,7 +70,7 @@ class _Result(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
 
-class Outcome(StrEnum):
+class Outcome(Vocabulary):
     """Place of one study (or one territory of a study) in the 2×2 table."""
 
     TRUE_POSITIVE = "true_positive"

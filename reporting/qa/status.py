@@ -20,19 +20,19 @@ reader, each with its Wilson 95 % interval; viability-only studies are counted b
 from __future__ import annotations
 
 from collections.abc import Sequence
-from enum import StrEnum
 
 from pydantic import BaseModel, ConfigDict, Field
 
 from reporting.model import Protocol, Stage
 from reporting.qa.metrics import Proportion, proportion
 from reporting.results import Analysis, DiagnosticStatus
+from reporting.vocabulary import Vocabulary
 
 # Stages that image the heart under stress for ischaemia; a study with neither stopped at low dose.
 _STRESS_STAGES = frozenset({Stage.PEAK, Stage.RECOVERY})
 
 
-class ReviewClass(StrEnum):
+class ReviewClass(Vocabulary):
     """Where a study goes in the quality review."""
 
     DIAGNOSTIC = "diagnostic"

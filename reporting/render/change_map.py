@@ -9,16 +9,15 @@ assessable in either study is hatched and marked ``x``.
 
 from __future__ import annotations
 
-from enum import StrEnum
-
 from reporting.comparison import ischemic_response
 from reporting.render import palette
 from reporting.render.scheme import RESPONSE_STYLE
 from reporting.results import Analysis
 from reporting.scoring import WallMotionResponse
+from reporting.vocabulary import Vocabulary
 
 
-class SegmentTrend(StrEnum):
+class SegmentTrend(Vocabulary):
     """How one segment's response changed."""
 
     WORSE = "worse"

@@ -9,21 +9,20 @@ digit, a letter or (for curves) a marker shape and line style, so greyscale prin
 
 from __future__ import annotations
 
-from enum import StrEnum
-
 from reportlab.lib.colors import Color
 
 from reporting.model import Stage
 from reporting.render import palette
 from reporting.scoring import WallMotionResponse
 from reporting.segments import Territory
+from reporting.vocabulary import Vocabulary
 
 # The score words live once, in wording.py; re-exported here for the maps and the entry page.
 from reporting.wording import PERFUSION_WORDS as PERFUSION_WORDS
 from reporting.wording import WALL_MOTION_WORDS as WALL_MOTION_WORDS
 
 
-class MapKind(StrEnum):
+class MapKind(Vocabulary):
     """What a bull's-eye map shows."""
 
     SEGMENTS = "segments"

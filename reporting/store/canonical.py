@@ -11,12 +11,13 @@ import datetime as dt
 import hashlib
 import json
 import socket
-from enum import StrEnum
 from functools import cache
 from typing import Any
 
+from reporting.vocabulary import Vocabulary
 
-class Origin(StrEnum):
+
+class Origin(Vocabulary):
     """Where an act came from, recorded in each audit event."""
 
     CLI = "cli"

@@ -34,7 +34,6 @@ import logging
 import secrets
 from collections.abc import Callable
 from dataclasses import dataclass
-from enum import StrEnum
 
 from sqlalchemy import bindparam, select, update
 from sqlalchemy.orm import Session
@@ -44,6 +43,7 @@ from reporting.store.canonical import Origin, sha256_hex
 from reporting.store.engine import Database
 from reporting.store.schema import StoreKey, User, WebSessionRow
 from reporting.store.users import Person, person
+from reporting.vocabulary import Vocabulary
 
 log = logging.getLogger(__name__)
 
@@ -57,7 +57,7 @@ ADDRESS_CHARS = 64
 Clock = Callable[[], dt.datetime]
 
 
-class EndReason(StrEnum):
+class EndReason(Vocabulary):
     """Why a session ended."""
 
     SIGNED_OUT = "signed_out"

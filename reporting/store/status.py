@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
-from enum import StrEnum
+from reporting.vocabulary import Vocabulary
 
 
-class VersionStatus(StrEnum):
+class VersionStatus(Vocabulary):
     """FHIR R4 DiagnosticReport.status (http://hl7.org/fhir/diagnostic-report-status)."""
 
     REGISTERED = "registered"

@@ -19,7 +19,6 @@ import datetime as dt
 import logging
 from collections.abc import Iterable
 from dataclasses import dataclass
-from enum import StrEnum
 from functools import cache
 from typing import TYPE_CHECKING
 
@@ -31,6 +30,7 @@ from reporting.store.canonical import Origin, now
 from reporting.store.engine import Database
 from reporting.store.errors import AuthError, StoreError
 from reporting.store.schema import User
+from reporting.vocabulary import Vocabulary
 
 if TYPE_CHECKING:
     from argon2 import PasswordHasher
@@ -46,7 +46,7 @@ MAX_PASSWORD_CHARS = 1024
 bound also keeps ``--password-stdin`` from reading without end (``< /dev/zero``)."""
 
 
-class Role(StrEnum):
+class Role(Vocabulary):
     """What a user may do."""
 
     READER = "reader"

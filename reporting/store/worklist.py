@@ -19,7 +19,6 @@ from __future__ import annotations
 import datetime as dt
 import logging
 from dataclasses import dataclass
-from enum import StrEnum
 from functools import cache
 from typing import Any
 
@@ -39,6 +38,7 @@ from reporting.store.schema import (
     WorklistRow,
 )
 from reporting.store.status import VersionStatus
+from reporting.vocabulary import Vocabulary
 
 log = logging.getLogger(__name__)
 
@@ -47,7 +47,7 @@ MAX_LIMIT = 500
 """Most rows one worklist page holds."""
 
 
-class WorklistStatus(StrEnum):
+class WorklistStatus(Vocabulary):
     """Where a study stands in the lab's work (see the module docstring)."""
 
     UNREAD = "unread"

@@ -9,7 +9,6 @@ lab may point at its own template folder; its files override the packaged ones o
 from __future__ import annotations
 
 from dataclasses import dataclass
-from enum import StrEnum
 from functools import cache
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -32,6 +31,7 @@ from reporting.render.narrative.sections import (
     wall_motion_paragraphs,
 )
 from reporting.results import Analysis, ImpressionStatus
+from reporting.vocabulary import Vocabulary
 
 if TYPE_CHECKING:  # jinja2 loads only when a template is rendered, not for the computed findings
     import jinja2
@@ -58,7 +58,7 @@ class Narrative:
     sections: tuple[Section, ...]
 
 
-class Audience(StrEnum):
+class Audience(Vocabulary):
     """Who reads the narrative."""
 
     READER = "reader"

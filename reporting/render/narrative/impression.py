@@ -13,8 +13,6 @@ a study with no stress stage says "no stress images"; risk bands follow the noni
 
 from __future__ import annotations
 
-from enum import StrEnum
-
 from reporting.model import STRESS_STAGES, Stage
 from reporting.notes import NoteKind
 from reporting.render.narrative.words import (
@@ -37,10 +35,11 @@ from reporting.results import (
 )
 from reporting.scoring import WallMotionResponse
 from reporting.segments import Territory
+from reporting.vocabulary import Vocabulary
 from reporting.wording import shown_percent, shown_target_bpm, stage_words
 
 
-class Question(StrEnum):
+class Question(Vocabulary):
     """What the referral question asks (decided from its words, else the indication's)."""
 
     ISCHEMIA = "ischemia"
