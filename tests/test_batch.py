@@ -784,3 +784,26 @@ def test_fhir_bundles_use_the_labs_code_and_identifier_systems(tmp_path: Path) -
         for ident in entry["resource"].get("identifier", [])
     }
     assert systems and all(s.startswith(uri + "/") for s in systems), systems
+
+
+def test_the_start_up_heap_is_frozen_only_while_a_batch_runs(folder: Path, tmp_path: Path) -> None:
+    # gc.freeze keeps import-time objects out of the collector's passes during the batch (and its
+    # forked workers); afterwards a long-running caller (the lab server) collects them again
+    import gc
+
+    seen: list[int] = []
+    run_batch(
+        folder,
+        BatchOptions(outdir=tmp_path / "out", pdf=False),
+        jobs=1,
+        progress=lambda _result: seen.append(gc.get_freeze_count()),
+    )
+    assert seen and min(seen) > 1000  # frozen while the studies were processed
+    assert gc.get_freeze_count() == 0
+
+    def stop(_result: object) -> None:
+        raise KeyboardInterrupt  # the reader stops the batch half-way
+
+    with pytest.raises(KeyboardInterrupt):
+        run_batch(folder, BatchOptions(outdir=tmp_path / "stopped", pdf=False), progress=stop)
+    assert gc.get_freeze_count() == 0
