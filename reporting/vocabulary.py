@@ -5,7 +5,8 @@ writes, some 250 times for one analysis record. On Python 3.11 ``Enum.value`` is
 written in Python (two Python calls per read), which was half the time of writing a record. Here
 ``value`` is a plain property over :func:`operator.attrgetter`, which returns the same object
 without running Python code. Everything else (members, equality, hashing, ``str()``, pickling,
-JSON schemas) is StrEnum's own.
+JSON schemas) is StrEnum's own; only ``value`` read on the class itself gives the property
+(StrEnum raises AttributeError there), which nothing reads.
 """
 
 from enum import StrEnum

@@ -807,3 +807,10 @@ def test_the_start_up_heap_is_frozen_only_while_a_batch_runs(folder: Path, tmp_p
     with pytest.raises(KeyboardInterrupt):
         run_batch(folder, BatchOptions(outdir=tmp_path / "stopped", pdf=False), progress=stop)
     assert gc.get_freeze_count() == 0
+    gc.freeze()  # a caller that froze its own heap (a pre-fork server) keeps its freeze
+    try:
+        frozen = gc.get_freeze_count()
+        run_batch(folder, BatchOptions(outdir=tmp_path / "caller", pdf=False), jobs=1)
+        assert gc.get_freeze_count() == frozen
+    finally:
+        gc.unfreeze()
