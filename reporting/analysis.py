@@ -198,8 +198,8 @@ def analyze(
         if value is not None:
             wmsi[stage], wmsi_counts[stage] = value, count
 
-    indexed = frozenset(wmsi_numbers)
-    territories = {t: _territory_result(t, segments, wall, indexed) for t in Territory}
+    in_wmsi = frozenset(wmsi_numbers)
+    territories = {t: _territory_result(t, segments, wall, in_wmsi) for t in Territory}
     perfusion = _perfusion_result(segments, perf)
     kinetics = None
     if curves is not None:
@@ -369,27 +369,18 @@ def _territory_result(
     counts: dict[Stage, int] = {}
     for stage, scores in wall.items():
         wmsi[stage], counts[stage] = scoring.score_index([scores[n] for n in indexed])
-    # One pass puts each segment in every list its responses belong to (segment order kept).
     ischemic: list[int] = []
     viable: list[int] = []
     fixed: list[int] = []
-    reversible: list[int] = []
-    partially_reversible: list[int] = []
-    fixed_perfusion: list[int] = []
-    for s in mine:
-        n, response, perfusion = s.number, s.response, s.perfusion_response
-        if response in ISCHEMIC_RESPONSES:
-            ischemic.append(n)
-        if response in VIABLE_RESPONSES:
-            viable.append(n)
-        if response is _FIXED:
-            fixed.append(n)
-        if perfusion in ISCHEMIC_PERFUSION:
-            reversible.append(n)
-        if perfusion is _PARTIALLY_REVERSIBLE:
-            partially_reversible.append(n)
-        if perfusion is _FIXED_DEFECT:
-            fixed_perfusion.append(n)
+    for s in mine:  # one pass; a biphasic segment is both ischaemic and viable
+        if s.response in ISCHEMIC_RESPONSES:
+            ischemic.append(s.number)
+        if s.response in VIABLE_RESPONSES:
+            viable.append(s.number)
+        if s.response is _FIXED:
+            fixed.append(s.number)
+    reversible = [s.number for s in mine if s.perfusion_response in ISCHEMIC_PERFUSION]
+    by_perfusion = _numbers_by_perfusion(mine)
     return TerritoryResult(
         segments=numbers,
         ischemic_segments=ischemic,
@@ -399,11 +390,24 @@ def _territory_result(
         wmsi=wmsi,
         scored_segments=counts,
         reversible_perfusion_segments=reversible,
-        partially_reversible_perfusion_segments=partially_reversible,
-        fixed_perfusion_segments=fixed_perfusion,
+        partially_reversible_perfusion_segments=by_perfusion[_PARTIALLY_REVERSIBLE],
+        fixed_perfusion_segments=by_perfusion[_FIXED_DEFECT],
         ischemic=bool(ischemic or reversible),
         status=conclusion.territory_status(mine),
     )
+
+
+def _numbers_by_perfusion(segments: list[SegmentResult]) -> dict[PerfusionResponse, list[int]]:
+    """The numbers of the reversible, partially reversible and fixed defects, in segment order."""
+    having: dict[PerfusionResponse, list[int]] = {
+        _REVERSIBLE: [],
+        _PARTIALLY_REVERSIBLE: [],
+        _FIXED_DEFECT: [],
+    }
+    for s in segments:
+        if s.perfusion_response in having:
+            having[s.perfusion_response].append(s.number)
+    return having
 
 
 def _perfusion_result(
@@ -417,14 +421,7 @@ def _perfusion_result(
         percent = scoring.defect_extent_percent(scores.values())
         if value is not None and percent is not None:
             index[stage], counts[stage], extent[stage] = value, count, percent
-    having: dict[PerfusionResponse, list[int]] = {
-        _REVERSIBLE: [],
-        _PARTIALLY_REVERSIBLE: [],
-        _FIXED_DEFECT: [],
-    }
-    for s in segments:
-        if s.perfusion_response in having:
-            having[s.perfusion_response].append(s.number)
+    having = _numbers_by_perfusion(segments)
     return PerfusionResult(
         scored=bool(perf),
         defect_extent_percent=extent,

@@ -99,13 +99,8 @@ class VesselPattern:
         return len(self.counted_territories) >= settings.multivessel_territories_min
 
 
-def vessel_pattern(segments: list[SegmentResult]) -> VesselPattern:
-    """Apply the wrap-around LAD rule to the ischaemic segments."""
-    return _pattern_of([s for s in segments if is_ischemic(s)])
-
-
-def _pattern_of(ischemic: list[SegmentResult]) -> VesselPattern:
-    """:func:`vessel_pattern` given the ischaemic segments only."""
+def vessel_pattern(ischemic: list[SegmentResult]) -> VesselPattern:
+    """Apply the wrap-around LAD rule to the ischaemic segments (those :func:`is_ischemic`)."""
     by_territory: dict[Territory, list[SegmentResult]] = {}
     for s in ischemic:
         by_territory.setdefault(s.territory, []).append(s)
@@ -160,7 +155,7 @@ def conclude(
         rate_dependent=stress_result.heart_rate_target_applies,
         adequate=stress_result.adequate,
     )
-    pattern = _pattern_of(ischemic_results)
+    pattern = vessel_pattern(ischemic_results)
     reversible = [s for s in segments if s.perfusion_response in ISCHEMIC_PERFUSION]
     reversible_percent = 100 * len(reversible) / len(segments)
     high_risk = high_risk_findings(

@@ -13,6 +13,7 @@ exactly the studies the registry lists.
 from __future__ import annotations
 
 import contextlib
+import gc
 import itertools
 import logging
 import os
@@ -94,8 +95,6 @@ def _start_up_heap_frozen() -> Iterator[None]:
     so a long-running caller collects them again. A caller that froze its own heap (a pre-fork
     server) keeps its freeze: ``gc.unfreeze`` would thaw everything, so nothing is done then.
     """
-    import gc
-
     if gc.get_freeze_count():
         yield
         return

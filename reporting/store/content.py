@@ -90,8 +90,18 @@ def parse(data: bytes) -> Content:
         s.value: raw["stages"][s.value] for s in STAGE_ORDER if s.value in raw["stages"]
     }
     study = study_from_data(raw, source="stored study")
-    addenda = tuple(value.get("addenda", ()))
-    return Content(study, dict(value["files"]), addenda, bytes(data), sha256_hex(bytes(data)))
+    return Content(
+        study, dict(value["files"]), _addenda(value), bytes(data), sha256_hex(bytes(data))
+    )
+
+
+def addenda_of(data: bytes) -> tuple[dict[str, str], ...]:
+    """The addenda of stored content, without validating its study."""
+    return _addenda(json.loads(data))
+
+
+def _addenda(value: dict[str, Any]) -> tuple[dict[str, str], ...]:
+    return tuple(value.get("addenda", ()))
 
 
 def with_addendum(content: Content, addendum: dict[str, str]) -> Content:

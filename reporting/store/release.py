@@ -88,7 +88,7 @@ def _signed(
             version=row.version,
             signer=_signer(sig, analysis, where),
             predecessor=predecessor,
-            addenda=tuple(Addendum(**a) for a in content.parse(bytes(row.content)).addenda),
+            addenda=tuple(Addendum(**a) for a in content.addenda_of(bytes(row.content))),
         )
     except ValidationError as exc:
         raise StoreError(where, exc.errors()[0]["msg"]) from None
