@@ -6,6 +6,8 @@ from pathlib import Path
 
 import pandas as pd  # type: ignore[import-untyped, unused-ignore]
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from reporting.analysis import analyze_file
 from reporting.demo import demo_study_names
@@ -158,3 +160,130 @@ def test_perfusion_columns_follow_the_record_lists() -> None:
     row = dict(zip(tables.STUDY_COLUMNS, tables.study_row(a), strict=True))
     assert row["reversible_perfusion_segments"] == "7"
     assert row["partially_reversible_perfusion_segments"] == "2"
+
+
+# The streamed writer cleans and writes rows itself instead of building a DataFrame per chunk. Its
+# bytes are checked against the DataFrame route it replaced (pandas and pyarrow as the oracle):
+# DataFrame.from_records(...).astype(dtypes).to_csv(...) and Table.from_pandas(...) per chunk.
+
+
+def dataframe_route(outdir: Path, chunks: list[tuple[list[tables.Row], list[tables.Row]]]) -> None:
+    outdir.mkdir(parents=True)
+    named = (
+        (tables.STUDIES_CSV, tables.STUDIES_PARQUET, tables.STUDY_COLUMNS, 0),
+        (tables.SEGMENTS_CSV, tables.SEGMENTS_PARQUET, tables.SEGMENT_COLUMNS, 1),
+    )
+    for csv_name, parquet_name, columns, part in named:
+        write_dataframes(
+            outdir / csv_name, outdir / parquet_name, columns, [c[part] for c in chunks]
+        )
+
+
+def write_dataframes(
+    csv_path: Path,
+    parquet_path: Path | None,
+    columns: dict[str, str | tuple[str, tuple[str, ...]]],
+    chunks: list[list[tables.Row]],
+) -> None:
+    import pyarrow as pa  # type: ignore[import-untyped, unused-ignore]
+    import pyarrow.parquet as pq  # type: ignore[import-untyped, unused-ignore]
+
+    dtypes = {
+        name: pd.CategoricalDtype(list(kind[1])) if isinstance(kind, tuple) else kind
+        for name, kind in columns.items()
+    }
+    schema = pa.Schema.from_pandas(
+        pd.DataFrame({n: pd.Series([], dtype=d) for n, d in dtypes.items()}), preserve_index=False
+    )
+    with csv_path.open("w", encoding="utf-8", newline="") as text:
+        text.write(",".join(columns) + "\n")
+        parquet = (
+            pq.ParquetWriter(parquet_path, schema, compression="zstd") if parquet_path else None
+        )
+        for rows in chunks:
+            if not rows:
+                continue
+            frame = pd.DataFrame.from_records(list(rows), columns=list(columns)).astype(dtypes)
+            frame.to_csv(text, header=False, index=False, lineterminator="\n")
+            if parquet is not None:
+                parquet.write_table(
+                    pa.Table.from_pandas(frame, schema=schema, preserve_index=False)
+                )
+        if parquet is not None:
+            parquet.close()
+
+
+@pytest.mark.skipif(not tables.parquet_available(), reason="pyarrow not installed")
+def test_streamed_tables_are_the_dataframe_routes_bytes(
+    analyses: list[Analysis], tmp_path: Path
+) -> None:
+    from reporting.deidentify import deidentify
+
+    studies = analyses + [deidentify(a, b"k" * 32) for a in analyses]
+    chunks = [
+        ([tables.study_row(a) for a in part], [r for a in part for r in tables.segment_rows(a)])
+        for part in (studies[i : i + 3] for i in range(0, len(studies), 3))
+    ]
+    dataframe_route(tmp_path / "pandas", chunks)
+    (tmp_path / "streamed").mkdir()
+    with tables.TableWriter(tmp_path / "streamed", parquet=True) as writer:
+        for study_rows, segment_rows in chunks:
+            writer.append(study_rows, segment_rows)
+        writer.commit()
+    for name in (
+        tables.STUDIES_CSV,
+        tables.SEGMENTS_CSV,
+        tables.STUDIES_PARQUET,
+        tables.SEGMENTS_PARQUET,
+    ):
+        assert (tmp_path / "streamed" / name).read_bytes() == (
+            tmp_path / "pandas" / name
+        ).read_bytes(), name
+
+
+# Every dtype the tables use, with the values a row may hold for it: missing values, NaN, ints in a
+# float column, text that needs CSV quoting, a value outside a categorical's categories.
+ANY_COLUMNS: dict[str, str | tuple[str, tuple[str, ...]]] = {
+    "text": "string",
+    "whole": "Int64",
+    "real": "Float64",
+    "flag": "boolean",
+    "kind": ("category", ("rest", "low_dose", "peak")),
+}
+_CELLS = {
+    "text": st.none() | st.text(st.characters(exclude_categories=["Cs"]), max_size=12),
+    # Within ±2**53: beyond, the DataFrame route itself rounds (from_records reads a column of ints
+    # and None as float64), while the streamed writer keeps every int.
+    "whole": st.none() | st.integers(-(2**53), 2**53),
+    "real": st.none()
+    | st.floats(allow_nan=True, allow_infinity=True)
+    | st.integers(-(2**53), 2**53),
+    "flag": st.none() | st.booleans(),
+    "kind": st.none() | st.sampled_from(["rest", "low_dose", "peak", "Peak", "recovery", ""]),
+}
+ANY_ROW = st.tuples(*(_CELLS[name] for name in ANY_COLUMNS))
+
+
+@pytest.mark.skipif(not tables.parquet_available(), reason="pyarrow not installed")
+@settings(
+    max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+)
+@given(chunks=st.lists(st.lists(ANY_ROW, max_size=6), min_size=1, max_size=4))
+def test_streamed_table_writes_what_pandas_writes_for_any_values(
+    chunks: list[list[tables.Row]], tmp_path_factory: pytest.TempPathFactory
+) -> None:
+    import pyarrow.parquet as pq
+
+    folder = tmp_path_factory.mktemp("any")
+    write_dataframes(folder / "pandas.csv", folder / "pandas.parquet", ANY_COLUMNS, chunks)
+    table = tables._StreamedTable(folder, "streamed.csv", "streamed.parquet", ANY_COLUMNS)
+    for rows in chunks:
+        table.append(rows)
+    table.close()
+    for temp, final in table.targets:
+        temp.replace(final)
+    assert (folder / "streamed.csv").read_bytes() == (folder / "pandas.csv").read_bytes()
+    assert pq.read_table(folder / "streamed.parquet").equals(
+        pq.read_table(folder / "pandas.parquet")
+    )
+    assert (folder / "streamed.parquet").read_bytes() == (folder / "pandas.parquet").read_bytes()
