@@ -17,6 +17,7 @@ import gc
 import itertools
 import logging
 import os
+import threading
 from collections import deque
 from collections.abc import Iterator, Sequence
 from concurrent.futures import Future, ProcessPoolExecutor
@@ -192,6 +193,7 @@ def _results(
         for path, claim in zip(paths, claims, strict=True):
             yield process_study(path, options, indir=indir, claim=claim)
         return
+    preload: threading.Thread | None = None
     executor = ProcessPoolExecutor(
         max_workers=jobs, initializer=watchdog.start, initargs=(os.getpid(), options.deidentify)
     )
@@ -199,6 +201,9 @@ def _results(
         id_tasks = [paths[i : i + ID_TASK_STUDIES] for i in range(0, len(paths), ID_TASK_STUDIES)]
         with _worker_deaths():
             ids = list(executor.map(read_output_ids, id_tasks, itertools.repeat(options)))
+        # The workers exist now (they have answered), so this process may start a thread: the
+        # table libraries load while the workers analyse the first studies.
+        preload = tables.preload_parquet()
         claims = assign(zip(sources, itertools.chain.from_iterable(ids), strict=True))
         queue = (
             list(zip(paths[i : i + TASK_STUDIES], claims[i : i + TASK_STUDIES], strict=True))
@@ -220,6 +225,8 @@ def _results(
             yield from done
     finally:
         executor.shutdown(wait=True, cancel_futures=True)
+        if preload is not None:
+            preload.join()
 
 
 @contextlib.contextmanager

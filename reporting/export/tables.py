@@ -28,6 +28,7 @@ import csv
 import importlib.util
 import logging
 import os
+import threading
 from collections.abc import Callable, Iterable, Sequence
 from pathlib import Path
 from typing import IO, TYPE_CHECKING, Any
@@ -274,6 +275,27 @@ def parquet_available() -> bool:
     return importlib.util.find_spec("pyarrow") is not None
 
 
+def preload_parquet() -> threading.Thread | None:
+    """Import what Parquet writing needs (pandas, pyarrow; about a second) in a background thread.
+
+    For a process that waits on workers anyway: the import then overlaps their work instead of
+    delaying it. Start it only once the workers exist; a process forked while another thread
+    imports can inherit a held import lock. A failed import is left for the first use to report.
+    ``None`` when pyarrow is not installed.
+    """
+    if not parquet_available():
+        return None
+
+    def load() -> None:
+        with contextlib.suppress(Exception):
+            import pandas  # type: ignore[import-untyped, unused-ignore]  # noqa: F401
+            import pyarrow.parquet  # type: ignore[import-untyped, unused-ignore]  # noqa: F401
+
+    thread = threading.Thread(target=load, name="parquet-preload", daemon=True)
+    thread.start()
+    return thread
+
+
 class _StreamedTable:
     """One table streamed as CSV (and optionally Parquet) into temporary files.
 
@@ -299,24 +321,23 @@ class _StreamedTable:
         self._csv.write(",".join(columns) + "\n")
         # DataFrame.to_csv's writer: minimal quoting, doubled quotes, "\n" ends a line.
         self._csv_rows = csv.writer(self._csv, lineterminator="\n")
-        self._parquet: Any = None
-        if parquet_name is not None:
-            try:
-                import pyarrow as pa  # type: ignore[import-untyped, unused-ignore]
-                import pyarrow.parquet as pq  # type: ignore[import-untyped, unused-ignore]
+        self._outdir = outdir
+        self._parquet_name = parquet_name
+        self._parquet: Any = None  # opened with the first rows: pandas and pyarrow load late
+        self._parquet_file: IO[bytes] | None = None
 
-                # From the empty DataFrame, so the file carries pandas' metadata and reads back
-                # with the declared dtypes.
-                schema = pa.Schema.from_pandas(_empty(columns), preserve_index=False)
-                handle = _temp_binary(outdir, parquet_name, self.targets)
-                self._parquet = pq.ParquetWriter(handle, schema, compression="zstd")
-                self._schema = schema
-            except BaseException:
-                self._csv.close()
-                for temp, _ in self.targets:
-                    with contextlib.suppress(FileNotFoundError):
-                        temp.unlink()
-                raise
+    def _parquet_writer(self) -> Any:
+        if self._parquet is None:
+            import pyarrow as pa  # type: ignore[import-untyped, unused-ignore]
+            import pyarrow.parquet as pq  # type: ignore[import-untyped, unused-ignore]
+
+            assert self._parquet_name is not None
+            # From the empty DataFrame, so the file carries pandas' metadata and reads back with
+            # the declared dtypes.
+            self._schema = pa.Schema.from_pandas(_empty(self.columns), preserve_index=False)
+            self._parquet_file = _temp_binary(self._outdir, self._parquet_name, self.targets)
+            self._parquet = pq.ParquetWriter(self._parquet_file, self._schema, compression="zstd")
+        return self._parquet
 
     def append(self, rows: Sequence[Row]) -> None:
         if not rows:
@@ -326,14 +347,37 @@ class _StreamedTable:
             for f, values in zip(self._clean, zip(*rows, strict=True), strict=True)
         ]
         self._csv_rows.writerows(zip(*columns, strict=True))
-        if self._parquet is not None:
-            self._parquet.write_table(_arrow_table(columns, self.columns, self._schema))
+        if self._parquet_name is not None:
+            writer = self._parquet_writer()
+            writer.write_table(_arrow_table(columns, self.columns, self._schema))
 
     def close(self) -> None:
+        """Finish both files (a Parquet file that got no rows still gets its schema)."""
+        try:
+            if self._parquet_name is not None:
+                self._parquet_writer().close()  # writes the footer; the file is ours to close
+                self._parquet_name = None
+        finally:
+            self._close_files()
+
+    def discard(self) -> None:
+        """Close without finishing and delete the temporary files."""
         if self._parquet is not None:
-            self._parquet.close()
-            self._parquet = None
-        self._csv.close()
+            with contextlib.suppress(Exception):
+                self._parquet.close()
+        with contextlib.suppress(Exception):
+            self._close_files()
+        for temp, _ in self.targets:
+            with contextlib.suppress(FileNotFoundError):
+                temp.unlink()
+
+    def _close_files(self) -> None:
+        self._parquet_name = None
+        try:
+            if self._parquet_file is not None:
+                self._parquet_file.close()
+        finally:
+            self._csv.close()
 
 
 Cleaner = Callable[[Any], Any]
@@ -454,11 +498,7 @@ class TableWriter:
     def abort(self) -> None:
         """Close and delete the temporary files."""
         for table in self._tables:
-            with contextlib.suppress(Exception):
-                table.close()
-            for temp, _ in table.targets:
-                with contextlib.suppress(FileNotFoundError):
-                    temp.unlink()
+            table.discard()
         self._tables = []
 
     def __enter__(self) -> TableWriter:
