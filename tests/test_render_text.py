@@ -226,12 +226,14 @@ plain_words = st.text(
 
 @settings(max_examples=2000, deadline=None)
 @given(words=st.lists(plain_words, min_size=1, max_size=60), width=st.floats(60, 520))
-def test_our_no_break_filling_gives_simple_splits_lines(words: list[str], width: float) -> None:
-    """The one line filler of our own (kept for lines with a no-break space, at which reportlab's
-    public simpleSplit would break) fills lines exactly as simpleSplit does (the oracle)."""
+def test_our_line_filling_gives_simple_splits_lines(words: list[str], width: float) -> None:
+    """Our line filler (each word measured once, and no break at a no-break space, where
+    reportlab's public simpleSplit would break) fills lines exactly as simpleSplit does (the
+    oracle) for text without no-break spaces."""
     pieces = text_module._pieces(words, FONT, SIZE, width)
+    assert all(w == _width(piece) for piece, w in pieces)
     assert text_module._greedy(pieces, FONT, SIZE, width) == simpleSplit(
-        " ".join(pieces), FONT, SIZE, width
+        " ".join(piece for piece, _ in pieces), FONT, SIZE, width
     )
 
 

@@ -3,9 +3,11 @@
 Almost every paragraph of the report (table cells, narrative, cautions) is plain text in one font.
 reportlab's Paragraph parses XML markup and handles fragments of mixed style for every one of them,
 which made up about a fifth of the PDF's time. :class:`PlainText` does only what plain text needs:
-greedy line breaking at spaces by reportlab's public ``simpleSplit`` (the font's real widths), words
-wider than the column broken between characters (our own), explicit line breaks kept, splitting across frames and pages between lines
-under the style's orphan and widow rules.
+greedy line breaking at spaces with the font's real widths, filling lines exactly as reportlab's
+public ``simpleSplit`` does (the tests hold it to simpleSplit; each word is measured once, and a
+no-break space does not break), words wider than the column broken between characters, explicit
+line breaks kept, splitting across frames and pages between lines under the style's orphan and
+widow rules.
 Lines sit where Paragraph puts them (first baseline one font size below the top, then one leading
 apart), so the page looks the same. Text is made printable first (control characters dropped,
 glyphs the font lacks replaced); as nothing is parsed, no escaping is needed.
@@ -14,11 +16,11 @@ glyphs the font lacks replaced); as nothing is parsed, no escaping is needed.
 from __future__ import annotations
 
 import copy
+import functools
 import re
 
 from reportlab.lib.enums import TA_LEFT
 from reportlab.lib.styles import ParagraphStyle
-from reportlab.lib.utils import simpleSplit
 from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.platypus import Flowable
 
@@ -31,6 +33,9 @@ _BREAKABLE = re.compile(r"[ \t\r\f\v]+")
 _NO_BREAK = re.compile(r"[^\S \t\r\f\v\n]")
 """A space that is not a break: U+00A0, U+202F, U+2007 (and any other Unicode space, which
 ``simpleSplit`` would turn into an ordinary one)."""
+_SLACK = 1e-6
+"""Points a whole line must be short of the width to skip the word-by-word filling: widths summed
+word by word (as the filling does) and for the whole line differ only in floating-point rounding."""
 # style features PlainText does not draw, with the value that means "not used"
 _UNSUPPORTED = {
     "leftIndent": 0,
@@ -40,6 +45,12 @@ _UNSUPPORTED = {
     "borderWidth": 0,
     "wordWrap": None,
 }
+
+
+@functools.lru_cache(maxsize=8192)
+def _word_width(word: str, font: str, size: float) -> float:
+    """``stringWidth`` of one word, remembered: report texts reuse a small vocabulary."""
+    return float(stringWidth(word, font, size))
 
 
 def _break_word(word: str, font: str, size: float, width: float) -> list[str]:
@@ -55,30 +66,30 @@ def _break_word(word: str, font: str, size: float, width: float) -> list[str]:
     return pieces
 
 
-def _pieces(words: list[str], font: str, size: float, width: float) -> list[str]:
-    """``words`` with every word wider than ``width`` broken between characters (our one rule)."""
-    out: list[str] = []
+def _pieces(words: list[str], font: str, size: float, width: float) -> list[tuple[str, float]]:
+    """``words`` with their widths, every word wider than ``width`` broken between characters."""
+    out: list[tuple[str, float]] = []
     for word in words:
-        out += (
-            [word]
-            if stringWidth(word, font, size) <= width
-            else _break_word(word, font, size, width)
-        )
+        w = _word_width(word, font, size)
+        if w <= width:
+            out.append((word, w))
+        else:
+            out += [(p, _word_width(p, font, size)) for p in _break_word(word, font, size, width)]
     return out
 
 
-def _greedy(words: list[str], font: str, size: float, width: float) -> list[str]:
-    """Greedy filling of ``words`` (none wider than ``width``), as ``simpleSplit`` fills lines.
+def _greedy(pieces: list[tuple[str, float]], font: str, size: float, width: float) -> list[str]:
+    """Greedy filling of measured ``pieces`` (none wider than ``width``), line by line.
 
-    Used only for a line holding a no-break space: ``simpleSplit`` splits at every Unicode space,
-    U+00A0 included, and would break ``100 %`` apart.
+    The same sums in the same order as reportlab's public ``simpleSplit``, so the same lines (the
+    tests hold it to simpleSplit); each word is measured once, and only ordinary spaces break, where
+    simpleSplit breaks at every Unicode space and would split ``100 %``.
     """
-    space = stringWidth(" ", font, size)
+    space = _word_width(" ", font, size)
     lines: list[str] = []
     current: list[str] = []
     used = -space
-    for word in words:
-        w = stringWidth(word, font, size)
+    for word, w in pieces:
         if current and used + space + w > width:
             lines.append(" ".join(current))
             current, used = [], -space
@@ -90,11 +101,10 @@ def _greedy(words: list[str], font: str, size: float, width: float) -> list[str]
 def wrap_lines(text: str, font: str, size: float, width: float) -> list[str]:
     """``text`` broken into lines no wider than ``width`` points (greedy, at spaces).
 
-    The breaking is reportlab's public :func:`reportlab.lib.utils.simpleSplit`; what we add is
-    only the breaking of a word wider than the whole line between characters (it then starts a
-    line of its own). Runs of spaces count as one; a newline always starts a new line. Only
-    ordinary spaces and tabs separate words: a no-break space (U+00A0, U+202F, U+2007) keeps
-    ``100 %`` together.
+    Lines fill as reportlab's :func:`reportlab.lib.utils.simpleSplit` fills them; a word wider than
+    the whole line is broken between characters (it then starts a line of its own). Runs of spaces
+    count as one; a newline always starts a new line. Only ordinary spaces and tabs separate
+    words: a no-break space (U+00A0, U+202F, U+2007) keeps ``100 %`` together.
     """
     lines: list[str] = []
     for chunk in text.split("\n"):
@@ -102,11 +112,11 @@ def wrap_lines(text: str, font: str, size: float, width: float) -> list[str]:
         if not words:
             lines.append("")
             continue
-        pieces = _pieces(words, font, size, width)
-        if _NO_BREAK.search(chunk):
-            lines += _greedy(pieces, font, size, width)
-        else:
-            lines += simpleSplit(" ".join(pieces), font, size, width)
+        joined = " ".join(words)
+        if stringWidth(joined, font, size) < width - _SLACK:
+            lines.append(joined)  # all of it fits: what the filling would make of it
+            continue
+        lines += _greedy(_pieces(words, font, size, width), font, size, width)
     return lines
 
 
