@@ -639,7 +639,7 @@ class Analysis(_Result):
     )
     @cached_property
     def computed_impression(self) -> str:
-        from reporting.render.narrative import computed_impression_text
+        from reporting.render.narrative.impression import computed_impression_text
 
         return computed_impression_text(self)
 

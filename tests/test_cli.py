@@ -36,9 +36,34 @@ def test_a_command_loads_only_its_own_module(tmp_path: Path) -> None:
         f"try:\n    main(['analyze', {str(study)!r}])\nexcept SystemExit:\n    pass\n"
         "loaded = sorted(m for m in sys.modules if m.startswith('reporting.cli.') or m == 'logging')\n"
         "print('LOADED:' + ','.join(loaded))\n"
+        "print('NARRATIVE:' + ','.join(sorted(m for m in sys.modules if '.narrative' in m)))\n"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    assert out.stdout.strip().splitlines()[-1] == "LOADED:reporting.cli.common,reporting.cli.study"
+    loaded, narrative = out.stdout.strip().splitlines()[-2:]
+    assert loaded == "LOADED:reporting.cli.common,reporting.cli.study"
+    # the record's computed impression needs the impression wording, not the whole narrative
+    assert narrative == (
+        "NARRATIVE:reporting.render.narrative,reporting.render.narrative.impression,"
+        "reporting.render.narrative.words"
+    )
+
+
+def test_lazy_package_names_are_exported_and_resolve() -> None:
+    import importlib
+
+    for name in (
+        "reporting",
+        "reporting.kinetics",
+        "reporting.qa",
+        "reporting.render",
+        "reporting.render.narrative",
+    ):
+        package = importlib.import_module(name)
+        lazy = package._LAZY
+        assert set(lazy) <= set(package.__all__), name
+        for attribute, module in lazy.items():
+            value = getattr(package, attribute)
+            assert value is getattr(importlib.import_module(module), attribute), (name, attribute)
 
 
 def test_every_command_is_listed_and_a_near_miss_is_suggested() -> None:

@@ -12,27 +12,58 @@ templates). This module holds the public names only.
 
 from __future__ import annotations
 
-from reporting.render.narrative.conduct import reader_paragraphs
-from reporting.render.narrative.document import (
-    HTML_TEMPLATE,
-    TEXT_TEMPLATE,
-    Audience,
-    Narrative,
-    Section,
-    build_narrative,
-    computed_impression_text,
-    environment,
-    impression_differs,
-    impression_state_line,
-    narrative_html,
-    narrative_text,
-    reader_impression_in_headline,
-    text_blocks,
-)
-from reporting.render.narrative.impression import risk_fact, summary
-from reporting.render.narrative.sections import stress_paragraphs
-from reporting.render.narrative.words import signed
-from reporting.wording import shown_percent, shown_target_bpm
+from typing import TYPE_CHECKING
+
+from reporting.lazy import lazy_attributes
+
+# The names load on first use: every analysis words its computed findings
+# (reporting.render.narrative.impression), and that must not load the document, its sections or
+# the templates.
+_LAZY = {
+    "reader_paragraphs": "reporting.render.narrative.conduct",
+    "HTML_TEMPLATE": "reporting.render.narrative.document",
+    "TEXT_TEMPLATE": "reporting.render.narrative.document",
+    "Audience": "reporting.render.narrative.document",
+    "Narrative": "reporting.render.narrative.document",
+    "Section": "reporting.render.narrative.document",
+    "build_narrative": "reporting.render.narrative.document",
+    "environment": "reporting.render.narrative.document",
+    "impression_differs": "reporting.render.narrative.document",
+    "impression_state_line": "reporting.render.narrative.document",
+    "narrative_html": "reporting.render.narrative.document",
+    "narrative_text": "reporting.render.narrative.document",
+    "reader_impression_in_headline": "reporting.render.narrative.document",
+    "text_blocks": "reporting.render.narrative.document",
+    "computed_impression_text": "reporting.render.narrative.impression",
+    "risk_fact": "reporting.render.narrative.impression",
+    "summary": "reporting.render.narrative.impression",
+    "stress_paragraphs": "reporting.render.narrative.sections",
+    "signed": "reporting.render.narrative.words",
+    "shown_percent": "reporting.wording",
+    "shown_target_bpm": "reporting.wording",
+}
+
+if TYPE_CHECKING:
+    from reporting.render.narrative.conduct import reader_paragraphs
+    from reporting.render.narrative.document import (
+        HTML_TEMPLATE,
+        TEXT_TEMPLATE,
+        Audience,
+        Narrative,
+        Section,
+        build_narrative,
+        environment,
+        impression_differs,
+        impression_state_line,
+        narrative_html,
+        narrative_text,
+        reader_impression_in_headline,
+        text_blocks,
+    )
+    from reporting.render.narrative.impression import computed_impression_text, risk_fact, summary
+    from reporting.render.narrative.sections import stress_paragraphs
+    from reporting.render.narrative.words import signed
+    from reporting.wording import shown_percent, shown_target_bpm
 
 __all__ = [
     "HTML_TEMPLATE",
@@ -57,3 +88,5 @@ __all__ = [
     "summary",
     "text_blocks",
 ]
+
+__getattr__ = lazy_attributes(__name__, _LAZY)

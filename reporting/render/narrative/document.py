@@ -18,6 +18,7 @@ from reporting.notes import REFERRER_NOTES, NoteKind
 from reporting.render.narrative.conduct import conduct_paragraphs, reader_paragraphs
 from reporting.render.narrative.impression import (
     Question,
+    computed_impression_text,
     high_risk_paragraphs,
     impression,
     question,
@@ -72,11 +73,6 @@ HEADLINE_MAX_PARAGRAPHS = 6
 (a box cannot break across pages)."""
 HEADLINE_MAX_CHARS = 1500
 """Layout limit, as above, in characters."""
-
-
-def computed_impression_text(analysis: Analysis) -> str:
-    """The computed findings as plain text, one paragraph per line: the draft impression."""
-    return "\n".join(impression(analysis))
 
 
 def reader_impression_in_headline(analysis: Analysis) -> bool:

@@ -211,6 +211,11 @@ def non_diagnostic_reason(analysis: Analysis) -> str:
     return "adequate stress was not established, so ischaemia is not excluded"
 
 
+def computed_impression_text(analysis: Analysis) -> str:
+    """The computed findings as plain text, one paragraph per line: the draft impression."""
+    return "\n".join(impression(analysis))
+
+
 def impression(analysis: Analysis) -> list[str]:
     by_number = {s.number: s for s in analysis.segments}
     pending = _pending_stress_stages(analysis)
