@@ -244,3 +244,28 @@ def test_plain_lines_are_simple_splits_lines(words: list[str], width: float) -> 
     text = " ".join(words)
     if all(_width(w) <= width for w in words):
         assert wrap_lines(text, FONT, SIZE, width) == simpleSplit(text, FONT, SIZE, width)
+
+
+@settings(max_examples=300, deadline=None)
+@given(
+    words=st.lists(plain_words, min_size=2, max_size=30),
+    font=st.sampled_from([FONT, "Helvetica"]),
+    size=st.sampled_from([SIZE, 10.0, 7.3]),
+)
+def test_a_column_exactly_as_wide_as_a_line_breaks_as_simple_split_does(
+    words: list[str], font: str, size: float
+) -> None:
+    """Widths that equal a line's running width to the last bit, summed in simpleSplit's order and
+    in the other order, where the two orders can differ by one unit in the last place (random
+    float widths almost never hit them). simpleSplit is the oracle."""
+    space = float(stringWidth(" ", font, size))
+    simple_order, other_order, widths = -space, -space, set()
+    for word in words:
+        w = float(stringWidth(word, font, size))
+        simple_order = simple_order + space + w  # simpleSplit's own sum, in its order
+        other_order += space + w
+        widths |= {simple_order, other_order}
+    text = " ".join(words)
+    for width in sorted(widths):
+        if all(stringWidth(w, font, size) <= width for w in words):
+            assert wrap_lines(text, font, size, width) == simpleSplit(text, font, size, width)

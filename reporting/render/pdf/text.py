@@ -81,9 +81,11 @@ def _pieces(words: list[str], font: str, size: float, width: float) -> list[tupl
 def _greedy(pieces: list[tuple[str, float]], font: str, size: float, width: float) -> list[str]:
     """Greedy filling of measured ``pieces`` (none wider than ``width``), line by line.
 
-    The same sums in the same order as reportlab's public ``simpleSplit``, so the same lines (the
-    tests hold it to simpleSplit); each word is measured once, and only ordinary spaces break, where
-    simpleSplit breaks at every Unicode space and would split ``100 %``.
+    The same sums in the same order as reportlab's public ``simpleSplit`` (``(used + space) + w``,
+    restarting from the first word's width), so the same lines even where a line's width equals
+    the column's to the last bit (the tests hold it to simpleSplit). Each word is measured once, and
+    only ordinary spaces break, where simpleSplit breaks at every Unicode space and would split
+    ``100 %``.
     """
     space = _word_width(" ", font, size)
     lines: list[str] = []
@@ -92,9 +94,10 @@ def _greedy(pieces: list[tuple[str, float]], font: str, size: float, width: floa
     for word, w in pieces:
         if current and used + space + w > width:
             lines.append(" ".join(current))
-            current, used = [], -space
+            current, used = [word], w
+            continue
         current.append(word)
-        used += space + w
+        used = used + space + w
     return [*lines, " ".join(current)]
 
 
