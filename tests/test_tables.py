@@ -251,14 +251,20 @@ ANY_COLUMNS: dict[str, str | tuple[str, tuple[str, ...]]] = {
     "kind": ("category", ("rest", "low_dose", "peak")),
 }
 _CELLS = {
-    "text": st.none() | st.text(st.characters(exclude_categories=["Cs"]), max_size=12),
+    "text": st.none()
+    | st.just(float("nan"))
+    | st.text(st.characters(exclude_categories=["Cs"]), max_size=12),
     # Within ±2**53: beyond, the DataFrame route itself rounds (from_records reads a column of ints
     # and None as float64), while the streamed writer keeps every int.
-    "whole": st.none() | st.integers(-(2**53), 2**53),
+    "whole": st.none()
+    | st.just(float("nan"))
+    | st.booleans()
+    | st.integers(-(2**53), 2**53)
+    | st.integers(-(2**40), 2**40).map(float),
     "real": st.none()
     | st.floats(allow_nan=True, allow_infinity=True)
     | st.integers(-(2**53), 2**53),
-    "flag": st.none() | st.booleans(),
+    "flag": st.none() | st.just(float("nan")) | st.booleans(),
     "kind": st.none() | st.sampled_from(["rest", "low_dose", "peak", "Peak", "recovery", ""]),
 }
 ANY_ROW = st.tuples(*(_CELLS[name] for name in ANY_COLUMNS))
@@ -344,3 +350,42 @@ writer.abort()
     )
     assert done.stdout.split("\n")[:2] == ["False False", "True True"]
     assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize(
+    ("column", "value"),
+    [
+        ("whole", 3.5),
+        ("whole", 2**63),
+        ("whole", float("inf")),
+        ("flag", "False"),
+        ("flag", 2),
+    ],
+    ids=repr,
+)
+def test_a_value_its_dtype_cannot_hold_is_refused_naming_the_column(
+    column: str, value: object, tmp_path: Path
+) -> None:
+    # pandas refuses these too (the oracle); the streamed writer says which table and column. (It
+    # also refuses numeric text such as "7", which pandas would read as a number.)
+    row = tuple(value if name == column else None for name in ANY_COLUMNS)
+    with pytest.raises((TypeError, ValueError, OverflowError)):
+        write_dataframes(tmp_path / "pandas.csv", None, ANY_COLUMNS, [[row]])
+    table = tables._StreamedTable(tmp_path, "streamed.csv", None, ANY_COLUMNS)
+    with pytest.raises(ValueError, match=f"streamed.csv, column {column}: "):
+        table.append([row])
+    table.discard()
+    assert not list(tmp_path.glob(".streamed*"))
+
+
+@pytest.mark.parametrize("parquet", [True, False], ids=["with parquet", "csv only"])
+def test_a_table_name_taken_by_a_folder_is_refused_before_any_study_runs(
+    parquet: bool, tmp_path: Path
+) -> None:
+    from reporting.errors import OutputError
+
+    taken = tables.STUDIES_PARQUET if parquet else tables.SEGMENTS_CSV
+    (tmp_path / taken).mkdir()
+    with pytest.raises(OutputError, match="it is a folder"):
+        tables.TableWriter(tmp_path, parquet=True)
+    assert sorted(p.name for p in tmp_path.iterdir()) == [taken]

@@ -86,8 +86,8 @@ def run_batch(
 
 @contextlib.contextmanager
 def _start_up_heap_frozen() -> Iterator[None]:
-    """Keep the objects alive when the studies start (modules, classes, pandas) out of the
-    collector's passes.
+    """Keep the objects alive when the studies start (modules, classes) out of the collector's
+    passes.
 
     A batch creates many short-lived objects per study, and each full collection would walk the
     hundreds of thousands that the imports left behind; frozen before the workers fork, they are
@@ -95,6 +95,8 @@ def _start_up_heap_frozen() -> Iterator[None]:
     documentation of ``gc.freeze`` advises for a process that forks. They are unfrozen afterwards,
     so a long-running caller collects them again. A caller that froze its own heap (a pre-fork
     server) keeps its freeze: ``gc.unfreeze`` would thaw everything, so nothing is done then.
+    pandas and pyarrow load later, in the parent only (:func:`tables.preload_parquet`), and are not
+    frozen: the parent's few full collections walk them.
     """
     if gc.get_freeze_count():
         yield

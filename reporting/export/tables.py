@@ -27,13 +27,15 @@ import contextlib
 import csv
 import importlib.util
 import logging
+import numbers
+import operator
 import os
 import threading
 from collections.abc import Callable, Iterable, Sequence
 from pathlib import Path
 from typing import IO, TYPE_CHECKING, Any
 
-from reporting.files import temporary_beside
+from reporting.files import check_target, temporary_beside
 from reporting.model import Protocol, ReportStatus, Sex, Stage
 from reporting.results import Analysis, DiagnosticStatus
 from reporting.scoring import IschemiaExtent, PerfusionResponse, WallMotionResponse
@@ -322,9 +324,16 @@ class _StreamedTable:
         # DataFrame.to_csv's writer: minimal quoting, doubled quotes, "\n" ends a line.
         self._csv_rows = csv.writer(self._csv, lineterminator="\n")
         self._outdir = outdir
+        self._csv_name = csv_name
         self._parquet_name = parquet_name
         self._parquet: Any = None  # opened with the first rows: pandas and pyarrow load late
         self._parquet_file: IO[bytes] | None = None
+        if parquet_name is not None:  # opened late, refused early (a folder or FIFO of that name)
+            try:
+                check_target(outdir / parquet_name)
+            except BaseException:
+                self.discard()
+                raise
 
     def _parquet_writer(self) -> Any:
         if self._parquet is None:
@@ -342,10 +351,14 @@ class _StreamedTable:
     def append(self, rows: Sequence[Row]) -> None:
         if not rows:
             return
-        columns = [
-            list(map(f, values))
-            for f, values in zip(self._clean, zip(*rows, strict=True), strict=True)
-        ]
+        columns = []
+        for name, clean, values in zip(
+            self.columns, self._clean, zip(*rows, strict=True), strict=True
+        ):
+            try:
+                columns.append(list(map(clean, values)))
+            except (TypeError, ValueError) as exc:  # a row builder's bug: say where
+                raise ValueError(f"{self._csv_name}, column {name}: {exc}") from None
         self._csv_rows.writerows(zip(*columns, strict=True))
         if self._parquet_name is not None:
             writer = self._parquet_writer()
@@ -383,21 +396,57 @@ class _StreamedTable:
 Cleaner = Callable[[Any], Any]
 
 
+_INT64_MIN, _INT64_MAX = -(2**63), 2**63 - 1
+
+
+def _missing(value: Any) -> bool:
+    # None, or a float NaN (pandas reads NaN as missing in every nullable dtype)
+    return value is None or (type(value) is float and value != value)
+
+
 def _text(value: Any) -> str | None:
-    return value if value is None or type(value) is str else str(value)
+    if type(value) is str or value is None:
+        return value
+    return None if _missing(value) else str(value)
 
 
 def _integer(value: Any) -> int | None:
-    return value if value is None or type(value) is int else int(value)
+    """A whole number within Int64, as pandas stores it; anything else is refused, as pandas
+    refuses it (a fraction, text, a number beyond 64 bits)."""
+    if (type(value) is int and _INT64_MIN <= value <= _INT64_MAX) or value is None:
+        return value
+    if _missing(value):
+        return None
+    if isinstance(value, float):
+        if not value.is_integer():
+            raise ValueError(f"{value!r} is not a whole number")
+        value = int(value)
+    elif isinstance(value, (str, bytes)):
+        raise ValueError(f"{value!r} is not a whole number")
+    else:
+        value = operator.index(value)  # bool, numpy integers; TypeError for anything else
+    if not _INT64_MIN <= value <= _INT64_MAX:
+        raise ValueError(f"{value} does not fit a 64-bit integer")
+    return int(value)
 
 
 def _real(value: Any) -> float | None:
-    # Float64 holds NaN as missing; the csv module writes a float by repr, as pandas does.
-    return None if value is None or value != value else float(value)
+    # The csv module writes a float by repr, as pandas does.
+    if type(value) is float:
+        return None if value != value else value
+    if value is None:
+        return None
+    if isinstance(value, numbers.Real):  # int, bool, numpy floats
+        return float(value)
+    raise ValueError(f"{value!r} is not a number")
 
 
 def _flag(value: Any) -> bool | None:
-    return value if value is None or type(value) is bool else bool(value)
+    if type(value) is bool or value is None:
+        return value
+    if _missing(value):
+        return None
+    raise ValueError(f"{value!r} is not true or false")
 
 
 def _cleaners(columns: dict[str, str | tuple[str, tuple[str, ...]]]) -> list[Cleaner]:
