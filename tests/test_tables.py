@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import numpy as np
 import pandas as pd  # type: ignore[import-untyped, unused-ignore]
 import pytest
 from hypothesis import HealthCheck, given, settings
@@ -263,6 +264,7 @@ _CELLS = {
     | st.integers(-(2**40), 2**40).map(float),
     "real": st.none()
     | st.floats(allow_nan=True, allow_infinity=True)
+    | st.floats(allow_nan=True, width=32).map(np.float32)
     | st.integers(-(2**53), 2**53),
     "flag": st.none() | st.just(float("nan")) | st.booleans(),
     "kind": st.none() | st.sampled_from(["rest", "low_dose", "peak", "Peak", "recovery", ""]),

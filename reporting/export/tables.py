@@ -7,9 +7,9 @@ turn such rows into DataFrames with fixed columns and pandas nullable dtypes (``
 every chunk of a batch has the same schema. :class:`TableWriter` streams chunks to ``studies.csv``
 and ``segments.csv`` (and Parquet when pyarrow is importable) through temporary files renamed on
 :meth:`~TableWriter.commit`, so memory does not grow with the number of studies and an interrupted
-run leaves no half-written table. It writes the bytes those DataFrames would write, without building
-them (pandas is imported only for the Parquet schema). :func:`read_studies_csv` and :func:`read_segments_csv` read the
-CSV back with the same dtypes.
+run leaves no half-written table. It writes the bytes those DataFrames would write without building
+them (pandas is imported only for the Parquet schema). :func:`read_studies_csv` and
+:func:`read_segments_csv` read the CSV back with the same dtypes.
 
 The files feed other engines unchanged: DuckDB reads ``read_parquet('segments.parquet')`` or
 ``read_csv_auto('segments.csv')``, and Spark ``spark.read.parquet(...)`` or
@@ -436,8 +436,9 @@ def _real(value: Any) -> float | None:
         return None if value != value else value
     if value is None:
         return None
-    if isinstance(value, numbers.Real):  # int, bool, numpy floats
-        return float(value)
+    if isinstance(value, numbers.Real):  # int, bool, numpy floats (NaN among them)
+        number = float(value)
+        return None if number != number else number
     raise ValueError(f"{value!r} is not a number")
 
 
