@@ -369,7 +369,6 @@ class _StreamedTable:
         try:
             if self._parquet_name is not None:
                 self._parquet_writer().close()  # writes the footer; the file is ours to close
-                self._parquet_name = None
         finally:
             self._close_files()
 

@@ -30,9 +30,6 @@ __all__ = ["PlainText", "wrap_lines"]
 
 
 _BREAKABLE = re.compile(r"[ \t\r\f\v]+")
-_NO_BREAK = re.compile(r"[^\S \t\r\f\v\n]")
-"""A space that is not a break: U+00A0, U+202F, U+2007 (and any other Unicode space, which
-``simpleSplit`` would turn into an ordinary one)."""
 _SLACK = 1e-6
 """Points a whole line must be short of the width to skip the word-by-word filling: widths summed
 word by word (as the filling does) and for the whole line differ only in floating-point rounding."""
